@@ -1,0 +1,368 @@
+"""Stage 3 of the flow: the exact classical two-way ANOVA from cell statistics.
+
+Types I, II and III sums of squares by model comparison on cell means
+(METHODS.md section 1).  Every model's residual SS is the within-cell SS plus a
+weighted sum of squares of the cell means around the model's cell-level fit,
+so only the between-cell parts are ever subtracted (no large SSE differences):
+
+    SSE(model) = SSE_full + Q(model),  Q(model) = sum_jk n_jk (ybar_jk - fit_jk)^2.
+
+No formula parser and no per-call model refit over observations: the additive
+model is a weighted least-squares fit on at most J*K cell means.
+
+References
+----------
+.. [1] Searle, S. R. (1987). Linear Models for Unbalanced Data. Wiley.
+.. [2] Olejnik, S. & Algina, J. (2003). Generalized eta and omega squared
+       statistics. Psychological Methods 8, 434-447.
+.. [3] Steiger, J. H. (2004). Beyond the F test: effect size confidence
+       intervals and tests of close fit. Psychological Methods 9, 164-182.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import optimize, stats
+
+from .design import CellStats
+
+__all__ = [
+    "AnovaRow",
+    "AnovaTable",
+    "AnovaResult",
+    "anova_two_way",
+    "additive_cell_fit",
+    "contrast_matrix",
+    "partial_eta_sq_ci",
+]
+
+EFFECTS = ("A", "B", "AB")
+
+
+@dataclass(frozen=True, kw_only=True)
+class AnovaRow:
+    """One line of an ANOVA table.
+
+    Attributes
+    ----------
+    effect : str
+        'A', 'B', 'AB' or 'residual'.
+    label : str
+        The effect in the data's own names ('supp', 'dose', 'supp:dose', 'Residual').
+    ss, df, ms : sums of squares, degrees of freedom, mean square.
+    F, p : float or None
+        None, with ``note`` saying why, when the test cannot be formed.
+    partial_eta_sq : float or None
+        SS_eff / (SS_eff + SS_E).
+    partial_eta_sq_ci : tuple of float or None
+        95% interval from the noncentral F [3].
+    partial_omega_sq : float or None
+        (SS_eff - df MS_E) / (SS_eff + (N - df) MS_E) [2].
+    note : str or None
+        Why a value is missing, or what the hypothesis means here.
+    """
+
+    effect: str
+    label: str
+    ss: float | None
+    df: int
+    ms: float | None
+    F: float | None
+    p: float | None
+    partial_eta_sq: float | None
+    partial_eta_sq_ci: tuple[float, float] | None
+    partial_omega_sq: float | None
+    note: str | None = None
+
+    def to_dict(self) -> dict:
+        return {
+            "effect": self.effect,
+            "label": self.label,
+            "ss": self.ss,
+            "df": self.df,
+            "ms": self.ms,
+            "F": self.F,
+            "p": self.p,
+            "partial_eta_sq": self.partial_eta_sq,
+            "partial_eta_sq_ci": list(self.partial_eta_sq_ci) if self.partial_eta_sq_ci else None,
+            "partial_omega_sq": self.partial_omega_sq,
+            "note": self.note,
+        }
+
+
+@dataclass(frozen=True, kw_only=True)
+class AnovaTable:
+    """An ANOVA table of one sums-of-squares type ('I', 'II' or 'III')."""
+
+    ss_type: str
+    rows: tuple[AnovaRow, ...]
+
+    def row(self, effect: str) -> AnovaRow:
+        for r in self.rows:
+            if r.effect == effect:
+                return r
+        raise KeyError(effect)
+
+    def to_list(self) -> list[dict]:
+        return [r.to_dict() for r in self.rows]
+
+
+@dataclass(frozen=True, kw_only=True)
+class AnovaResult:
+    """The classical two-way ANOVA of every SS type.
+
+    Attributes
+    ----------
+    tables : dict str -> AnovaTable
+        Keys 'I', 'II', 'III'.
+    interaction_terms : ndarray (J, K)
+        Cell mean minus the additive model's fitted cell mean (NaN in empty
+        cells).  In a balanced design these are ybar_jk - ybar_j. - ybar_.k +
+        ybar_.. ; in general sum n_jk * term_jk^2 = SS_AB.
+    additive_fit : ndarray (J, K)
+        Fitted cell means of the additive model (relative to the offset).
+    ss_error, df_error, ms_error : the full model's residual SS, df and MS
+        (ms_error None when df_error = 0).
+    df_interaction : int
+        (J-1)(K-1) with every cell filled; m - rank(additive) otherwise.
+    """
+
+    tables: dict
+    interaction_terms: np.ndarray
+    additive_fit: np.ndarray
+    ss_error: float
+    df_error: int
+    ms_error: float | None
+    df_interaction: int
+
+    def to_dict(self) -> dict:
+        return {t: self.tables[t].to_list() for t in ("I", "II", "III")}
+
+
+def contrast_matrix(L: int) -> np.ndarray:
+    """(L-1) x L deviation contrasts [I | -1] (full row rank)."""
+    return np.hstack([np.eye(L - 1), -np.ones((L - 1, 1))])
+
+
+def _design_columns(J: int, K: int, terms: tuple[str, ...]) -> np.ndarray:
+    """Cell-level design matrix (J*K rows, j-major) with sum-to-zero coding."""
+    cols = [np.ones((J * K, 1))]
+    ca = contrast_matrix(J).T  # J x (J-1)
+    cb = contrast_matrix(K).T
+    if "A" in terms:
+        cols.append(np.kron(ca, np.ones((K, 1))))
+    if "B" in terms:
+        cols.append(np.kron(np.ones((J, 1)), cb))
+    return np.hstack(cols)
+
+
+def _weighted_fit(cells: CellStats, terms: tuple[str, ...], centre: float) -> tuple[np.ndarray, float, int]:
+    """Weighted LS of cell means on a sub-model; returns (fit, Q, rank)."""
+    J, K = cells.J, cells.K
+    n = cells.counts.ravel().astype(float)
+    keep = n > 0
+    ybar = np.where(keep, cells.means.ravel() - centre, 0.0)
+    X = _design_columns(J, K, terms)
+    w = np.sqrt(n[keep])
+    Xw = X[keep] * w[:, None]
+    beta, _, rank, _ = np.linalg.lstsq(Xw, ybar[keep] * w, rcond=None)
+    fit = np.full(J * K, np.nan)
+    fit[keep] = X[keep] @ beta
+    # one refinement step on the residual (iterative refinement)
+    r = ybar[keep] - fit[keep]
+    dbeta = np.linalg.lstsq(Xw, r * w, rcond=None)[0]
+    fit[keep] += X[keep] @ dbeta
+    r = ybar[keep] - fit[keep]
+    Q = float(np.sum(n[keep] * r * r))
+    return fit.reshape(J, K) + centre, Q, int(rank)
+
+
+def additive_cell_fit(cells: CellStats) -> tuple[np.ndarray, float, int]:
+    """Fitted cell means of the additive model A + B, its between-cell residual SS
+    Q(A+B) = sum n_jk (ybar_jk - fit_jk)^2, and its rank (J + K - 1 when connected)."""
+    return _weighted_fit(cells, ("A", "B"), _grand_mean(cells))
+
+
+def _grand_mean(cells: CellStats) -> float:
+    n = cells.counts
+    return float(np.sum(np.where(n > 0, cells.means, 0.0) * n) / n.sum())
+
+
+def _q_one_way(cells: CellStats, axis: int | None) -> float:
+    """Q for mu only (axis None), mu + A (axis 1 averaged: rows) or mu + B."""
+    n = cells.counts.astype(float)
+    ybar = np.where(n > 0, cells.means, 0.0)
+    if axis is None:
+        mu = np.sum(n * ybar) / n.sum()
+        d = np.where(n > 0, ybar - mu, 0.0)
+        return float(np.sum(n * d * d))
+    tot = n.sum(axis=axis, keepdims=True)
+    mu = np.sum(n * ybar, axis=axis, keepdims=True) / tot
+    d = np.where(n > 0, ybar - mu, 0.0)
+    return float(np.sum(n * d * d))
+
+
+def _wald_ss(cells: CellStats, C: np.ndarray) -> float:
+    """(C ybar)' (C D C')^-1 (C ybar) with D = diag(1/n); all cells filled."""
+    ybar = cells.means.ravel() - _grand_mean(cells)
+    d = 1.0 / cells.counts.ravel()
+    Cy = C @ ybar
+    M = (C * d) @ C.T
+    return float(Cy @ np.linalg.solve(M, Cy))
+
+
+def type3_contrasts(J: int, K: int) -> dict[str, np.ndarray]:
+    """C_A, C_B, C_AB of METHODS.md section 1 (cells j-major)."""
+    CJ, CK = contrast_matrix(J), contrast_matrix(K)
+    return {
+        "A": np.kron(CJ, np.ones((1, K)) / K),
+        "B": np.kron(np.ones((1, J)) / J, CK),
+        "AB": np.kron(CJ, CK),
+    }
+
+
+def partial_eta_sq_ci(F: float, df1: int, df2: int, *, level: float = 0.95) -> tuple[float, float]:
+    """Confidence interval for partial eta^2 by inverting the noncentral F.
+
+    Finds lambda_lo, lambda_hi with P(F' <= F_obs; lambda) = (1 + level)/2 and
+    (1 - level)/2, then eta^2 = lambda / (lambda + df1 + df2 + 1) [3].
+    """
+    hi_q = (1 + level) / 2
+    lo_q = (1 - level) / 2
+
+    def cdf(lam: float) -> float:
+        return float(stats.ncf.cdf(F, df1, df2, lam)) if lam > 0 else float(stats.f.cdf(F, df1, df2))
+
+    def solve(q: float) -> float:
+        if cdf(0.0) <= q:
+            return 0.0
+        upper = max(10.0, 2.0 * F * df1)
+        while cdf(upper) > q:
+            upper *= 2.0
+            if upper > 1e9:
+                return float("inf")
+        return float(optimize.brentq(lambda lam: cdf(lam) - q, 0.0, upper, xtol=1e-10, rtol=1e-12))
+
+    lam_lo, lam_hi = solve(hi_q), solve(lo_q)
+    conv = lambda lam: lam / (lam + df1 + df2 + 1) if np.isfinite(lam) else 1.0  # noqa: E731
+    return (conv(lam_lo), conv(lam_hi))
+
+
+def _row(effect, label, ss, df, ms_error, df_error, N, note=None) -> AnovaRow:
+    if ss is None or df <= 0:
+        return AnovaRow(effect=effect, label=label, ss=ss if df > 0 else None, df=df, ms=None, F=None, p=None,
+                        partial_eta_sq=None, partial_eta_sq_ci=None, partial_omega_sq=None,
+                        note=note or "no degrees of freedom left for this effect in the filled cells")
+    ss = max(float(ss), 0.0)
+    ms = ss / df
+    if ms_error is None:
+        return AnovaRow(effect=effect, label=label, ss=ss, df=df, ms=ms, F=None, p=None,
+                        partial_eta_sq=None, partial_eta_sq_ci=None, partial_omega_sq=None,
+                        note=note or "no within-cell error term (one observation per cell): F and p cannot be formed")
+    sse = ms_error * df_error
+    if ms_error > 0:
+        F = ms / ms_error
+        p = float(stats.f.sf(F, df, df_error))
+    else:  # perfect fit within cells: any between-cell difference is infinitely significant
+        F = float("inf") if ss > 0 else 0.0
+        p = 0.0 if ss > 0 else 1.0
+    eta = ss / (ss + sse) if ss + sse > 0 else 0.0
+    omega = (ss - df * ms_error) / (ss + (N - df) * ms_error)
+    ci = partial_eta_sq_ci(F, df, df_error) if np.isfinite(F) else (1.0, 1.0)
+    return AnovaRow(effect=effect, label=label, ss=ss, df=df, ms=ms, F=float(F), p=p,
+                    partial_eta_sq=float(eta), partial_eta_sq_ci=ci, partial_omega_sq=float(omega), note=note)
+
+
+def anova_two_way(cells: CellStats) -> AnovaResult:
+    """Classical two-way ANOVA with interaction, SS Types I, II and III.
+
+    Parameters
+    ----------
+    cells : CellStats
+        Cell counts, means and centred sums of squares.
+
+    Returns
+    -------
+    AnovaResult
+
+    Notes
+    -----
+    Type I enters A, then B, then AB.  Type II tests each main effect after the
+    other, and AB after both.  Type III uses sum-to-zero hypotheses on
+    unweighted marginal means (Wald form on cell means).  With every cell filled
+    SS_AB is identical under all three.  With empty cells the interaction has
+    m - rank(A+B) df and Type III main effects are reported as not estimable
+    in the usual sense [1].
+    """
+    J, K, N = cells.J, cells.K, cells.N
+    a_name, b_name = cells.factors
+    labels = {"A": a_name, "B": b_name, "AB": f"{a_name}:{b_name}"}
+    df_e = cells.df_within
+    sse = cells.sse_within
+    ms_e = sse / df_e if df_e > 0 else None
+    centre = _grand_mean(cells)
+
+    q_mu = _q_one_way(cells, None)
+    q_a = _q_one_way(cells, 1)
+    q_b = _q_one_way(cells, 0)
+    add_fit, q_ab_model, rank_add = _weighted_fit(cells, ("A", "B"), centre)
+    rank_a = J  # every level observed (validated at intake)
+    rank_b = K
+    df_ab = cells.m - rank_add
+    ss_ab = q_ab_model
+
+    tables = {}
+    # Type I: A, B | A, AB | A, B
+    tables["I"] = AnovaTable(ss_type="I", rows=(
+        _row("A", labels["A"], q_mu - q_a, rank_a - 1, ms_e, df_e, N),
+        _row("B", labels["B"], q_a - q_ab_model, rank_add - rank_a, ms_e, df_e, N),
+        _row("AB", labels["AB"], ss_ab, df_ab, ms_e, df_e, N),
+        _residual(sse, df_e, ms_e),
+    ))
+    tables["II"] = AnovaTable(ss_type="II", rows=(
+        _row("A", labels["A"], q_b - q_ab_model, rank_add - rank_b, ms_e, df_e, N),
+        _row("B", labels["B"], q_a - q_ab_model, rank_add - rank_a, ms_e, df_e, N),
+        _row("AB", labels["AB"], ss_ab, df_ab, ms_e, df_e, N),
+        _residual(sse, df_e, ms_e),
+    ))
+    if cells.m == J * K:
+        C = type3_contrasts(J, K)
+        rows3 = [
+            _row(e, labels[e], _wald_ss(cells, C[e]), C[e].shape[0], ms_e, df_e, N) for e in ("A", "B")
+        ]
+    else:
+        reason = ("not estimable in the usual sense: with empty cells the unweighted marginal means "
+                  "that Type III compares are undefined (see Types I and II)")
+        rows3 = [_row(e, labels[e], None, 0, ms_e, df_e, N, note=reason) for e in ("A", "B")]
+        rows3 = [AnovaRow(**{**r.__dict__, "df": df}) for r, df in zip(rows3, (J - 1, K - 1))]
+    ab_note = None
+    if cells.m < J * K:
+        ab_note = (f"empty cells: interaction tested on {df_ab} df (m - J - K + 1), "
+                   "the same under every SS type")
+    rows3.append(_row("AB", labels["AB"], ss_ab, df_ab, ms_e, df_e, N, note=ab_note))
+    rows3.append(_residual(sse, df_e, ms_e))
+    tables["III"] = AnovaTable(ss_type="III", rows=tuple(rows3))
+    if ab_note:
+        for t in ("I", "II"):
+            rows = list(tables[t].rows)
+            rows[2] = AnovaRow(**{**rows[2].__dict__, "note": ab_note})
+            tables[t] = AnovaTable(ss_type=t, rows=tuple(rows))
+
+    terms = np.where(cells.filled, cells.means - add_fit, np.nan)
+    return AnovaResult(
+        tables=tables,
+        interaction_terms=terms,
+        additive_fit=add_fit,
+        ss_error=sse,
+        df_error=df_e,
+        ms_error=ms_e,
+        df_interaction=df_ab,
+    )
+
+
+def _residual(sse: float, df_e: int, ms_e: float | None) -> AnovaRow:
+    return AnovaRow(effect="residual", label="Residual", ss=sse, df=df_e, ms=ms_e, F=None, p=None,
+                    partial_eta_sq=None, partial_eta_sq_ci=None, partial_omega_sq=None,
+                    note=None if df_e > 0 else "no within-cell replication")

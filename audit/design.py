@@ -1,0 +1,372 @@
+"""Stage 2 of the flow: the two-way design as cell sufficient statistics.
+
+Everything downstream of intake works from :class:`CellStats` (cell counts,
+means and centred sums of squares) wherever it can, so that a table of cell
+means, SDs and sizes (summary mode) and a raw dataset (data mode) share one
+engine.  :func:`describe_design` turns the cells into the plain description a
+reviewer reads first: levels, cell counts, empty cells, balance.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .errors import AuditInputError, ColumnError, FactorError, ResponseError
+
+__all__ = [
+    "CellStats",
+    "DesignSummary",
+    "cells_from_observations",
+    "cells_from_summary",
+    "describe_design",
+    "balance_class",
+]
+
+
+def _frozen(a: np.ndarray) -> np.ndarray:
+    a = np.array(a, copy=True)
+    a.setflags(write=False)
+    return a
+
+
+@dataclass(frozen=True, kw_only=True)
+class CellStats:
+    """Sufficient statistics of a two-way layout, one entry per cell.
+
+    Attributes
+    ----------
+    factors : tuple of str
+        Names of factor A and factor B (the real column names).
+    levels_a, levels_b : tuple of str
+        Level names, in the order used for every (J, K) array.
+    counts : ndarray of int, shape (J, K)
+        Observations per cell (0 for an empty cell).
+    means : ndarray of float, shape (J, K)
+        Cell means *relative to* ``offset``; NaN in empty cells.
+    css : ndarray of float, shape (J, K)
+        Centred sums of squares, sum (y - cell mean)^2; 0 in cells with n <= 1.
+    offset : float
+        Constant subtracted from the response at intake (exact decimal
+        centring); add it back to ``means`` for display.  Sums of squares do not
+        depend on it.
+    response : str
+        Name of the response.
+    """
+
+    factors: tuple[str, str]
+    levels_a: tuple[str, ...]
+    levels_b: tuple[str, ...]
+    counts: np.ndarray
+    means: np.ndarray
+    css: np.ndarray
+    offset: float = 0.0
+    response: str = "y"
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "counts", _frozen(np.asarray(self.counts, dtype=np.int64)))
+        object.__setattr__(self, "means", _frozen(np.asarray(self.means, dtype=float)))
+        object.__setattr__(self, "css", _frozen(np.asarray(self.css, dtype=float)))
+
+    @property
+    def J(self) -> int:
+        return len(self.levels_a)
+
+    @property
+    def K(self) -> int:
+        return len(self.levels_b)
+
+    @property
+    def N(self) -> int:
+        return int(self.counts.sum())
+
+    @property
+    def filled(self) -> np.ndarray:
+        """Boolean (J, K) mask of non-empty cells."""
+        return self.counts > 0
+
+    @property
+    def m(self) -> int:
+        """Number of non-empty cells."""
+        return int(self.filled.sum())
+
+    @property
+    def variances(self) -> np.ndarray:
+        """Cell variances (ddof 1); NaN where n <= 1."""
+        with np.errstate(invalid="ignore", divide="ignore"):
+            v = self.css / (self.counts - 1)
+        return np.where(self.counts > 1, v, np.nan)
+
+    @property
+    def sse_within(self) -> float:
+        """Residual SS of the full (cell-means) model."""
+        return float(self.css.sum())
+
+    @property
+    def df_within(self) -> int:
+        return self.N - self.m
+
+    @property
+    def display_means(self) -> np.ndarray:
+        """Cell means on the original scale (offset added back)."""
+        return self.means + self.offset
+
+    def cell_label(self, j: int, k: int) -> str:
+        return f"{self.levels_a[j]} x {self.levels_b[k]}"
+
+
+def cells_from_observations(
+    y: np.ndarray,
+    a: np.ndarray,
+    b: np.ndarray,
+    *,
+    levels_a: tuple[str, ...],
+    levels_b: tuple[str, ...],
+    factors: tuple[str, str],
+    offset: float = 0.0,
+    response: str = "y",
+) -> CellStats:
+    """Cell counts, means and centred SS by ``bincount`` (two passes)."""
+    J, K = len(levels_a), len(levels_b)
+    cell = np.asarray(a, dtype=np.int64) * K + np.asarray(b, dtype=np.int64)
+    y = np.asarray(y, dtype=float)
+    n = np.bincount(cell, minlength=J * K)
+    s = np.bincount(cell, weights=y, minlength=J * K)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.where(n > 0, s / np.maximum(n, 1), np.nan)
+    # second pass: accumulate around the cell means, then correct the mean
+    d = y - mean[cell]
+    corr = np.bincount(cell, weights=d, minlength=J * K)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.where(n > 0, mean + corr / np.maximum(n, 1), np.nan)
+    d = y - mean[cell]
+    css = np.bincount(cell, weights=d * d, minlength=J * K)
+    return CellStats(
+        factors=factors,
+        levels_a=tuple(levels_a),
+        levels_b=tuple(levels_b),
+        counts=n.reshape(J, K),
+        means=mean.reshape(J, K),
+        css=css.reshape(J, K),
+        offset=offset,
+        response=response,
+    )
+
+
+def cells_from_summary(
+    table,
+    *,
+    factors: tuple[str, str],
+    mean: str = "mean",
+    sd: str = "sd",
+    n: str = "n",
+    response: str = "y",
+) -> CellStats:
+    """Cell statistics from a table with one row per cell (means, SDs, sizes).
+
+    ``table`` is a pandas DataFrame with the two factor columns and the
+    ``mean``, ``sd`` and ``n`` columns.  Cells absent from the table are empty.
+    """
+    import pandas as pd
+
+    if not isinstance(table, pd.DataFrame):
+        raise AuditInputError(
+            f"summary table: expected a pandas DataFrame, found {type(table).__name__}; "
+            "pass one row per cell with factor, mean, sd and n columns"
+        )
+    needed = [*factors, mean, sd, n]
+    missing = [c for c in needed if c not in table.columns]
+    if missing:
+        raise ColumnError(
+            f"summary table: column {missing[0]!r} not found; expected columns {needed}, "
+            f"found {list(map(str, table.columns))}; name the columns with factors=, mean=, sd=, n="
+        )
+    a_codes, a_levels = pd.factorize(table[factors[0]].astype(str), sort=False)
+    b_codes, b_levels = pd.factorize(table[factors[1]].astype(str), sort=False)
+    J, K = len(a_levels), len(b_levels)
+    for name, L in ((factors[0], J), (factors[1], K)):
+        if L < 2:
+            raise FactorError(
+                f"summary table: factor {name!r} needs at least 2 levels, found {L}; "
+                "a two-way audit needs two crossed factors"
+            )
+    counts = np.zeros((J, K), dtype=np.int64)
+    means = np.full((J, K), np.nan)
+    css = np.zeros((J, K))
+    seen = np.zeros((J, K), dtype=bool)
+    for i, (ja, kb) in enumerate(zip(a_codes, b_codes)):
+        row = table.iloc[i]
+        try:
+            nn = float(row[n])
+            mm = float(row[mean])
+            ss = float(row[sd])
+        except (TypeError, ValueError):
+            raise ResponseError(
+                f"summary table row {i + 1}: expected numeric {mean!r}, {sd!r}, {n!r}, "
+                f"found {row[mean]!r}, {row[sd]!r}, {row[n]!r}; fix or remove the row"
+            ) from None
+        if seen[ja, kb]:
+            raise AuditInputError(
+                f"summary table row {i + 1}: cell {a_levels[ja]} x {b_levels[kb]} appears twice; "
+                "give each cell once"
+            )
+        if not (np.isfinite(nn) and nn >= 1 and float(nn).is_integer()):
+            raise ResponseError(
+                f"summary table row {i + 1}: column {n!r} must be a whole number >= 1, found {row[n]!r}"
+            )
+        if not np.isfinite(mm) or not np.isfinite(ss) or ss < 0:
+            raise ResponseError(
+                f"summary table row {i + 1}: expected a finite mean and an SD >= 0, "
+                f"found mean {row[mean]!r}, sd {row[sd]!r}"
+            )
+        seen[ja, kb] = True
+        counts[ja, kb] = int(nn)
+        means[ja, kb] = mm
+        css[ja, kb] = (nn - 1) * ss * ss if nn > 1 else 0.0
+    return CellStats(
+        factors=tuple(factors),
+        levels_a=tuple(map(str, a_levels)),
+        levels_b=tuple(map(str, b_levels)),
+        counts=counts,
+        means=means,
+        css=css,
+        response=response,
+    )
+
+
+def balance_class(counts: np.ndarray) -> str:
+    """'balanced', 'proportional' or 'unbalanced' (empty cells: unbalanced).
+
+    Proportional means n_jk = n_j. n_.k / N for every cell (common practice).
+    """
+    counts = np.asarray(counts)
+    if (counts == 0).any():
+        return "unbalanced"
+    if (counts == counts.flat[0]).all():
+        return "balanced"
+    N = counts.sum()
+    expected = np.outer(counts.sum(1), counts.sum(0)) / N
+    if np.allclose(counts, expected, rtol=1e-12, atol=0):
+        return "proportional"
+    return "unbalanced"
+
+
+def is_connected(filled: np.ndarray) -> bool:
+    """Whether the filled cells connect every level of A and B (bipartite graph)."""
+    J, K = filled.shape
+    seen_a = np.zeros(J, bool)
+    seen_b = np.zeros(K, bool)
+    seen_a[0] = True
+    changed = True
+    while changed:
+        nb = filled[seen_a].any(axis=0) | seen_b
+        na = filled[:, nb].any(axis=1) | seen_a
+        changed = bool((nb != seen_b).any() or (na != seen_a).any())
+        seen_a, seen_b = na, nb
+    return bool(seen_a.all() and seen_b.all())
+
+
+@dataclass(frozen=True, kw_only=True)
+class DesignSummary:
+    """Plain description of the design (the ``design`` block of the findings).
+
+    Attributes
+    ----------
+    n : int
+        Observations used.
+    factors, levels : the factor names and their levels.
+    cell_counts : list of list of int, shape (J, K).
+    empty_cells, single_cells, small_cells : list of [level_a, level_b]
+        Cells with n = 0, n = 1 and 1 <= n < 5.
+    balance : str
+        'balanced' | 'proportional' | 'unbalanced'.
+    size_ratio : float or None
+        Largest over smallest non-empty cell size.
+    connected : bool
+        Whether the filled cells link all levels (else main effects are not
+        comparable across the disconnected parts).
+    dropped_rows : dict
+        Rows dropped at intake (see :class:`audit.intake.DroppedRows`).
+    centring : str or None
+        Statement of the exact decimal centring done at intake, if any.
+    notes : list of str
+        Plain statements about what is and is not estimable.
+    """
+
+    n: int
+    factors: tuple[str, str]
+    levels: dict
+    cell_counts: list
+    empty_cells: list
+    single_cells: list
+    small_cells: list
+    balance: str
+    size_ratio: float | None
+    connected: bool
+    dropped_rows: dict
+    centring: str | None = None
+    notes: tuple[str, ...] = field(default_factory=tuple)
+
+    def to_dict(self) -> dict:
+        return {
+            "n": self.n,
+            "factors": list(self.factors),
+            "levels": {k: list(v) for k, v in self.levels.items()},
+            "cell_counts": self.cell_counts,
+            "empty_cells": self.empty_cells,
+            "single_cells": self.single_cells,
+            "small_cells": self.small_cells,
+            "balance": self.balance,
+            "size_ratio": self.size_ratio,
+            "connected": self.connected,
+            "dropped_rows": self.dropped_rows,
+            "centring": self.centring,
+            "notes": list(self.notes),
+        }
+
+
+def describe_design(cells: CellStats, *, dropped: dict | None = None, centring: str | None = None) -> DesignSummary:
+    """Describe the layout: counts, empty and small cells, balance, connectedness."""
+    c = cells.counts
+    la, lb = cells.levels_a, cells.levels_b
+    pairs = lambda mask: [[la[j], lb[k]] for j, k in zip(*np.nonzero(mask))]  # noqa: E731
+    nz = c[c > 0]
+    connected = is_connected(c > 0)
+    notes: list[str] = []
+    empty = pairs(c == 0)
+    if empty:
+        df_ab = cells.m - cells.J - cells.K + 1
+        notes.append(
+            f"{len(empty)} empty cell(s): the interaction is tested on {max(df_ab, 0)} df "
+            f"(m - J - K + 1 = {cells.m} - {cells.J} - {cells.K} + 1) instead of "
+            f"{(cells.J - 1) * (cells.K - 1)}; it covers only the contrasts the filled cells "
+            "identify. Type III main-effect hypotheses on unweighted marginal means are not "
+            "estimable (a marginal mean needs every cell of its row or column); Types I and II "
+            "test main effects on the observed cells."
+        )
+    if not connected:
+        notes.append(
+            "The filled cells do not connect every level of both factors: main effects cannot be "
+            "compared across the disconnected parts of the design."
+        )
+    if cells.df_within == 0:
+        notes.append(
+            "One observation per cell: there is no within-cell error term, so the classical F "
+            "tests cannot be formed; Tukey's one-degree-of-freedom test for non-additivity applies."
+        )
+    return DesignSummary(
+        n=cells.N,
+        factors=cells.factors,
+        levels={cells.factors[0]: la, cells.factors[1]: lb},
+        cell_counts=c.tolist(),
+        empty_cells=empty,
+        single_cells=pairs(c == 1),
+        small_cells=pairs((c >= 1) & (c < 5)),
+        balance=balance_class(c),
+        size_ratio=float(nz.max() / nz.min()) if nz.size else None,
+        connected=connected,
+        dropped_rows=dropped if dropped is not None else {"total": 0},
+        centring=centring,
+        notes=tuple(notes),
+    )
