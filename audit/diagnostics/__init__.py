@@ -1,0 +1,1 @@
+"""Stage 4a of the flow: assumption and design diagnostics (graded findings)."""
