@@ -258,7 +258,7 @@ def _as_level_text(col) -> "np.ndarray":
 def _missing_mask(col) -> np.ndarray:
     import pandas as pd
 
-    m = pd.isna(col).to_numpy(dtype=bool)
+    m = pd.isna(col).to_numpy(dtype=bool, copy=True)
     if col.dtype == object or pd.api.types.is_string_dtype(col):
         s = col.astype(str).str.strip()
         m |= (s == "").to_numpy(dtype=bool) & ~m
