@@ -1,0 +1,146 @@
+"""The findings type: everything an audit found, in one frozen object.
+
+``Findings.to_dict()`` gives the stable JSON structure (keys ``design``,
+``cells``, ``anova``, ``interaction_terms``, ``diagnostics``, ``methods``,
+``fragility``, ``cautions``, ``provenance``); later stages (verdict, review
+mode) add keys, never rename them.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .core import AnovaResult
+from .design import CellStats, DesignSummary
+from .results import Diagnostic, MethodResult
+
+__all__ = ["Findings", "CAUTIONS", "to_jsonable"]
+
+#: shown with every report (an automated audit can mislead if read alone)
+CAUTIONS = (
+    "An automated audit supports a statistician's judgement; it does not replace it.",
+    "Independence of observations cannot be checked from the data: it rests on how the "
+    "experiment was run (randomisation, one measurement per experimental unit).",
+    "Clinical and regulatory analyses follow their own guidelines (for example ICH E9) and "
+    "pre-specified analysis plans, whatever this audit says.",
+)
+
+
+def to_jsonable(x):
+    """Convert numpy scalars/arrays and tuples to plain JSON types; NaN -> None."""
+    if isinstance(x, dict):
+        return {str(k): to_jsonable(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [to_jsonable(v) for v in x]
+    if isinstance(x, np.ndarray):
+        return to_jsonable(x.tolist())
+    if isinstance(x, (np.bool_, bool)):
+        return bool(x)
+    if isinstance(x, (np.integer,)):
+        return int(x)
+    if isinstance(x, (np.floating, float)):
+        v = float(x)
+        return v if math.isfinite(v) else (None if math.isnan(v) else ("inf" if v > 0 else "-inf"))
+    return x
+
+
+@dataclass(frozen=True, kw_only=True)
+class Findings:
+    """Result of :func:`audit.check` / :func:`audit.check_summary`.
+
+    Attributes
+    ----------
+    mode : str
+        'data' (raw observations) or 'summary' (cell table only).
+    alpha : float
+    response : str
+    factors : tuple of str
+    design : DesignSummary
+    cells : CellStats
+    anova : AnovaResult
+    diagnostics : tuple of Diagnostic
+    methods : tuple of MethodResult
+    fragility : dict or None
+        {'deletions_to_flip', 'rows'} in data mode.
+    cautions : tuple of str
+    provenance : dict
+    """
+
+    mode: str
+    alpha: float
+    response: str
+    factors: tuple[str, str]
+    design: DesignSummary
+    cells: CellStats
+    anova: AnovaResult
+    diagnostics: tuple[Diagnostic, ...] = ()
+    methods: tuple[MethodResult, ...] = ()
+    fragility: dict | None = None
+    cautions: tuple[str, ...] = CAUTIONS
+    provenance: dict = field(default_factory=dict)
+
+    def diagnostic(self, id: str) -> Diagnostic:
+        for d in self.diagnostics:
+            if d.id == id:
+                return d
+        raise KeyError(id)
+
+    def method(self, id: str, effect: str = "AB") -> MethodResult:
+        for m in self.methods:
+            if m.id == id and m.effect == effect:
+                return m
+        raise KeyError((id, effect))
+
+    def cell_table(self) -> list[dict]:
+        c = self.cells
+        sd = np.sqrt(c.variances)
+        out = []
+        for j, la in enumerate(c.levels_a):
+            for k, lb in enumerate(c.levels_b):
+                n = int(c.counts[j, k])
+                out.append({
+                    "a": la, "b": lb, "n": n,
+                    "mean": float(c.display_means[j, k]) if n else None,
+                    "sd": float(sd[j, k]) if n > 1 else None,
+                })
+        return out
+
+    def interaction_table(self) -> list[dict]:
+        c, an = self.cells, self.anova
+        out = []
+        for j, la in enumerate(c.levels_a):
+            for k, lb in enumerate(c.levels_b):
+                if c.counts[j, k] == 0:
+                    continue
+                out.append({
+                    "a": la, "b": lb,
+                    "mean": float(c.display_means[j, k]),
+                    "additive_fit": float(an.additive_fit[j, k] + c.offset),
+                    "term": float(an.interaction_terms[j, k]),
+                })
+        return out
+
+    def to_dict(self) -> dict:
+        d = {
+            "mode": self.mode,
+            "alpha": self.alpha,
+            "response": self.response,
+            "factors": list(self.factors),
+            "design": self.design.to_dict(),
+            "cells": self.cell_table(),
+            "anova": self.anova.to_dict(),
+            "interaction_terms": self.interaction_table(),
+            "diagnostics": [x.to_dict() for x in self.diagnostics],
+            "methods": [x.to_dict() for x in self.methods],
+            "fragility": self.fragility,
+            "cautions": list(self.cautions),
+            "provenance": self.provenance,
+        }
+        return to_jsonable(d)
+
+    def to_json(self, *, indent: int | None = 2) -> str:
+        return json.dumps(self.to_dict(), indent=indent, allow_nan=False, ensure_ascii=False)

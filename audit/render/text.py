@@ -1,0 +1,147 @@
+"""Plain-text rendering of a :class:`~audit.findings.Findings` for the terminal.
+
+Formats only what the findings already hold; never computes a statistic.
+Severity is always printed as a word (colour, if ever added, only doubles it).
+"""
+
+from __future__ import annotations
+
+import math
+
+from ..findings import Findings
+
+__all__ = ["render_text"]
+
+RULE = "-" * 78
+
+
+def _num(x, digits: int = 4) -> str:
+    if x is None:
+        return "-"
+    if isinstance(x, str):
+        return x
+    if isinstance(x, float) and math.isinf(x):
+        return "inf"
+    if x == 0:
+        return "0"
+    ax = abs(x)
+    if ax >= 1e6 or ax < 1e-3:
+        return f"{x:.{digits - 1}e}"
+    return f"{x:.{digits}g}" if ax >= 1 else f"{x:.{digits}f}".rstrip("0").rstrip(".")
+
+
+def _p(p) -> str:
+    if p is None:
+        return "-"
+    if p < 0.0001:
+        return "<.0001"
+    return f"{p:.4f}"
+
+
+def _table(header: list[str], rows: list[list[str]], align: str | None = None) -> list[str]:
+    widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(header)]
+    align = align or "l" + "r" * (len(header) - 1)
+    fmt = lambda cells: "  ".join(  # noqa: E731
+        c.ljust(w) if a == "l" else c.rjust(w) for c, w, a in zip(cells, widths, align)
+    )
+    return [fmt(header), fmt(["-" * w for w in widths])] + [fmt(r) for r in rows]
+
+
+def _design_lines(f: Findings) -> list[str]:
+    d = f.design
+    a, b = f.factors
+    la, lb = d.levels[a], d.levels[b]
+    out = ["DESIGN", RULE]
+    out.append(f"Response: {f.response}    N used: {d.n}")
+    out.append(f"Factor A: {a} ({len(la)} levels: {', '.join(la)})")
+    out.append(f"Factor B: {b} ({len(lb)} levels: {', '.join(lb)})")
+    ratio = f", largest/smallest cell = {d.size_ratio:.3g}" if d.size_ratio else ""
+    out.append(f"Balance: {d.balance}{ratio}; empty cells: {len(d.empty_cells) or 'none'}; "
+               f"cells with n = 1: {len(d.single_cells) or 'none'}")
+    dr = d.dropped_rows
+    if dr.get("total"):
+        parts = [f"{c['a']} x {c['b']}: {c['n']}" for c in dr.get("missing_response_by_cell", [])]
+        extra = []
+        if dr.get("missing_factor"):
+            extra.append(f"{dr['missing_factor']} with a missing factor value")
+        if dr.get("missing_other"):
+            extra.append(f"{dr['missing_other']} missing an order/unit value")
+        out.append(f"Rows dropped: {dr['total']} (missing response by cell: {'; '.join(parts) or 'none'}"
+                   + (f"; {'; '.join(extra)}" if extra else "") + ")")
+    else:
+        out.append("Rows dropped: none" + (f" ({dr['note']})" if dr.get("note") else ""))
+    if d.centring:
+        out.append(f"Centring: {d.centring}")
+    out.append("")
+    out.append("Cell counts and means (SD):")
+    header = [f"{a} \\ {b}", *lb]
+    rows = []
+    cells = {(c["a"], c["b"]): c for c in f.cell_table()}
+    for x in la:
+        row = [x]
+        for y in lb:
+            c = cells[(x, y)]
+            if c["n"] == 0:
+                row.append("empty")
+            else:
+                sd = f" ({_num(c['sd'], 3)})" if c["sd"] is not None else ""
+                row.append(f"n={c['n']}: {_num(c['mean'])}{sd}")
+        rows.append(row)
+    out += _table(header, rows, "l" + "r" * len(lb))
+    for note in d.notes:
+        out.append(f"Note: {note}")
+    return out
+
+
+def _anova_lines(f: Findings) -> list[str]:
+    out = ["CLASSICAL TWO-WAY ANOVA", RULE]
+    names = {"I": "Type I (sequential: A, then B, then AB)",
+             "II": "Type II (each main effect adjusted for the other)",
+             "III": "Type III (sum-to-zero contrasts, unweighted marginal means)"}
+    tables = f.anova.tables
+    for t in ("I", "II", "III"):
+        out.append(names[t])
+        rows = []
+        notes = []
+        for r in tables[t].rows:
+            ci = r.partial_eta_sq_ci
+            eta = "-" if r.partial_eta_sq is None else (
+                f"{r.partial_eta_sq:.3f} [{ci[0]:.3f}, {ci[1]:.3f}]" if ci else f"{r.partial_eta_sq:.3f}")
+            rows.append([r.label, _num(r.ss), str(r.df), _num(r.ms), _num(r.F), _p(r.p), eta,
+                         _num(r.partial_omega_sq, 3) if r.partial_omega_sq is not None else "-"])
+            if r.note and r.effect != "residual":
+                notes.append(f"  {r.label}: {r.note}")
+        out += _table(["Effect", "SS", "df", "MS", "F", "p", "partial eta2 [95% CI]", "partial omega2"], rows)
+        out += notes
+        out.append("")
+    if f.cells.m == f.cells.J * f.cells.K:
+        out.append("With every cell filled the interaction (AB) line is identical under Types I, II and III;"
+                   " the SS type matters only for the main effects in unbalanced designs.")
+    out.append("")
+    out.append("Interaction terms (cell mean minus the additive model's prediction):")
+    a, b = f.factors
+    lb = f.design.levels[b]
+    terms = {(x["a"], x["b"]): x["term"] for x in f.interaction_table()}
+    rows = [[x, *[_num(terms.get((x, y))) if (x, y) in terms else "empty" for y in lb]]
+            for x in f.design.levels[a]]
+    out += _table([f"{a} \\ {b}", *lb], rows)
+    return out
+
+
+def render_text(f: Findings) -> str:
+    """The terminal report: design, ANOVA tables, then the standing cautions."""
+    src = f.provenance.get("input") or ("summary table" if f.mode == "summary" else "data frame")
+    lines = [
+        f"twoway-audit {f.provenance.get('version', '')}: {f.response} by {f.factors[0]} x {f.factors[1]}"
+        f" (alpha = {f.alpha:g})",
+        f"Data: {src}" + (f"  [sha256 {f.provenance['input_sha256'][:12]}]" if f.provenance.get("input_sha256") else ""),
+        "",
+    ]
+    lines += _design_lines(f)
+    lines.append("")
+    lines += _anova_lines(f)
+    lines.append("")
+    lines.append("CAUTIONS")
+    lines.append(RULE)
+    lines += [f"- {c}" for c in f.cautions]
+    return "\n".join(lines) + "\n"
