@@ -1,0 +1,289 @@
+"""Welch-type tests of the two-way effects on cell means (Johansen 1980).
+
+For a hypothesis C mu = 0 on the cell means (C of rank r, cells j-major):
+
+    S = diag(s2_jk / n_jk),  T = (C ybar)' (C S C')^-1 (C ybar),
+    A = sum_jk R_jk,jk^2 / f_jk  with R = S C' (C S C')^-1 C, f_jk = n_jk - 1,
+    c = r + 2A - 6A / (r + 2),   T / c ~ F(r, r (r + 2) / (3A)).
+
+With one factor this is Welch's (1951) heteroscedastic one-way ANOVA; for a
+2 x 2 interaction it is the Welch-Satterthwaite t^2 of the interaction
+contrast; T is the HC2 Wald chi-square of C mu = 0 in the saturated
+cell-means regression.  The trimmed version (Wilcox; Keselman, Wilcox & Lix
+2003) replaces means by gamma-trimmed means, s2/n by
+d_jk = (n_jk - 1) s2_w,jk / (h_jk (h_jk - 1)) (s2_w the Winsorized variance,
+h_jk = n_jk - 2 floor(gamma n_jk)) and f_jk by h_jk - 1.
+
+Everything here works from cell statistics, so the untrimmed test also runs in
+summary mode (cell means, SDs and sizes only).  :func:`welch_james_cells`
+accepts a leading batch axis for the resampling engine.
+
+References
+----------
+.. [1] Johansen, S. (1980). The Welch-James approximation to the distribution
+       of the residual sum of squares in a weighted linear regression.
+       Biometrika 67, 85-92.
+.. [2] Welch, B. L. (1951). On the comparison of several mean values: an
+       alternative approach. Biometrika 38, 330-336.
+.. [3] Keselman, H. J., Wilcox, R. R. & Lix, L. M. (2003). A generally robust
+       approach to hypothesis testing in independent and correlated groups
+       designs. Psychophysiology 40, 586-596.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import stats
+
+from ..core import type3_contrasts
+from ..errors import OptionError
+from ..fit import Fit
+from ..results import MethodResult
+from .wald import wald_quadratic, welch_james_a
+
+__all__ = [
+    "EFFECTS",
+    "welch_james_cells",
+    "trimmed_cell_stats",
+    "welch_james",
+    "welch_james_trimmed",
+    "welch_james_all",
+    "welch_james_trimmed_all",
+    "effect_contrast",
+]
+
+EFFECTS = ("A", "B", "AB")
+
+
+def check_effect(effect: str) -> str:
+    """Validate an effect name ('A', 'B' or 'AB')."""
+    if effect not in EFFECTS:
+        raise OptionError(f"effect: expected one of {EFFECTS}, found {effect!r}; use 'AB' for the interaction")
+    return effect
+
+
+def effect_contrast(cells, effect: str) -> np.ndarray:
+    """C_A, C_B or C_AB on the J*K cells (j-major), sum-to-zero hypotheses on
+    unweighted marginal means (METHODS.md section 1)."""
+    return type3_contrasts(cells.J, cells.K)[check_effect(effect)]
+
+
+def welch_james_cells(means, variances, counts, C, *, dfs=None):
+    """Johansen's Welch-James test of C mu = 0 from cell statistics.
+
+    Parameters
+    ----------
+    means : ndarray, shape (..., m)
+        Cell means (a leading batch axis is allowed, e.g. one row per resample).
+    variances : ndarray, shape (..., m)
+        The squared standard errors' numerators: cell variances s2_jk (ddof 1),
+        so that S = diag(variances / counts).  For the trimmed test pass
+        ``variances = d_jk * counts`` (see :func:`trimmed_cell_stats`).
+    counts : ndarray, shape (m,) or (..., m)
+        Cell sizes n_jk.
+    C : ndarray, shape (r, m)
+        Full-row-rank hypothesis matrix.
+    dfs : ndarray, optional
+        Per-cell degrees of freedom f_jk used in A; default ``counts - 1``
+        (``h_jk - 1`` for trimmed means).
+
+    Returns
+    -------
+    T, A, c, df2 : ndarray, shape (...)
+        The Wald statistic, Johansen's A, the scale c = r + 2A - 6A/(r+2) and the
+        denominator df r(r+2)/(3A).  The test statistic T/c is referred to
+        F(r, df2).
+
+    Notes
+    -----
+    No validation is done here (the function sits inside resampling loops):
+    the callers make sure every cell has f_jk >= 1 and S C' is of full rank.
+    """
+    C = np.asarray(C, dtype=float)
+    counts = np.asarray(counts, dtype=float)
+    v = np.asarray(variances, dtype=float) / counts
+    f = counts - 1.0 if dfs is None else np.asarray(dfs, dtype=float)
+    r = C.shape[0]
+    T = wald_quadratic(means, v, C)
+    A = welch_james_a(v, f, C)
+    c = r + 2.0 * A - 6.0 * A / (r + 2.0)
+    with np.errstate(divide="ignore"):
+        df2 = r * (r + 2.0) / (3.0 * A)
+    return T, A, c, df2
+
+
+def trimmed_cell_stats(y, cell, m: int, *, gamma: float = 0.2):
+    """Trimmed means, Winsorized variances and effective sizes per cell.
+
+    Parameters
+    ----------
+    y : ndarray (N,)
+    cell : ndarray of int (N,)
+        Cell index of each observation (0 .. m-1).
+    m : int
+        Number of cells.
+    gamma : float
+        Proportion trimmed from each tail (0 <= gamma < 0.5).
+
+    Returns
+    -------
+    tmean, wvar, counts, h : ndarray (m,)
+        gamma-trimmed mean, gamma-Winsorized variance (ddof 1), n_jk and
+        h_jk = n_jk - 2 floor(gamma n_jk).  Cells with too few values hold NaN.
+
+    One sort over all observations (by cell, then value) and bincounts; no loop
+    over cells.
+    """
+    if not (0.0 <= gamma < 0.5):
+        raise OptionError(f"gamma: expected a trimming proportion in [0, 0.5), found {gamma!r}; try 0.2")
+    y = np.asarray(y, dtype=float)
+    cell = np.asarray(cell, dtype=np.int64)
+    order = np.lexsort((y, cell))
+    ys, cs = y[order], cell[order]
+    n = np.bincount(cs, minlength=m)
+    start = np.concatenate([[0], np.cumsum(n)[:-1]])
+    pos = np.arange(ys.size) - start[cs]                     # rank within cell, 0-based
+    g = np.floor(gamma * n + 1e-12).astype(np.int64)          # guard 0.2*5 = 1 exactly
+    h = n - 2 * g
+    keep = (pos >= g[cs]) & (pos < (n - g)[cs])
+    with np.errstate(invalid="ignore", divide="ignore"):
+        tmean = np.bincount(cs[keep], weights=ys[keep], minlength=m) / h
+        # Winsorize: clip to the (g+1)-th smallest and (g+1)-th largest value of the cell
+        ok = h >= 1
+        lo_idx = np.where(ok, start + g, 0)
+        hi_idx = np.where(ok, start + n - 1 - g, 0)
+        lo = ys[lo_idx] if ys.size else np.zeros(m)
+        hi = ys[hi_idx] if ys.size else np.zeros(m)
+        w = np.clip(ys, lo[cs], hi[cs])
+        wmean = np.bincount(cs, weights=w, minlength=m) / n
+        d = w - wmean[cs]
+        wmean = wmean + np.bincount(cs, weights=d, minlength=m) / n   # two-pass correction
+        d = w - wmean[cs]
+        wvar = np.bincount(cs, weights=d * d, minlength=m) / (n - 1)
+    tmean = np.where(h >= 1, tmean, np.nan)
+    wvar = np.where(n >= 2, wvar, np.nan)
+    return tmean, wvar, n, h
+
+
+def _degenerate(method_id: str, effect: str, reason: str, name: str = "T/c", extra=None) -> MethodResult:
+    return MethodResult(id=method_id, effect=effect, statistic=None, statistic_name=name, df1=None, df2=None,
+                        p=None, notes=(reason,), extra=extra or {})
+
+
+def _cells_problem(cells, need: int, what: str) -> str | None:
+    counts = cells.counts
+    if (counts == 0).any():
+        empty = [cells.cell_label(j, k) for j, k in zip(*np.nonzero(counts == 0))]
+        return (f"not computed: this method needs every cell filled, found {len(empty)} empty cell(s) "
+                f"({', '.join(empty[:5])})")
+    small = counts < need
+    if small.any():
+        lab = [f"{cells.cell_label(j, k)} (n = {counts[j, k]})" for j, k in zip(*np.nonzero(small))]
+        return (f"not computed: {what} needs n >= {need} in every cell, found {len(lab)} smaller cell(s): "
+                f"{', '.join(lab[:5])}")
+    return None
+
+
+def _result_from_core(method_id, effect, T, A, c, df2, r, notes, extra) -> MethodResult:
+    T, A, c, df2 = float(T), float(A), float(c), float(df2)
+    if not (np.isfinite(T) and np.isfinite(A) and np.isfinite(df2) and c > 0):
+        return _degenerate(method_id, effect,
+                           "not computed: the cell variances leave the contrast covariance singular "
+                           "(zero variance in the cells this effect compares)", extra=extra)
+    stat = T / c
+    p = float(stats.f.sf(stat, r, df2))
+    extra = {**extra, "T": T, "A": A, "c": c}
+    return MethodResult(id=method_id, effect=effect, statistic=stat, statistic_name="T/c", df1=float(r),
+                        df2=df2, p=p, notes=tuple(notes), extra=extra)
+
+
+def _solve_safely(fn):
+    try:
+        with np.errstate(all="ignore"):
+            return fn()
+    except np.linalg.LinAlgError:
+        return None
+
+
+_HYP_NOTE = {
+    "A": "main effect A tested on unweighted marginal means (Type III hypothesis)",
+    "B": "main effect B tested on unweighted marginal means (Type III hypothesis)",
+    "AB": "interaction tested on all (J-1)(K-1) interaction contrasts of the cell means",
+}
+
+
+def welch_james(fit: Fit, *, effect: str = "AB") -> MethodResult:
+    """Welch-James (Johansen 1980) approximate-df test of one effect.
+
+    Needs every cell filled with n_jk >= 2; works from cell statistics only
+    (summary mode too).  ``extra`` holds T (the HC2 Wald chi-square), A, c.
+    """
+    check_effect(effect)
+    cells = fit.cells
+    reason = _cells_problem(cells, 2, "the Welch-James test")
+    if reason:
+        return _degenerate("welch-james", effect, reason)
+    C = effect_contrast(cells, effect)
+    var = cells.variances.ravel()
+    if not (var > 0).any():
+        return _degenerate("welch-james", effect, "not computed: every cell has zero variance")
+    out = _solve_safely(lambda: welch_james_cells(cells.means.ravel(), var, cells.counts.ravel(), C))
+    if out is None:
+        return _degenerate("welch-james", effect,
+                           "not computed: the cell variances leave the contrast covariance singular "
+                           "(zero variance in the cells this effect compares)")
+    notes = [_HYP_NOTE[effect],
+             "allows unequal cell variances; the df approximation can be liberal when cells are very "
+             "small (n < 6 or so, common practice) - read it with the cell sizes in view"]
+    return _result_from_core("welch-james", effect, *out, C.shape[0], notes, {"gamma": 0.0})
+
+
+def welch_james_trimmed(fit: Fit, *, effect: str = "AB", gamma: float = 0.2) -> MethodResult:
+    """Welch-James test on gamma-trimmed means with Winsorized variances.
+
+    Needs the raw data (trimmed means are not in a summary table), every cell
+    filled, and h_jk = n_jk - 2 floor(gamma n_jk) >= 2 in every cell.
+    ``extra`` holds T, A, c, gamma and the smallest h_jk.
+    """
+    check_effect(effect)
+    mid = "welch-james-trimmed"
+    cells = fit.cells
+    if fit.obs is None:
+        return _degenerate(mid, effect, "not computed: trimmed means need the raw observations "
+                                        "(only cell summaries were given)", extra={"gamma": gamma})
+    reason = _cells_problem(cells, 2, "the trimmed Welch-James test")
+    if reason:
+        return _degenerate(mid, effect, reason, extra={"gamma": gamma})
+    m = cells.J * cells.K
+    tmean, wvar, n, h = trimmed_cell_stats(fit.obs.y, fit.obs.cell, m, gamma=gamma)
+    if (h < 2).any():
+        bad = [f"{cells.cell_label(i // cells.K, i % cells.K)} (n = {n[i]}, h = {h[i]})"
+               for i in np.nonzero(h < 2)[0]]
+        return _degenerate(mid, effect,
+                           f"not computed: after trimming {gamma:.0%} from each tail a cell keeps fewer than 2 "
+                           f"values (h_jk >= 2 needed): {', '.join(bad[:5])}", extra={"gamma": gamma})
+    d = (n - 1) * wvar / (h * (h - 1.0))                  # squared standard error of the trimmed mean
+    if not (d > 0).any():
+        return _degenerate(mid, effect, "not computed: every cell has zero Winsorized variance",
+                           extra={"gamma": gamma})
+    C = effect_contrast(cells, effect)
+    out = _solve_safely(lambda: welch_james_cells(tmean, d * n, n, C, dfs=h - 1.0))
+    if out is None:
+        return _degenerate(mid, effect, "not computed: the Winsorized variances leave the contrast "
+                                        "covariance singular", extra={"gamma": gamma})
+    notes = [_HYP_NOTE[effect].replace("marginal means", "marginal trimmed means"),
+             f"{gamma:.0%} trimmed means with Winsorized variances: tests trimmed population means, "
+             "not means; resistant to heavy tails and outliers, allows unequal variances"]
+    extra = {"gamma": float(gamma), "min_h": int(h.min()),
+             "trimmed_means": [[float(x) for x in row] for row in (tmean + cells.offset).reshape(cells.J, cells.K)]}
+    return _result_from_core(mid, effect, *out, C.shape[0], notes, extra)
+
+
+def welch_james_all(fit: Fit) -> tuple[MethodResult, ...]:
+    """Welch-James results for A, B and AB."""
+    return tuple(welch_james(fit, effect=e) for e in EFFECTS)
+
+
+def welch_james_trimmed_all(fit: Fit, *, gamma: float = 0.2) -> tuple[MethodResult, ...]:
+    """Trimmed Welch-James results for A, B and AB."""
+    return tuple(welch_james_trimmed(fit, effect=e, gamma=gamma) for e in EFFECTS)
