@@ -1,0 +1,572 @@
+"""Outliers, influence and fragility of the interaction test (METHODS.md section 8).
+
+Three pure functions of a :class:`audit.fit.Fit`, each returning a
+:class:`audit.results.Diagnostic`:
+
+* :func:`outliers` - studentized deleted residuals of the full (cell-means)
+  model with a Bonferroni cut-off, and Cook's distance.
+* :func:`influence` - the interaction p-value with each observation left out,
+  computed exactly without refitting over the observations.
+* :func:`fragility` - the smallest number of deletions, chosen greedily by
+  their effect on the interaction F, that flips the decision at alpha.
+
+How leave-one-out is computed
+-----------------------------
+Deleting observation i from cell c changes only that cell's sufficient
+statistics: n_c -> n_c - 1, ybar_c -> ybar_c - d_i / (n_c - 1) and
+css_c -> css_c - n_c d_i^2 / (n_c - 1), with d_i = y_i - ybar_c.  The interaction
+sum of squares is Q(A+B) = min_beta sum_jk w_jk (ybar_jk - x_jk' beta)^2, a
+weighted least-squares fit on at most J*K cell means.  Every deletion in cell c
+uses the same weights (n with n_c lowered by one), and the fit is linear in the
+cell means, so with r_c the residual of the cell means under those weights and
+u_c the residual of the unit vector e_c, the residual after deleting i is
+exactly r_c + delta_i u_c.  One small solve per cell gives Q for all its
+observations; nothing is refitted per observation.
+
+A cell with a single observation becomes empty when it is deleted: the
+interaction then has m - 1 - rank(A+B) degrees of freedom, as a refit of the
+reduced data would have.
+
+Severity rules (written down here and in the contributor guide)
+---------------------------------------------------------------
+outliers
+    "ok": no studentized deleted residual beyond the Bonferroni cut-off
+    t_{1-alpha/(2N)}(N - m - 1) (Bonferroni outlier test: Cook & Weisberg 1982,
+    Residuals and Influence in Regression, sec. 2.2.3).  "warning": one or more
+    beyond it (our choice: whether an outlier matters for the interaction is
+    judged by ``influence`` and ``fragility``, so an outlier alone is never
+    "serious").  Cook's distance above 4/N is listed as common practice and does
+    not change the severity (about 5% of any sample exceeds it).
+influence
+    "serious": deleting a single observation flips the interaction decision at
+    alpha.  "warning": some single deletion changes the interaction p-value by a
+    factor of 10 or more (our choice).  "ok" otherwise.  "note" when the test
+    cannot be formed.
+fragility (after the fragility index of Walsh et al. 2014, J Clin Epidemiol
+67:622-628, which reports the count without fixed thresholds; the cut-offs
+are our choice)
+    significant interaction: 1-2 deletions flip it: "serious"; 3-5: "warning";
+    6 up to the step cap: "note"; not flipped within the cap: "ok".
+    non-significant interaction: 1-2 deletions make it significant: "warning";
+    3 up to the cap: "note"; not within the cap: "ok".
+
+Caution: an automated audit supports a statistician's judgement, it does not
+replace it.  Deleting observations because they are influential is not a
+remedy; these numbers say how much the conclusion rests on few rows.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy import stats
+
+from ..core import contrast_matrix
+from ..results import Diagnostic
+
+__all__ = [
+    "outliers",
+    "influence",
+    "fragility",
+    "loo_interaction",
+    "interaction_test",
+    "FRAGILITY_MAX_STEPS",
+]
+
+#: default cap on greedy deletion steps in :func:`fragility` (each step costs one
+#: exact leave-one-out pass, O(N m); 20 steps keep N = 100,000 within seconds)
+FRAGILITY_MAX_STEPS = 20
+
+#: rows listed at most in long value lists (counts are always given in full)
+_LIST_CAP = 100
+
+_SUMMARY_MODE = ("needs the raw observations; only cell summaries were given, "
+                 "so this check was not run")
+
+
+# --------------------------------------------------------------------------
+# cell-level machinery shared with scale.py
+# --------------------------------------------------------------------------
+
+def additive_design(J: int, K: int) -> np.ndarray:
+    """Cell-level design matrix of the additive model (J*K rows, j-major),
+    sum-to-zero coding: intercept, A contrasts, B contrasts."""
+    ca = contrast_matrix(J).T
+    cb = contrast_matrix(K).T
+    return np.hstack([np.ones((J * K, 1)), np.kron(ca, np.ones((K, 1))), np.kron(np.ones((J, 1)), cb)])
+
+
+def cell_sums(y: np.ndarray, cell: np.ndarray, JK: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Counts, means (0 where empty) and centred SS per cell, two passes by bincount."""
+    n = np.bincount(cell, minlength=JK)
+    s = np.bincount(cell, weights=y, minlength=JK)
+    nz = np.maximum(n, 1)
+    mean = s / nz
+    d = y - mean[cell]
+    mean = mean + np.bincount(cell, weights=d, minlength=JK) / nz
+    d = y - mean[cell]
+    css = np.bincount(cell, weights=d * d, minlength=JK)
+    return n, np.where(n > 0, mean, 0.0), css
+
+
+def _wls_residual(X: np.ndarray, w: np.ndarray, target: np.ndarray) -> tuple[np.ndarray, int]:
+    """Residual of a weighted LS fit of ``target`` on ``X`` (rows with w > 0 only,
+    zero elsewhere), with one step of iterative refinement; and the rank."""
+    keep = w > 0
+    sw = np.sqrt(w[keep])
+    Xk = X[keep]
+    Xw = Xk * sw[:, None]
+    beta, _, rank, _ = np.linalg.lstsq(Xw, target[keep] * sw, rcond=None)
+    r = target[keep] - Xk @ beta
+    r = r - Xk @ np.linalg.lstsq(Xw, r * sw, rcond=None)[0]
+    out = np.zeros_like(target, dtype=float)
+    out[keep] = r
+    return out, int(rank)
+
+
+def _f_and_p(Q, sse, df1, df2):
+    """Vectorised classical F and p, following audit.core: when the error SS is
+    0 the F is infinite (p = 0) if Q > 0, else 0 (p = 1); NaN when a df is 0."""
+    Q = np.maximum(np.asarray(Q, dtype=float), 0.0)
+    sse = np.maximum(np.asarray(sse, dtype=float), 0.0)
+    df1 = np.asarray(df1, dtype=float)
+    df2 = np.asarray(df2, dtype=float)
+    ok = (df1 > 0) & (df2 > 0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        F = (Q / df1) / (sse / df2)
+    F = np.where(sse > 0, F, np.where(Q > 0, np.inf, 0.0))
+    F = np.where(ok, F, np.nan)
+    p = np.full(F.shape, np.nan)
+    fin = ok & np.isfinite(F)
+    if fin.any():
+        p[fin] = stats.f.sf(F[fin], df1[fin], df2[fin])
+    p[ok & np.isinf(F)] = 0.0
+    return F, p
+
+
+def interaction_test(counts: np.ndarray, means: np.ndarray, css: np.ndarray, X: np.ndarray):
+    """Classical interaction F test from flat cell statistics (j-major).
+
+    Returns (F, df1, df2, p); F and p are NaN when a df is 0.  The interaction
+    has m - rank(A+B) df (= (J-1)(K-1) with every cell filled), the same under
+    SS Types I, II and III (METHODS.md section 1).
+    """
+    counts = np.asarray(counts)
+    w = counts.astype(float)
+    filled = w > 0
+    centre = float(np.sum(w * np.where(filled, means, 0.0)) / w.sum())
+    r, rank = _wls_residual(X, w, np.where(filled, means - centre, 0.0))
+    Q = float(np.sum(w * r * r))
+    m = int(filled.sum())
+    df1 = m - rank
+    df2 = int(counts.sum()) - m
+    F, p = _f_and_p(Q, float(np.sum(css)), df1, df2)
+    return float(F), df1, df2, float(p)
+
+
+def loo_interaction(y: np.ndarray, cell: np.ndarray, J: int, K: int, *, chunk: int = 2_000_000):
+    """Exact leave-one-out interaction F test for every observation.
+
+    Parameters
+    ----------
+    y : ndarray (N,)
+        Response (any constant offset).
+    cell : ndarray of int (N,)
+        Cell index a * K + b.
+    J, K : int
+
+    Returns
+    -------
+    F, p, df1, df2 : ndarrays (N,)
+        The interaction F and p after deleting each observation (NaN where the
+        test cannot be formed), with its degrees of freedom.
+
+    Notes
+    -----
+    Cost O(N m) for the residual updates plus one (J*K)-row least-squares solve
+    per filled cell; no model is refitted per observation (see module notes).
+    """
+    y = np.asarray(y, dtype=float)
+    cell = np.asarray(cell, dtype=np.int64)
+    JK = J * K
+    N = y.size
+    X = additive_design(J, K)
+    n, mean, css = cell_sums(y, cell, JK)
+    filled = n > 0
+    m = int(filled.sum())
+    sse = float(css.sum())
+    centre = float(np.sum(n * mean) / N)
+    target = np.where(filled, mean - centre, 0.0)
+    F = np.full(N, np.nan)
+    p = np.full(N, np.nan)
+    df1 = np.zeros(N, dtype=np.int64)
+    df2 = np.zeros(N, dtype=np.int64)
+    order = np.argsort(cell, kind="stable")
+    starts = np.concatenate([[0], np.cumsum(n)])
+    for c in np.flatnonzero(filled):
+        idx = order[starts[c]:starts[c + 1]]
+        nc = int(n[c])
+        w = n.astype(float)
+        w[c] -= 1.0
+        r0, rank = _wls_residual(X, w, target)
+        if nc == 1:  # the cell empties: the fit simply loses that cell
+            Q = np.array([float(np.sum(w * r0 * r0))])
+            sse_i = np.array([sse - css[c]])
+            d1, d2 = (m - 1) - rank, (N - 1) - (m - 1)
+        else:
+            e = np.zeros(JK)
+            e[c] = 1.0
+            u, _ = _wls_residual(X, w, e)
+            keep = w > 0
+            r0k, uk, wk = r0[keep], u[keep], w[keep]
+            d = y[idx] - mean[c]
+            delta = -d / (nc - 1)
+            Q = np.empty(idx.size)
+            step = max(1, chunk // max(1, r0k.size))
+            for s0 in range(0, idx.size, step):
+                R = r0k[None, :] + delta[s0:s0 + step, None] * uk[None, :]
+                Q[s0:s0 + step] = (R * R) @ wk
+            sse_i = sse - (nc / (nc - 1.0)) * d * d
+            d1, d2 = m - rank, (N - 1) - m
+        Fi, pi = _f_and_p(Q, sse_i, np.full(idx.size, d1), np.full(idx.size, d2))
+        F[idx] = Fi
+        p[idx] = pi
+        df1[idx] = d1
+        df2[idx] = d2
+    return F, p, df1, df2
+
+
+# --------------------------------------------------------------------------
+# helpers
+# --------------------------------------------------------------------------
+
+def _num(x):
+    """JSON-safe float (None for NaN/inf)."""
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def _fmt_p(p) -> str:
+    if p is None or not math.isfinite(p):
+        return "not available"
+    if p < 1e-4:
+        return f"{p:.1e}"
+    return f"{p:.4f}"
+
+
+def _cell_names(fit, c: int) -> list[str]:
+    K = fit.cells.K
+    return [fit.cells.levels_a[c // K], fit.cells.levels_b[c % K]]
+
+
+def _summary_mode(id_: str) -> Diagnostic:
+    return Diagnostic(id=id_, severity="note", summary=f"{id_}: {_SUMMARY_MODE}.",
+                      values={"available": False, "reason": _SUMMARY_MODE})
+
+
+def _ab_full(fit):
+    row = fit.anova.tables["II"].row("AB")
+    return row
+
+
+# --------------------------------------------------------------------------
+# outliers
+# --------------------------------------------------------------------------
+
+def outliers(fit) -> Diagnostic:
+    """Studentized deleted residuals (Bonferroni cut-off) and Cook's distance
+    of the full cell-means model.
+
+    Leverage of an observation in cell jk is h = 1 / n_jk; an observation alone
+    in its cell (h = 1) has no residual and is reported as such.
+
+    values keys: ``available``, ``alpha``, ``N``, ``df``, ``cutoff`` (the
+    Bonferroni critical |t|), ``n_flagged``, ``flagged`` (list of {row, cell, y,
+    t, p_bonferroni}, largest |t| first), ``max_abs_t``, ``max_abs_t_row``,
+    ``cooks_threshold`` (4/N), ``n_cooks_flagged``, ``cooks_flagged`` (up to
+    100 rows, largest first), ``max_cooks``, ``max_cooks_row``,
+    ``rows_without_residual`` (rows alone in their cell).
+    """
+    if fit.obs is None:
+        return _summary_mode("outliers")
+    obs, cells = fit.obs, fit.cells
+    N, m = cells.N, cells.m
+    df_e = N - m
+    sse = cells.sse_within
+    alpha = fit.alpha
+    cell = obs.cell
+    n_i = cells.counts.ravel()[cell].astype(float)
+    e = np.asarray(fit.resid_full, dtype=float)
+    rows = np.asarray(obs.rows)
+    single = n_i == 1
+    rows_single = [int(r) for r in rows[single]]
+    df_t = df_e - 1
+    if df_t < 1 or sse <= 0:
+        return Diagnostic(
+            id="outliers", severity="note",
+            summary=("Outliers: too few error degrees of freedom (N - m - 1 < 1) or no within-cell "
+                     "variation, so studentized residuals cannot be formed."),
+            values={"available": False, "reason": "N - m - 1 < 1 or zero within-cell SS",
+                    "alpha": alpha, "N": N, "df": df_t, "rows_without_residual": rows_single[:_LIST_CAP]},
+        )
+    h = 1.0 / n_i
+    ok = ~single
+    t = np.full(N, np.nan)
+    denom = sse * (1.0 - h[ok]) - e[ok] ** 2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t[ok] = e[ok] * np.sqrt(df_t / np.maximum(denom, 0.0))
+    # t_i is infinite only if row i carries the whole SSE; keep it as a flag
+    mse = sse / df_e
+    cook = np.full(N, np.nan)
+    cook[ok] = e[ok] ** 2 * h[ok] / (m * mse * (1.0 - h[ok]) ** 2)
+    cutoff = float(stats.t.isf(alpha / (2.0 * N), df_t))
+    abs_t = np.abs(t)
+    flag = ok & (abs_t > cutoff)
+    p_two = np.full(N, np.nan)
+    p_two[ok] = 2.0 * stats.t.sf(abs_t[ok], df_t)
+    p_bonf = np.minimum(1.0, N * p_two)
+    fl_idx = np.flatnonzero(flag)
+    fl_idx = fl_idx[np.argsort(-abs_t[fl_idx], kind="stable")]
+    flagged = [
+        {"row": int(rows[i]), "cell": _cell_names(fit, int(cell[i])), "y": float(obs.y_original[i]),
+         "t": _num(t[i]), "p_bonferroni": _num(p_bonf[i])}
+        for i in fl_idx[:_LIST_CAP]
+    ]
+    thr = 4.0 / N
+    cflag = ok & (cook > thr)
+    c_idx = np.flatnonzero(cflag)
+    c_idx = c_idx[np.argsort(-cook[c_idx], kind="stable")]
+    any_ok = bool(ok.any())
+    imax = int(np.nanargmax(abs_t)) if any_ok else None
+    cmax = int(np.nanargmax(cook)) if any_ok else None
+    nf = int(fl_idx.size)
+    if nf == 0:
+        sev = "ok"
+        summ = (f"Outliers: no studentized deleted residual beyond the Bonferroni cut-off |t| > {cutoff:.2f} "
+                f"(alpha {alpha:g} over N = {N}); no single extreme value stands out from the cell-means model.")
+    else:
+        sev = "warning"
+        shown = ", ".join(str(f["row"]) for f in flagged[:5])
+        summ = (f"Outliers: {nf} observation(s) beyond the Bonferroni cut-off |t| > {cutoff:.2f} "
+                f"(row(s) {shown}{', ...' if nf > 5 else ''}); check them for entry errors and see the "
+                "influence and fragility checks for whether they carry the interaction result.")
+    if rows_single:
+        summ += (f" {len(rows_single)} observation(s) alone in their cell have leverage 1 and no residual, "
+                 "so they cannot be checked this way.")
+    return Diagnostic(id="outliers", severity=sev, summary=summ, values={
+        "available": True,
+        "alpha": alpha,
+        "N": N,
+        "df": int(df_t),
+        "cutoff": cutoff,
+        "n_flagged": nf,
+        "flagged": flagged,
+        "max_abs_t": _num(abs_t[imax]) if imax is not None else None,
+        "max_abs_t_row": int(rows[imax]) if imax is not None else None,
+        "cooks_threshold": thr,
+        "n_cooks_flagged": int(c_idx.size),
+        "cooks_flagged": [{"row": int(rows[i]), "cooks_d": float(cook[i])} for i in c_idx[:_LIST_CAP]],
+        "max_cooks": _num(cook[cmax]) if cmax is not None else None,
+        "max_cooks_row": int(rows[cmax]) if cmax is not None else None,
+        "rows_without_residual": rows_single[:_LIST_CAP],
+        "n_without_residual": len(rows_single),
+    })
+
+
+# --------------------------------------------------------------------------
+# influence
+# --------------------------------------------------------------------------
+
+def influence(fit, *, top: int = 10) -> Diagnostic:
+    """The interaction p-value with each observation left out (exact).
+
+    values keys: ``available``, ``alpha``, ``p_full``, ``F_full``, ``df``
+    [df1, df2] of the full data, ``loo_p`` (one per kept row, data order; None
+    where the test cannot be formed), ``rows`` (row numbers, same order),
+    ``p_min``, ``p_max``, ``n_flipping`` (single deletions that flip the
+    decision), ``flipping_rows`` (up to 100), ``most_influential`` (up to
+    ``top`` entries {row, cell, y, p, F, log10_ratio}, largest |log10(p_i/p)|
+    first), ``rows_emptying_a_cell``.
+    """
+    if fit.obs is None:
+        return _summary_mode("influence")
+    obs, cells = fit.obs, fit.cells
+    alpha = fit.alpha
+    ab = _ab_full(fit)
+    rows = np.asarray(obs.rows)
+    if ab.p is None:
+        return Diagnostic(
+            id="influence", severity="note",
+            summary=f"Influence: the interaction test cannot be formed on the full data ({ab.note}), "
+                    "so leave-one-out p-values are not available.",
+            values={"available": False, "reason": ab.note, "alpha": alpha, "loo_p": [], "rows": [int(r) for r in rows]},
+        )
+    F, p, df1, df2 = loo_interaction(obs.y, obs.cell, cells.J, cells.K)
+    p0 = float(ab.p)
+    sig0 = p0 < alpha
+    valid = np.isfinite(p)
+    flip = valid & ((p < alpha) != sig0)
+    with np.errstate(divide="ignore"):
+        lr = np.abs(np.log10(np.maximum(p, 1e-300)) - math.log10(max(p0, 1e-300)))
+    lr = np.where(valid, lr, -1.0)
+    order = np.argsort(-lr, kind="stable")[:top]
+    cell = obs.cell
+    most = [
+        {"row": int(rows[i]), "cell": _cell_names(fit, int(cell[i])), "y": float(obs.y_original[i]),
+         "p": _num(p[i]), "F": _num(F[i]),
+         "log10_ratio": _num(math.log10(max(p[i], 1e-300)) - math.log10(max(p0, 1e-300)))}
+        for i in order if valid[i]
+    ]
+    fl = np.flatnonzero(flip)
+    fl = fl[np.argsort(-lr[fl], kind="stable")]
+    emptying = cells.counts.ravel()[cell] == 1
+    max_lr = float(lr.max()) if valid.any() else 0.0
+    if fl.size:
+        sev = "serious"
+        first = most[0] if most else None
+        summ = (f"Influence: deleting a single observation flips the interaction decision at alpha {alpha:g} "
+                f"for {fl.size} row(s) (most influential: row {int(rows[fl[0]])}, p {_fmt_p(p0)} -> "
+                f"{_fmt_p(float(p[fl[0]]))}); the interaction conclusion rests on individual observations.")
+        del first
+    elif max_lr >= 1.0:
+        sev = "warning"
+        summ = (f"Influence: no single deletion flips the interaction decision, but deleting row "
+                f"{most[0]['row']} changes its p-value tenfold or more ({_fmt_p(p0)} -> {_fmt_p(most[0]['p'])}).")
+    else:
+        sev = "ok"
+        summ = (f"Influence: no single deletion flips the interaction decision at alpha {alpha:g}; "
+                f"leave-one-out p-values range {_fmt_p(float(np.nanmin(p)) if valid.any() else None)} to "
+                f"{_fmt_p(float(np.nanmax(p)) if valid.any() else None)}.")
+    if (~valid).any():
+        summ += f" For {int((~valid).sum())} row(s) the test cannot be formed after deletion (p listed as None)."
+    return Diagnostic(id="influence", severity=sev, summary=summ, values={
+        "available": True,
+        "alpha": alpha,
+        "p_full": p0,
+        "F_full": _num(ab.F),
+        "df": [int(ab.df), int(fit.anova.df_error)],
+        "loo_p": [(float(v) if ok else None) for v, ok in zip(p.tolist(), valid.tolist())],
+        "rows": [int(r) for r in rows],
+        "p_min": _num(np.nanmin(p)) if valid.any() else None,
+        "p_max": _num(np.nanmax(p)) if valid.any() else None,
+        "n_flipping": int(fl.size),
+        "flipping_rows": [int(rows[i]) for i in fl[:_LIST_CAP]],
+        "most_influential": most,
+        "rows_emptying_a_cell": [int(r) for r in rows[emptying][:_LIST_CAP]],
+    })
+
+
+# --------------------------------------------------------------------------
+# fragility
+# --------------------------------------------------------------------------
+
+def _fragility_severity(k, sig0: bool) -> str:
+    if k is None:
+        return "ok"
+    if sig0:
+        return "serious" if k <= 2 else ("warning" if k <= 5 else "note")
+    return "warning" if k <= 2 else "note"
+
+
+def fragility(fit, *, max_steps: int = FRAGILITY_MAX_STEPS) -> Diagnostic:
+    """Smallest number of greedy deletions that flips the interaction decision.
+
+    At each step every remaining observation's deletion is evaluated exactly
+    (:func:`loo_interaction`) and the one that moves the interaction p-value
+    furthest toward the other side of alpha is deleted (largest p when the
+    interaction is significant, smallest p otherwise; ties by larger / smaller
+    F, then data order).  Stops at the first flip or after ``max_steps``
+    deletions (default 20: each step costs one O(N m) pass, so N = 100,000
+    stays within seconds).  Greedy deletion gives an upper bound on the true
+    minimum; a flip within few steps is what matters.
+
+    values keys: ``available``, ``alpha``, ``p_full``, ``direction``
+    ('significant->not significant' or the reverse), ``deletions_to_flip``
+    (int, or None if not flipped within the cap), ``rows`` (row numbers in
+    deletion order when flipped, else empty), ``rows_tried`` (the greedy
+    deletions made, flipped or not), ``p_path`` (interaction p after each deletion),
+    ``max_steps``, ``cells_emptied`` (cells left empty by the deletions).
+    """
+    if fit.obs is None:
+        return _summary_mode("fragility")
+    try:
+        max_steps = int(max_steps)
+    except (TypeError, ValueError):
+        from ..errors import OptionError
+        raise OptionError(f"max_steps: expected a whole number >= 1, found {max_steps!r}") from None
+    if max_steps < 1:
+        from ..errors import OptionError
+        raise OptionError(f"max_steps: expected a whole number >= 1, found {max_steps}; try 20")
+    obs, cells = fit.obs, fit.cells
+    alpha = fit.alpha
+    ab = _ab_full(fit)
+    rows_all = np.asarray(obs.rows)
+    if ab.p is None:
+        return Diagnostic(
+            id="fragility", severity="note",
+            summary=f"Fragility: the interaction test cannot be formed on the full data ({ab.note}).",
+            values={"available": False, "reason": ab.note, "alpha": alpha,
+                    "deletions_to_flip": None, "rows": [], "max_steps": max_steps},
+        )
+    p0 = float(ab.p)
+    sig0 = p0 < alpha
+    J, K = cells.J, cells.K
+    keep = np.ones(len(obs), dtype=bool)
+    y_all, cell_all = np.asarray(obs.y, dtype=float), obs.cell
+    deleted: list[int] = []
+    path: list[float] = []
+    flipped = False
+    for _ in range(max_steps):
+        idx = np.flatnonzero(keep)
+        F, p, _d1, _d2 = loo_interaction(y_all[idx], cell_all[idx], J, K)
+        valid = np.isfinite(p)
+        if not valid.any():
+            break
+        Fv = np.where(np.isfinite(F), F, np.inf)
+        cand = np.flatnonzero(valid)
+        if sig0:  # want the largest p (then the smallest F)
+            o = np.lexsort((np.arange(cand.size), Fv[cand], -p[cand]))
+        else:     # want the smallest p (then the largest F)
+            o = np.lexsort((np.arange(cand.size), -Fv[cand], p[cand]))
+        best = cand[o[0]]
+        i = int(idx[best])
+        keep[i] = False
+        deleted.append(i)
+        path.append(float(p[best]))
+        if (p[best] < alpha) != sig0:
+            flipped = True
+            break
+    k = len(deleted) if flipped else None
+    del_rows = [int(rows_all[i]) for i in deleted]
+    n_left = np.bincount(cell_all[keep], minlength=J * K)
+    emptied = [_cell_names(fit, int(c)) for c in np.flatnonzero((n_left == 0) & (cells.counts.ravel() > 0))]
+    sev = _fragility_severity(k, sig0)
+    direction = "significant->not significant" if sig0 else "not significant->significant"
+    word = "significant" if sig0 else "non-significant"
+    if flipped:
+        shown = ", ".join(map(str, del_rows[:5])) + (", ..." if len(del_rows) > 5 else "")
+        summ = (f"Fragility: deleting {k} observation(s) (row(s) {shown}) turns the {word} interaction "
+                f"(p {_fmt_p(p0)}) {'non-significant' if sig0 else 'significant'} at alpha {alpha:g} "
+                f"(p {_fmt_p(path[-1])}).")
+        if sig0 and k <= 5:
+            summ += " The interaction claim rests on very few observations."
+    else:
+        summ = (f"Fragility: the {word} interaction decision at alpha {alpha:g} did not flip within "
+                f"{len(deleted)} greedy deletion(s) (cap {max_steps}); last p {_fmt_p(path[-1] if path else None)}.")
+    if emptied:
+        summ += f" The deletions empty {len(emptied)} cell(s), which changes the design."
+    return Diagnostic(id="fragility", severity=sev, summary=summ, values={
+        "available": True,
+        "alpha": alpha,
+        "p_full": p0,
+        "direction": direction,
+        "deletions_to_flip": k,
+        "rows": del_rows if flipped else [],
+        "rows_tried": del_rows,
+        "p_path": path,
+        "max_steps": max_steps,
+        "cells_emptied": emptied,
+    })
