@@ -1,0 +1,233 @@
+"""Rank-based tests of the two-way effects: rank transform and aligned rank transform.
+
+Rank transform (RT; Conover & Iman 1981): replace y by its mid-ranks and run
+the classical ANOVA.  It is reported for completeness and always marked as not
+valid for the interaction: with main effects present its interaction test has
+inflated Type I error (Blair, Sawilowsky & Higgins 1987; Sawilowsky 1990).
+
+Aligned rank transform (ART; Higgins & Tashtoush 1994; Wobbrock, Findlater,
+Gergle & Higgins 2011): for each effect separately, aligned response = residual
+from the cell mean + that effect's estimate in the full model with sum-to-zero
+coding (unweighted marginal means of the cell means); mid-rank; run the full
+factorial ANOVA on the ranks (Type III) and read only the aligned effect.  The
+method's self-check, run every time: an ANOVA of the aligned (unranked)
+responses gives F = 0, to rounding, for every effect other than the aligned one.
+With the unweighted (sum-to-zero) estimates used here that holds under Type III
+in unbalanced designs too.
+
+Both need the raw observations (ranks are not in a summary table).  One
+O(N log N) ranking per effect plus bincounts; no model refit over observations.
+
+References
+----------
+.. [1] Conover, W. J. & Iman, R. L. (1981). Rank transformations as a bridge
+       between parametric and nonparametric statistics. The American
+       Statistician 35, 124-129.
+.. [2] Blair, R. C., Sawilowsky, S. S. & Higgins, J. J. (1987). Limitations of
+       the rank transform statistic in tests for interactions. Communications
+       in Statistics - Simulation and Computation 16, 1133-1145.
+.. [3] Higgins, J. J. & Tashtoush, S. (1994). An aligned rank transform test
+       for interaction. Nonlinear World 1, 201-211.
+.. [4] Wobbrock, J. O., Findlater, L., Gergle, D. & Higgins, J. J. (2011). The
+       aligned rank transform for nonparametric factorial analyses using only
+       ANOVA procedures. Proc. CHI 2011, 143-146.
+.. [5] Leys, C. & Schumann, S. (2010). A nonparametric method to analyze
+       interactions: the adjusted rank transform test. Journal of Experimental
+       Social Psychology 46, 684-688.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import stats
+
+from ..core import additive_cell_fit, anova_two_way, type3_contrasts
+from ..design import CellStats, cells_from_observations
+from ..fit import Fit
+from ..results import MethodResult
+from .wald import wald_quadratic
+from .welch import EFFECTS, check_effect
+
+__all__ = [
+    "mid_ranks",
+    "aligned_response",
+    "aligned_mid_ranks",
+    "type3_f",
+    "rank_transform",
+    "rank_transform_all",
+    "aligned_rank_transform",
+    "aligned_rank_transform_all",
+]
+
+#: self-check tolerance on the F of a non-aligned effect (rounding only)
+SELF_CHECK_TOL = 1e-6
+
+RT_REASON = ("not valid for the interaction: with main effects present the rank-transform interaction "
+             "test has inflated Type I error, because ranking is a non-linear transformation that "
+             "creates interaction out of main effects (Blair, Sawilowsky & Higgins 1987); reported for "
+             "completeness only")
+
+ART_CAUTIONS = (
+    "ART is liberal when variances differ across cells (Leys & Schumann 2010): do not rely on it "
+    "under heteroscedasticity",
+    "post-hoc contrasts after ART need the ART-C procedure (Elkin et al. 2021), not contrasts on these ranks",
+)
+
+
+def mid_ranks(y) -> np.ndarray:
+    """Mid-ranks (ties get the average rank), 1..N."""
+    return stats.rankdata(np.asarray(y, dtype=float), method="average")
+
+
+def aligned_mid_ranks(aligned) -> np.ndarray:
+    """Mid-ranks of aligned responses, with ties restored.
+
+    Aligned values that are equal in exact arithmetic (y - cell mean + effect,
+    from different cells) can differ in the last bits of floating point, which
+    would break their tie arbitrarily.  Values are snapped to a grid of
+    1e-10 times the largest absolute aligned value before ranking, so such
+    values tie again; genuinely distinct values closer than that are treated
+    as tied (common practice for ranking computed values).
+    """
+    al = np.asarray(aligned, dtype=float)
+    scale = float(np.max(np.abs(al))) if al.size else 0.0
+    if scale == 0.0:
+        return mid_ranks(al)
+    return mid_ranks(np.round(al / (scale * 1e-10)))
+
+
+def _cells_of(values, fit: Fit) -> CellStats:
+    o = fit.obs
+    return cells_from_observations(values, o.a, o.b, levels_a=o.levels_a, levels_b=o.levels_b,
+                                   factors=o.factors, response=o.response)
+
+
+def type3_f(cells: CellStats) -> dict:
+    """Type III F, df and p of A, B and AB (every cell filled, N > m).
+
+    SS_A, SS_B by the Wald form on cell means with D = diag(1/n); SS_AB from
+    the additive model's between-cell residual SS (METHODS.md section 1).
+    """
+    n = cells.counts.ravel().astype(float)
+    ybar = cells.means.ravel()
+    ybar = ybar - np.sum(n * ybar) / n.sum()
+    C = type3_contrasts(cells.J, cells.K)
+    ss = {e: float(wald_quadratic(ybar, 1.0 / n, C[e])) for e in ("A", "B")}
+    ss["AB"] = additive_cell_fit(cells)[1]
+    df_e = cells.df_within
+    mse = cells.sse_within / df_e
+    out = {}
+    for e in EFFECTS:
+        df1 = C[e].shape[0]
+        F = (ss[e] / df1) / mse if mse > 0 else (float("inf") if ss[e] > 0 else 0.0)
+        out[e] = {"ss": ss[e], "df1": df1, "df2": df_e, "F": float(F),
+                  "p": float(stats.f.sf(F, df1, df_e)) if np.isfinite(F) else 0.0}
+    return out
+
+
+def _no_data(mid, effect, valid=True):
+    return MethodResult(id=mid, effect=effect, statistic=None, statistic_name="F", p=None,
+                        valid_for_interaction=valid,
+                        notes=("not computed: rank methods need the raw observations "
+                               "(only cell summaries were given)",))
+
+
+def rank_transform_all(fit: Fit) -> tuple[MethodResult, ...]:
+    """Rank-transform F for A, B and AB (one ranking, one ANOVA).
+
+    Type III main effects with every cell filled, Type II otherwise; every
+    result has ``valid_for_interaction=False`` with the reason in ``notes``.
+    """
+    if fit.obs is None:
+        return tuple(_no_data("rank-transform", e, valid=False) for e in EFFECTS)
+    cells = _cells_of(mid_ranks(fit.obs.y), fit)
+    an = anova_two_way(cells)
+    ss_type = "III" if cells.m == cells.J * cells.K else "II"
+    out = []
+    for e in EFFECTS:
+        row = an.tables[ss_type].row(e)
+        notes = [RT_REASON, "classical ANOVA on the mid-ranks of the response (Conover & Iman 1981), "
+                            f"Type {ss_type} sums of squares"]
+        if row.note:
+            notes.append(row.note)
+        out.append(MethodResult(
+            id="rank-transform", effect=e, statistic=row.F, statistic_name="F",
+            df1=float(row.df) if row.F is not None else None,
+            df2=float(an.df_error) if row.F is not None else None, p=row.p,
+            valid_for_interaction=False, notes=tuple(notes), extra={"ss_type": ss_type},
+        ))
+    return tuple(out)
+
+
+def rank_transform(fit: Fit, *, effect: str = "AB") -> MethodResult:
+    """Rank-transform F of one effect (always ``valid_for_interaction=False``)."""
+    check_effect(effect)
+    return rank_transform_all(fit)[EFFECTS.index(effect)]
+
+
+def aligned_response(fit: Fit, effect: str) -> np.ndarray:
+    """Aligned responses for ``effect``: y - cell mean + the effect's estimate.
+
+    Estimates from the full model with sum-to-zero coding: mu = mean of the
+    cell means, a_j = row mean - mu, b_k = column mean - mu,
+    ab_jk = ybar_jk - a_j - b_k - mu.  Needs every cell filled.
+    """
+    check_effect(effect)
+    cm = fit.cells.means
+    mu = cm.mean()
+    a = cm.mean(axis=1) - mu
+    b = cm.mean(axis=0) - mu
+    est = {"A": np.repeat(a[:, None], cm.shape[1], axis=1),
+           "B": np.repeat(b[None, :], cm.shape[0], axis=0),
+           "AB": cm - a[:, None] - b[None, :] - mu}[effect]
+    return fit.resid_full + est.ravel()[fit.obs.cell]
+
+
+def aligned_rank_transform(fit: Fit, *, effect: str = "AB") -> MethodResult:
+    """Aligned-rank-transform F of one effect, with the alignment self-check.
+
+    ``extra``: ss_type 'III', ``self_check`` = {'passed': bool,
+    'f_other': {effect: F on the aligned unranked responses},
+    'max_f_other': float, 'tolerance': float}.
+    """
+    check_effect(effect)
+    mid = "aligned-rank-transform"
+    if fit.obs is None:
+        return _no_data(mid, effect)
+    cells = fit.cells
+    if cells.m < cells.J * cells.K:
+        return MethodResult(id=mid, effect=effect, statistic=None, statistic_name="F", p=None,
+                            notes=("not computed: the alignment uses the full model's effect estimates, "
+                                   f"which need every cell filled (found {cells.J * cells.K - cells.m} "
+                                   "empty cell(s))",))
+    if cells.df_within == 0:
+        return MethodResult(id=mid, effect=effect, statistic=None, statistic_name="F", p=None,
+                            notes=("not computed: one observation per cell leaves no within-cell error "
+                                   "term for the ANOVA on ranks",))
+    al = aligned_response(fit, effect)
+    # self-check of the method's authors: ANOVA on the aligned, unranked responses
+    chk = type3_f(_cells_of(al, fit))
+    others = {e: chk[e]["F"] for e in EFFECTS if e != effect}
+    # relative to the aligned effect's own F so that the check is scale-free
+    max_other = max(others.values())
+    passed = bool(max_other < SELF_CHECK_TOL * max(1.0, chk[effect]["F"]))
+    res = type3_f(_cells_of(aligned_mid_ranks(al), fit))[effect]
+    check_note = (f"alignment self-check: ANOVA on the aligned (unranked) responses gives F = "
+                  + ", ".join(f"{v:.2g} for {k}" for k, v in others.items())
+                  + (" (zero to rounding, as it should)" if passed else
+                     " - NOT zero: the alignment failed, do not use this result"))
+    notes = [f"aligned for {effect}, mid-ranked, full factorial ANOVA on the ranks (Type III); "
+             f"only the {effect} row is read", check_note, *ART_CAUTIONS]
+    extra = {"ss_type": "III",
+             "self_check": {"passed": passed, "f_other": others, "max_f_other": max_other,
+                            "tolerance": SELF_CHECK_TOL}}
+    if not passed:
+        return MethodResult(id=mid, effect=effect, statistic=None, statistic_name="F", p=None,
+                            notes=tuple(notes), extra=extra)
+    return MethodResult(id=mid, effect=effect, statistic=res["F"], statistic_name="F", df1=float(res["df1"]),
+                        df2=float(res["df2"]), p=res["p"], notes=tuple(notes), extra=extra)
+
+
+def aligned_rank_transform_all(fit: Fit) -> tuple[MethodResult, ...]:
+    """ART results for A, B and AB (one alignment and ranking each)."""
+    return tuple(aligned_rank_transform(fit, effect=e) for e in EFFECTS)
