@@ -1,0 +1,304 @@
+"""Permutation tests of the two-way effects (METHODS.md section 5).
+
+No exact permutation test exists for an interaction; these are the recognised
+approximations, all run on the chunked engine of :mod:`.resampling`:
+
+* ``permutation-freedman-lane`` (default; Freedman & Lane 1983): fit the model
+  restricted by the hypothesis (for AB the additive model A + B), permute its
+  residuals e_r and add them back to its fitted values, y* = yhat_r + P e_r;
+  statistic: the classical F of the effect.  Because yhat_r is constant within
+  cells and satisfies the hypothesis, F(y*) = F(P e_r) exactly, so only P e_r
+  is formed.  Main effects use the Type III hypotheses: the restricted model is
+  the full model under C_A mu = 0 (i.e. B + AB in sum-to-zero coding), and the
+  unpermuted statistic is the Type III F.
+* ``permutation-ter-braak`` (ter Braak 1992): y* = P e_full, statistic F.
+* ``permutation-studentized`` (Pauly, Brunner & Konietschke 2015): permute the
+  whole response; statistic the Welch-James Wald-type T (= the HC2 Wald
+  chi-square) of the effect, studentized cell by cell, so the test stays
+  asymptotically valid with unequal variances and unequal cell sizes, where
+  the two residual permutations are not (they assume exchangeable errors).
+
+Every result carries B, p = (1 + count)/(B + 1), the Monte Carlo SE and a 99%
+Clopper-Pearson interval for p.  With the same seed every effect of a method
+sees the same permutations.
+
+References
+----------
+.. [1] Freedman, D. & Lane, D. (1983). A nonstochastic interpretation of reported
+       significance levels. Journal of Business & Economic Statistics 1, 292-298.
+.. [2] ter Braak, C. J. F. (1992). Permutation versus bootstrap significance
+       tests in multiple regression and ANOVA. In Bootstrapping and Related
+       Techniques, Springer, 79-86.
+.. [3] Anderson, M. J. & ter Braak, C. J. F. (2003). Permutation tests for
+       multi-factorial analysis of variance. Journal of Statistical Computation
+       and Simulation 73, 85-113.
+.. [4] Pauly, M., Brunner, E. & Konietschke, F. (2015). Asymptotic permutation
+       tests in general factorial designs. JRSS B 77, 461-473.
+.. [5] Winkler, A. M., Ridgway, G. R., Webster, M. A., Smith, S. M. & Nichols,
+       T. E. (2014). Permutation inference for the general linear model.
+       NeuroImage 92, 381-397.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..fit import Fit
+from ..results import MethodResult
+from .resampling import (
+    P_INTERVAL_LEVEL,
+    TIE_RTOL,
+    chunk_size,
+    check_resamples,
+    effect_hypothesis,
+    f_statistic_maker,
+    layout_from_fit,
+    none_result,
+    p_notes,
+    progress_fn,
+    resample_statistics,
+    resampled_p,
+    restricted_cell_fit,
+    seed_value,
+    wald_statistic_maker,
+)
+from .welch import EFFECTS, check_effect
+
+__all__ = [
+    "freedman_lane",
+    "freedman_lane_all",
+    "ter_braak",
+    "ter_braak_all",
+    "studentized_permutation",
+    "studentized_permutation_all",
+]
+
+_HYP = {
+    "A": "main effect A on unweighted marginal means (Type III hypothesis)",
+    "B": "main effect B on unweighted marginal means (Type III hypothesis)",
+    "AB": "interaction: all interaction contrasts of the cell means",
+}
+
+_EXCHANGE = ("residual permutation assumes exchangeable errors (equal variances across cells); with unequal "
+             "variances in unequal cells it loses its footing - read permutation-studentized or wild-bootstrap "
+             "instead (Anderson & ter Braak 2003)")
+
+
+def _checks(fit: Fit, effects, resamples, mid: str, name: str, *, need_two: str | None):
+    """Common validation; returns (B, list of early results or None)."""
+    for e in effects:
+        check_effect(e)
+    B = check_resamples(resamples)
+    reason = None
+    cells = fit.cells
+    if fit.obs is None:
+        reason = "not computed: resampling needs the raw observations (only cell summaries were given)"
+    elif cells.df_within == 0:
+        reason = ("not computed: one observation per cell leaves no within-cell error term "
+                  "(see the one-degree-of-freedom test for non-additivity)")
+    elif not cells.sse_within > 0:
+        reason = "not computed: zero variation within every cell, the statistic is undefined"
+    elif need_two:
+        n = cells.counts
+        small = (n == 1)
+        if small.any():
+            lab = [cells.cell_label(j, k) for j, k in zip(*np.nonzero(small))]
+            reason = (f"not computed: {need_two} needs n >= 2 in every filled cell, found "
+                      f"{len(lab)} cell(s) with one observation ({', '.join(lab[:5])})")
+        elif (cells.css[n > 0] <= 0).any():
+            lab = [cells.cell_label(j, k) for j, k in zip(*np.nonzero((n > 0) & (cells.css <= 0)))]
+            reason = (f"not computed: zero variance in cell(s) {', '.join(lab[:5])} makes {need_two} "
+                      "undefined")
+    if reason:
+        return B, [none_result(mid, e, reason, name, B) for e in effects]
+    return B, None
+
+
+def _results(mid, name, effects, Cs, obs, star, B, seed, b, alpha, extra_common, notes_common, df1s):
+    out = []
+    for i, e in enumerate(effects):
+        pinfo = resampled_p(star[:, i], float(obs[i]), alpha=alpha)
+        extra = {**extra_common, "count": pinfo["count"], "settled": pinfo["settled"], "seed": seed,
+                 "chunk_size": b, "p_interval_level": P_INTERVAL_LEVEL, "tie_rtol": TIE_RTOL}
+        notes = [_HYP[e], *notes_common, *p_notes(pinfo, B, alpha)]
+        out.append(MethodResult(
+            id=mid, effect=e, statistic=float(obs[i]), statistic_name=name, df1=float(df1s[i]), df2=None,
+            p=pinfo["p"], resamples=B, mc_se=pinfo["mc_se"], p_interval=pinfo["p_interval"],
+            valid_for_interaction=True, notes=tuple(notes), extra=extra))
+    return out
+
+
+def _split_estimable(fit, effects, mid, name, B):
+    """Hypothesis matrices for the estimable effects, reasons for the others."""
+    Cs, ok, skipped = [], [], {}
+    for e in effects:
+        C, reason = effect_hypothesis(fit.cells, e)
+        if C is None:
+            skipped[e] = none_result(mid, e, reason, name, B)
+        else:
+            Cs.append(C)
+            ok.append(e)
+    return Cs, ok, skipped
+
+
+def _merge(effects, done: list[MethodResult], skipped: dict) -> tuple[MethodResult, ...]:
+    by = {r.effect: r for r in done}
+    by.update(skipped)
+    return tuple(by[e] for e in effects)
+
+
+def _cell_sums(u_sorted, layout, squares=False):
+    S = np.add.reduceat(u_sorted[None, :], layout.starts, axis=1)
+    SQ = np.add.reduceat((u_sorted * u_sorted)[None, :], layout.starts, axis=1) if squares else None
+    return S, SQ
+
+
+def _freedman_lane(fit, effects, resamples, seed, progress, budget=None):
+    mid, name = "permutation-freedman-lane", "F"
+    B, early = _checks(fit, effects, resamples, mid, name, need_two=None)
+    if early:
+        return tuple(early)
+    Cs, ok, skipped = _split_estimable(fit, effects, mid, name, B)
+    layout = layout_from_fit(fit)
+    y_sorted = np.asarray(fit.obs.y, dtype=float)[layout.order]
+    means = fit.cells.means.ravel()[layout.filled]
+    cs = layout.cell_sorted
+    kw = {} if budget is None else {"budget": budget}
+    done = []
+    prog = progress_fn(progress, mid, B * len(ok))
+    for i, (e, C) in enumerate(zip(ok, Cs)):
+        rng, seed_rec = seed_value(seed)                       # same permutations for every effect
+        mu_r = restricted_cell_fit(means, layout.counts, C)
+        u = y_sorted - mu_r[cs]
+        fn = f_statistic_maker(layout, [C], float(u @ u))
+        obs = fn(*_cell_sums(u, layout))[0]
+        sub = None if prog is None else (lambda d, t, i=i: prog(i * B + d, B * len(ok)))
+        star = resample_statistics(u, layout, fn, scheme="permute", resamples=B, rng=rng, progress=sub, **kw)
+        extra = {"df_error": int(layout.N - layout.m), "scheme": "permute restricted-model residuals",
+                 "robust_to_unequal_variances": False}
+        notes = [f"Freedman-Lane: residuals of the model restricted by the hypothesis "
+                 f"({'the additive model A + B' if e == 'AB' else 'the full model without ' + e}) permuted and "
+                 "added back to its fitted values; statistic: the classical F", _EXCHANGE]
+        done += _results(mid, name, [e], [C], obs, star, B, seed_rec, chunk_size(layout.N, B, squares=False,
+                         **kw), fit.alpha, extra, notes, [C.shape[0]])
+    return _merge(effects, done, skipped)
+
+
+def _ter_braak(fit, effects, resamples, seed, progress, budget=None):
+    mid, name = "permutation-ter-braak", "F"
+    B, early = _checks(fit, effects, resamples, mid, name, need_two=None)
+    if early:
+        return tuple(early)
+    Cs, ok, skipped = _split_estimable(fit, effects, mid, name, B)
+    if not ok:
+        return _merge(effects, [], skipped)
+    layout = layout_from_fit(fit)
+    y_sorted = np.asarray(fit.obs.y, dtype=float)[layout.order]
+    means = fit.cells.means.ravel()[layout.filled]
+    u = y_sorted - means[layout.cell_sorted]
+    fn = f_statistic_maker(layout, Cs, float(u @ u))
+    # observed statistic: the classical F of the data (residual permutation of the full model)
+    y_c = y_sorted - float(np.mean(y_sorted))
+    obs = f_statistic_maker(layout, Cs, float(y_c @ y_c))(*_cell_sums(y_c, layout))[0]
+    rng, seed_rec = seed_value(seed)
+    kw = {} if budget is None else {"budget": budget}
+    star = resample_statistics(u, layout, fn, scheme="permute", resamples=B, rng=rng,
+                               progress=progress_fn(progress, mid, B), **kw)
+    extra = {"df_error": int(layout.N - layout.m), "scheme": "permute full-model residuals",
+             "robust_to_unequal_variances": False}
+    notes = ["ter Braak: residuals of the full model permuted; statistic: the classical F", _EXCHANGE]
+    done = _results(mid, name, ok, Cs, obs, star, B, seed_rec, chunk_size(layout.N, B, squares=False, **kw),
+                    fit.alpha, extra, notes, [C.shape[0] for C in Cs])
+    return _merge(effects, done, skipped)
+
+
+def _studentized(fit, effects, resamples, seed, progress, budget=None):
+    mid, name = "permutation-studentized", "T"
+    B, early = _checks(fit, effects, resamples, mid, name,
+                       need_two="the studentized statistic (cell variances s2/n)")
+    if early:
+        return tuple(early)
+    Cs, ok, skipped = _split_estimable(fit, effects, mid, name, B)
+    if not ok:
+        return _merge(effects, [], skipped)
+    layout = layout_from_fit(fit)
+    y_sorted = np.asarray(fit.obs.y, dtype=float)[layout.order]
+    u = y_sorted - float(np.mean(y_sorted))
+    scale = float(u @ u) / layout.N
+    fn = wald_statistic_maker(layout, Cs, kind="hc2", scale=scale)
+    obs = fn(*_cell_sums(u, layout, squares=True))[0]
+    rng, seed_rec = seed_value(seed)
+    kw = {} if budget is None else {"budget": budget}
+    star = resample_statistics(u, layout, fn, scheme="permute", resamples=B, rng=rng, squares=True,
+                               progress=progress_fn(progress, mid, B), **kw)
+    extra = {"scheme": "permute the whole response", "robust_to_unequal_variances": True}
+    notes = ["studentized permutation (Pauly, Brunner & Konietschke 2015): the whole response permuted; statistic: "
+             "the Welch-James Wald-type T (HC2 Wald chi-square, cell variances s2/n); asymptotically valid with "
+             "unequal variances and unequal cell sizes"]
+    done = _results(mid, name, ok, Cs, obs, star, B, seed_rec, chunk_size(layout.N, B, squares=True, **kw),
+                    fit.alpha, extra, notes, [C.shape[0] for C in Cs])
+    return _merge(effects, done, skipped)
+
+
+# --------------------------------------------------------------------------- public API
+
+def freedman_lane(fit: Fit, *, effect: str = "AB", resamples: int = 9999, seed: int | None = None,
+                  progress=None) -> MethodResult:
+    """Freedman-Lane permutation test of one effect (default method).
+
+    Parameters
+    ----------
+    fit : Fit
+        Data mode (raw observations needed).
+    effect : 'A', 'B' or 'AB'
+    resamples : int
+        B, the number of permutations (default 9999).
+    seed : int or None
+        ``np.random.default_rng(seed)``; None draws fresh entropy, recorded in
+        ``extra['seed']``.
+    progress : None, bool or callable(done, total)
+        True shows :class:`audit.progress.TerminalProgress` on stderr.
+
+    Returns
+    -------
+    MethodResult
+        statistic: the classical F of the data; df1: its numerator df; p:
+        (1 + count)/(B + 1); ``extra``: seed, count, chunk_size, df_error,
+        settled (the 99% interval lies on one side of alpha),
+        p_interval_level, tie_rtol, scheme, robust_to_unequal_variances.
+    """
+    return _freedman_lane(fit, (effect,), resamples, seed, progress)[0]
+
+
+def freedman_lane_all(fit: Fit, *, resamples: int = 9999, seed: int | None = None, progress=None,
+                      effects=EFFECTS) -> tuple[MethodResult, ...]:
+    """Freedman-Lane results for ``effects`` (default A, B, AB), same permutations for each."""
+    return _freedman_lane(fit, tuple(effects), resamples, seed, progress)
+
+
+def ter_braak(fit: Fit, *, effect: str = "AB", resamples: int = 9999, seed: int | None = None,
+              progress=None) -> MethodResult:
+    """ter Braak permutation test (full-model residuals permuted); see :func:`freedman_lane`."""
+    return _ter_braak(fit, (effect,), resamples, seed, progress)[0]
+
+
+def ter_braak_all(fit: Fit, *, resamples: int = 9999, seed: int | None = None, progress=None,
+                  effects=EFFECTS) -> tuple[MethodResult, ...]:
+    """ter Braak results for ``effects`` from one shared set of permutations."""
+    return _ter_braak(fit, tuple(effects), resamples, seed, progress)
+
+
+def studentized_permutation(fit: Fit, *, effect: str = "AB", resamples: int = 9999, seed: int | None = None,
+                            progress=None) -> MethodResult:
+    """Studentized permutation test (whole response permuted, Welch-James T).
+
+    statistic: T of the data (statistic_name 'T'); needs n >= 2 and nonzero
+    variance in every filled cell.  Other fields as :func:`freedman_lane`.
+    """
+    return _studentized(fit, (effect,), resamples, seed, progress)[0]
+
+
+def studentized_permutation_all(fit: Fit, *, resamples: int = 9999, seed: int | None = None, progress=None,
+                                effects=EFFECTS) -> tuple[MethodResult, ...]:
+    """Studentized permutation results for ``effects`` from one shared set of permutations."""
+    return _studentized(fit, tuple(effects), resamples, seed, progress)

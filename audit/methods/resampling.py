@@ -1,0 +1,423 @@
+"""Resampling engine shared by the permutation tests and the wild bootstrap.
+
+Every statistic these methods need is a function of per-cell sums (and, for
+the studentized statistics, per-cell sums of squares) of a resampled vector u*
+of length N.  The engine therefore
+
+* sorts the observations by cell once, so that every cell is one contiguous
+  block of columns;
+* draws a chunk of ``b`` resamples at a time as a (b, N) float array - a row is
+  either a random permutation of u (``rng.permuted`` row by row, Fisher-Yates)
+  or u times Rademacher signs (bits of the generator's raw 64-bit output);
+* forms the cell sums of the whole chunk with one ``np.add.reduceat`` along the
+  rows, and the statistics from those (b, m) sums with small precomputed
+  matrices: no Python loop per resample and no model refit per resample.
+
+The chunk size is chosen from a fixed memory budget (:data:`CHUNK_BYTES`), so
+memory stays bounded whatever B and N are.
+
+Reproducibility: ``seed`` goes to ``np.random.default_rng(seed)``.  Both
+schemes consume the generator row by row, so the same seed gives the same
+resamples - and the same p-value - whatever the chunk size (checked in the
+tests); across numpy versions or platforms the stream may differ.
+
+Statistics (cells restricted to the m filled ones, n_c their sizes, C an
+r x m hypothesis matrix on the cell means, z_c = S_c / sqrt(n_c)):
+
+* classical F: SS_H = || G z ||^2 with G an orthonormal basis of the row space
+  of C diag(n)^(-1/2) (this is the Wald form (C ybar)'(C D C')^-1 (C ybar),
+  D = diag(1/n), i.e. the extra SS of the hypothesis), SSE = sum u*^2 - ||z||^2
+  (sum u*^2 does not change under permutation or sign flips), and
+  F = (SS_H / r) / (SSE / (N - m)).
+* Welch-James T (HC2) and HC3 Wald: cell means S/n, within-cell SS
+  SQ - S^2/n, then the batch Wald form of :mod:`audit.methods.wald`.
+
+p-values: p = (1 + #{stat* >= stat_obs}) / (B + 1) (Phipson & Smyth 2010);
+resampled statistics within a relative 1e-9 of the observed one count as ties
+(>=), so rounding never decides a tie (common practice).
+
+References
+----------
+.. [1] Phipson, B. & Smyth, G. K. (2010). Permutation p-values should never be
+       zero. Statistical Applications in Genetics and Molecular Biology 9(1).
+.. [2] Clopper, C. J. & Pearson, E. S. (1934). The use of confidence or
+       fiducial limits illustrated in the case of the binomial. Biometrika 26.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+from scipy import stats
+
+from ..core import type3_contrasts
+from ..errors import OptionError
+from ..fit import Fit
+from ..results import MethodResult
+
+__all__ = [
+    "CHUNK_BYTES",
+    "P_INTERVAL_LEVEL",
+    "TIE_RTOL",
+    "Layout",
+    "layout_from_fit",
+    "effect_hypothesis",
+    "restricted_cell_fit",
+    "restricted_leverage",
+    "f_statistic_maker",
+    "wald_statistic_maker",
+    "resample_statistics",
+    "resampled_p",
+    "clopper_pearson",
+    "check_resamples",
+    "chunk_size",
+]
+
+#: memory budget for one chunk of resamples (bytes)
+CHUNK_BYTES = 64 * 2**20
+#: level of the Clopper-Pearson interval reported for every resampled p
+P_INTERVAL_LEVEL = 0.99
+#: resampled statistics within this relative distance of the observed one count as ties
+TIE_RTOL = 1e-9
+
+
+@dataclass(frozen=True, kw_only=True)
+class Layout:
+    """Observations sorted by cell, with the filled cells' block structure.
+
+    Attributes
+    ----------
+    order : ndarray (N,)
+        Indices that sort the observations by cell (stable).
+    filled : ndarray (m,)
+        j-major indices (0 .. J*K-1) of the non-empty cells.
+    counts : ndarray (m,) of float
+        Sizes of the filled cells.
+    starts : ndarray (m,)
+        Start of each cell's block in the sorted order.
+    N : int
+    """
+
+    order: np.ndarray
+    filled: np.ndarray
+    counts: np.ndarray
+    starts: np.ndarray
+    N: int
+
+    @property
+    def m(self) -> int:
+        return int(self.filled.size)
+
+    @property
+    def cell_sorted(self) -> np.ndarray:
+        """Filled-cell position (0 .. m-1) of each sorted observation."""
+        return np.repeat(np.arange(self.m), self.counts.astype(np.int64))
+
+
+def layout_from_fit(fit: Fit) -> Layout:
+    cell = np.asarray(fit.obs.cell, dtype=np.int64)
+    n_all = fit.cells.counts.ravel()
+    filled = np.flatnonzero(n_all > 0)
+    counts = n_all[filled].astype(float)
+    starts = np.concatenate([[0], np.cumsum(n_all[filled])[:-1]]).astype(np.intp)
+    order = np.argsort(cell, kind="stable")
+    return Layout(order=order, filled=filled, counts=counts, starts=starts, N=int(cell.size))
+
+
+# --------------------------------------------------------------------------- hypotheses
+
+def _additive_columns(J: int, K: int) -> np.ndarray:
+    """Cell-level design of the additive model (intercept, A and B indicators)."""
+    ones = np.ones((J * K, 1))
+    a = np.kron(np.eye(J), np.ones((K, 1)))
+    b = np.kron(np.ones((J, 1)), np.eye(K))
+    return np.hstack([ones, a, b])
+
+
+def effect_hypothesis(cells, effect: str) -> tuple[np.ndarray | None, str | None]:
+    """Hypothesis matrix C (r x m, on the filled cells) for effect 'A', 'B' or 'AB'.
+
+    With every cell filled these are the Type III contrasts C_A, C_B, C_AB of
+    METHODS.md section 1.  With empty cells the interaction hypothesis is
+    "the filled cell means follow the additive model": C spans the orthogonal
+    complement of the additive columns on the filled cells (m - J - K + 1 rows
+    when connected, the df of the classical interaction F); main effects get
+    None and a reason (their Type III hypotheses need every cell).
+    """
+    J, K = cells.J, cells.K
+    filled = cells.counts.ravel() > 0
+    if filled.all():
+        return type3_contrasts(J, K)[effect], None
+    if effect != "AB":
+        return None, (f"not computed: the Type III hypothesis of main effect {effect} compares unweighted "
+                      f"marginal means, which need every cell filled (found {int((~filled).sum())} empty cell(s))")
+    X = _additive_columns(J, K)[filled]
+    U, s, _ = np.linalg.svd(X, full_matrices=True)
+    rank = int((s > s[0] * 1e-10).sum())
+    C = U[:, rank:].T
+    if C.shape[0] == 0:
+        return None, ("not computed: with these empty cells no interaction contrast is estimable "
+                      "(m - rank(A + B) = 0)")
+    return C, None
+
+
+def _row_basis(A: np.ndarray) -> np.ndarray:
+    """Orthonormal basis (rows) of the row space of A (full row rank assumed)."""
+    q, _ = np.linalg.qr(A.T)
+    return q.T
+
+
+def restricted_cell_fit(means: np.ndarray, counts: np.ndarray, C: np.ndarray) -> np.ndarray:
+    """Weighted least-squares fit of the cell means under C mu = 0 (weights n).
+
+    mu_r = ybar - D C' (C D C')^-1 C ybar with D = diag(1/n).  For the
+    interaction this is the additive model's fitted cell means; for a main
+    effect it is the full model with that effect removed (sum-to-zero coding).
+    """
+    d = 1.0 / counts
+    Cy = C @ means
+    M = (C * d) @ C.T
+    return means - d * (C.T @ np.linalg.solve(M, Cy))
+
+
+def restricted_leverage(counts: np.ndarray, C: np.ndarray) -> np.ndarray:
+    """Leverage h_c of an observation in cell c for the restricted model {mu: C mu = 0}.
+
+    With B a basis of the null space of C, the model's observation-level design
+    has rows b_c, so h_c = b_c' (B' W B)^-1 b_c, W = diag(n).  For the
+    interaction this is the additive model's leverage.
+    """
+    _, s, vt = np.linalg.svd(C, full_matrices=True)
+    rank = int((s > s[0] * 1e-10).sum())
+    Bn = vt[rank:].T                                    # (m, p_r)
+    G = Bn.T @ (Bn * counts[:, None])
+    return np.einsum("ij,jk,ik->i", Bn, np.linalg.inv(G), Bn)
+
+
+# --------------------------------------------------------------------------- statistics
+
+StatFn = Callable[[np.ndarray, np.ndarray | None], np.ndarray]
+
+
+def f_statistic_maker(layout: Layout, Cs: list[np.ndarray], ss_total: float) -> StatFn:
+    """Classical F of each hypothesis in ``Cs`` from cell sums of u*.
+
+    ``ss_total`` = sum u^2, invariant under permutation and sign flips.
+    Returns a function (S, SQ) -> (b, len(Cs)).
+    """
+    n = layout.counts
+    rs = np.sqrt(n)
+    Gs = [_row_basis(C / rs) for C in Cs]
+    G = np.vstack(Gs)
+    sizes = [g.shape[0] for g in Gs]
+    splits = np.cumsum(sizes)[:-1]
+    df_e = layout.N - layout.m
+
+    def fn(S, SQ=None):
+        z = S / rs
+        sse = ss_total - np.einsum("ij,ij->i", z, z)
+        sse = np.maximum(sse, ss_total * 1e-15)
+        proj = z @ G.T
+        out = np.empty((S.shape[0], len(Gs)))
+        for e, part in enumerate(np.split(proj, splits, axis=1)):
+            out[:, e] = np.einsum("ij,ij->i", part, part) / sizes[e]
+        return out / (sse / df_e)[:, None]
+
+    return fn
+
+
+def wald_statistic_maker(layout: Layout, Cs: list[np.ndarray], *, kind: str, scale: float) -> StatFn:
+    """Wald statistic of each hypothesis from cell sums and sums of squares of u*.
+
+    kind 'hc2' (the Welch-James T: v = s2 / n) or 'hc3' (v = css / (n - 1)^2,
+    reported as F = W / r).  Every filled cell needs n >= 2.  A resample with
+    (numerically) zero variance in a cell gets a tiny variance floor
+    (1e-12 of the pooled scale), which makes its statistic very large: it then
+    counts as exceeding the observed one (the conservative direction).
+    """
+    n = layout.counts
+    if kind == "hc2":
+        denom = (n - 1.0) * n
+    elif kind == "hc3":
+        denom = (n - 1.0) ** 2
+    else:
+        raise ValueError(f"kind: expected 'hc2' or 'hc3', found {kind!r}")
+    floor = max(scale, 1e-300) * 1e-12
+    divide = [C.shape[0] if kind == "hc3" else 1 for C in Cs]
+
+    from .wald import wald_quadratic
+
+    def fn(S, SQ):
+        means = S / n
+        css = np.maximum(SQ - S * means, 0.0)
+        v = np.maximum(css / denom, floor / n)
+        out = np.empty((S.shape[0], len(Cs)))
+        for e, C in enumerate(Cs):
+            out[:, e] = wald_quadratic(means, v, C) / divide[e]
+        return out
+
+    return fn
+
+
+# --------------------------------------------------------------------------- engine
+
+def check_resamples(resamples) -> int:
+    try:
+        B = int(resamples)
+    except (TypeError, ValueError):
+        raise OptionError(f"resamples: expected a whole number >= 1, found {resamples!r}; try 9999") from None
+    if B != resamples or B < 1:
+        raise OptionError(f"resamples: expected a whole number >= 1, found {resamples!r}; try 9999")
+    return B
+
+
+def chunk_size(N: int, B: int, *, squares: bool, budget: int = CHUNK_BYTES) -> int:
+    """Resamples per chunk: one or two (b, N) float arrays within ``budget`` bytes."""
+    per_row = 8 * N * (3 if squares else 2)
+    return int(max(1, min(B, budget // max(per_row, 1))))
+
+
+def resample_statistics(
+    u_sorted: np.ndarray,
+    layout: Layout,
+    statistic: StatFn,
+    *,
+    scheme: str,
+    resamples: int,
+    rng: np.random.Generator,
+    squares: bool = False,
+    budget: int = CHUNK_BYTES,
+    progress: Callable[[int, int], None] | None = None,
+) -> np.ndarray:
+    """Statistics of B resamples of u (sorted by cell), chunk by chunk.
+
+    Parameters
+    ----------
+    u_sorted : ndarray (N,)
+        The vector to resample, in cell-sorted order.
+    statistic : callable (S, SQ) -> (b, e)
+        From cell sums S (b, m) and, when ``squares``, sums of squares SQ.
+    scheme : 'permute' (u*_r = a random permutation of u, row by row) or
+        'sign' (u*_r = u times independent Rademacher signs).
+    progress : callable (done, total), optional
+
+    Returns
+    -------
+    ndarray (B, e)
+    """
+    B = resamples
+    N = u_sorted.size
+    b = chunk_size(N, B, squares=squares, budget=budget)
+    starts = layout.starts
+    out = None
+    done = 0
+    if scheme == "sign":
+        nwords = (N + 63) // 64
+    buf = np.empty((b, N))
+    while done < B:
+        bb = min(b, B - done)
+        W = buf[:bb]
+        if scheme == "permute":
+            W[...] = u_sorted
+            rng.permuted(W, axis=1, out=W)
+        elif scheme == "sign":
+            raw = rng.bit_generator.random_raw((bb, nwords))
+            bits = np.unpackbits(raw.view(np.uint8), axis=1, count=N, bitorder="little").view(bool)
+            np.copyto(W, u_sorted)
+            np.negative(W, out=W, where=bits)
+        else:
+            raise ValueError(f"scheme: expected 'permute' or 'sign', found {scheme!r}")
+        S = np.add.reduceat(W, starts, axis=1)
+        SQ = None
+        if squares:
+            np.square(W, out=W)
+            SQ = np.add.reduceat(W, starts, axis=1)
+        st = statistic(S, SQ)
+        if out is None:
+            out = np.empty((B, st.shape[1]))
+        out[done:done + bb] = st
+        done += bb
+        if progress is not None:
+            progress(done, B)
+    return out
+
+
+def clopper_pearson(k: int, n: int, level: float = P_INTERVAL_LEVEL) -> tuple[float, float]:
+    """Exact (Clopper-Pearson) interval for a binomial proportion k / n."""
+    a = 1.0 - level
+    lo = 0.0 if k == 0 else float(stats.beta.ppf(a / 2, k, n - k + 1))
+    hi = 1.0 if k == n else float(stats.beta.ppf(1 - a / 2, k + 1, n - k))
+    return lo, hi
+
+
+def resampled_p(stat_star: np.ndarray, stat_obs: float, *, alpha: float | None = None) -> dict:
+    """p = (1 + count) / (B + 1), its Monte Carlo SE and 99% Clopper-Pearson interval.
+
+    ``count`` = #{stat* >= stat_obs (1 - 1e-9)}.  The interval is the exact
+    binomial interval of count / B, i.e. for the p-value an infinite number of
+    resamples would give; the MC SE is sqrt(p (1 - p) / B).  When ``alpha`` is
+    given, ``settled`` says whether the interval lies wholly on one side of it.
+    """
+    B = int(stat_star.size)
+    thr = stat_obs - TIE_RTOL * abs(stat_obs)
+    k = int(np.count_nonzero(stat_star >= thr))
+    p = (1.0 + k) / (B + 1.0)
+    lo, hi = clopper_pearson(k, B)
+    out = {"p": p, "count": k, "mc_se": float(np.sqrt(p * (1.0 - p) / B)), "p_interval": (lo, hi)}
+    if alpha is not None:
+        out["settled"] = bool(hi < alpha or lo > alpha)
+    return out
+
+
+# --------------------------------------------------------------------------- results
+
+def seed_value(seed) -> tuple[np.random.Generator, int | list | None]:
+    """A fresh generator for ``seed`` and a JSON-safe record of the seed.
+
+    With ``seed=None`` fresh entropy is drawn and recorded, so the run can be
+    repeated by passing the recorded value back.
+    """
+    if isinstance(seed, np.random.Generator):
+        raise OptionError("seed: expected an integer (or None), found a Generator; pass an integer seed")
+    if seed is None:
+        seed = int(np.random.SeedSequence().entropy)
+    elif isinstance(seed, (bool, float)) or not isinstance(seed, (int, np.integer)):
+        raise OptionError(f"seed: expected a non-negative integer or None, found {seed!r}")
+    elif seed < 0:
+        raise OptionError(f"seed: expected a non-negative integer or None, found {seed!r}")
+    seed = int(seed)
+    return np.random.default_rng(seed), seed
+
+
+def progress_fn(progress, label: str, total: int):
+    """None/False: silent; True: the terminal bar; a callable: called as (done, total)."""
+    if progress is None or progress is False:
+        return None
+    if progress is True:
+        from ..progress import TerminalProgress
+
+        return TerminalProgress(label)
+    if callable(progress):
+        return progress
+    raise OptionError(f"progress: expected True, False, None or a callable(done, total), found {progress!r}")
+
+
+def p_notes(pinfo: dict, B: int, alpha: float) -> list[str]:
+    lo, hi = pinfo["p_interval"]
+    notes = [f"p = (1 + {pinfo['count']}) / ({B} + 1) from {B} resamples; Monte Carlo SE {pinfo['mc_se']:.2g}; "
+             f"{P_INTERVAL_LEVEL:.0%} Clopper-Pearson interval for the p-value [{lo:.4g}, {hi:.4g}]"]
+    if not pinfo["settled"]:
+        notes.append(f"the {P_INTERVAL_LEVEL:.0%} interval for the p-value straddles alpha = {alpha:g}: the decision "
+                     f"is not settled at B = {B}; draw more resamples")
+    if 1.0 / (B + 1) > alpha:
+        notes.append(f"with B = {B} the smallest attainable p is {1.0 / (B + 1):.3g} > alpha: "
+                     "use more resamples")
+    return notes
+
+
+def none_result(method_id: str, effect: str, reason: str, statistic_name: str, resamples: int | None = None,
+                extra: dict | None = None) -> MethodResult:
+    return MethodResult(id=method_id, effect=effect, statistic=None, statistic_name=statistic_name, p=None,
+                        resamples=resamples, notes=(reason,), extra=extra or {})
