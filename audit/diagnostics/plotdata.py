@@ -1,0 +1,214 @@
+"""Plot coordinates for the figures (computed here; the renderer only draws).
+
+Each function returns a plain dict of JSON-serialisable lists (None, never
+NaN), or None when the figure cannot be made (stated in ``reason`` where it
+can be).  Display values are on the response's original scale (the intake
+offset added back).
+
+Constructions
+-------------
+* Cell-mean intervals: mean +/- t_{n-1, 0.975} SD / sqrt(n) per cell, from
+  that cell's own SD (so the interval does not assume equal variances); no
+  interval for n < 2.
+* Normal-quantile plot: internally studentized residuals r_i = e_i / (s
+  sqrt(1 - 1/n_cell)), s^2 = MS_E, of cells with n >= 2, against Blom (1958)
+  plotting positions Phi^-1((i - 3/8) / (n + 1/4)).  Simultaneous band: the
+  Kolmogorov band, inverting the two-sided Kolmogorov-Smirnov statistic
+  (critical value d from scipy.stats.kstwo at the chosen level): the i-th order
+  statistic must lie between Phi^-1(i/n - d) and Phi^-1((i-1)/n + d).  With
+  mean and SD estimated the band is conservative (Lilliefors 1967), so a point
+  outside it is a real departure.  Above ``max_points`` residuals the points
+  are thinned to evenly spaced ranks (all extremes kept) for drawing only.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import stats
+
+from ..fit import Fit
+from .assumptions import _num
+
+__all__ = ["cell_means_ci", "qq_points", "spread_vs_fitted", "sd_vs_n", "loo_points", "boxcox_profile"]
+
+MAX_POINTS = 5000
+
+
+def _lst(a) -> list:
+    return [_num(x) for x in np.asarray(a, dtype=float).ravel()]
+
+
+def cell_means_ci(fit: Fit, level: float = 0.95) -> dict:
+    """Cell means with per-cell t intervals, in both orientations.
+
+    Returns {response, level, interval_method, orientations: [{x_factor,
+    x_levels, trace_factor, traces: [{level, mean, lower, upper, n}]}, ...]}
+    with the first orientation having factor A on the x axis.
+    """
+    c = fit.cells
+    n = c.counts.astype(float)
+    mean = np.where(n > 0, c.display_means, np.nan)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        se = np.sqrt(c.variances / n)
+        tq = stats.t.ppf(0.5 + level / 2.0, np.where(n > 1, n - 1, np.nan))
+    lo, hi = mean - tq * se, mean + tq * se
+    orient = []
+    for axis in (0, 1):
+        # axis 0: x = A levels, traces = B levels; axis 1: swapped
+        if axis == 0:
+            xf, xl, tf, tl = c.factors[0], c.levels_a, c.factors[1], c.levels_b
+            M, L, H, Nn = mean.T, lo.T, hi.T, n.T
+        else:
+            xf, xl, tf, tl = c.factors[1], c.levels_b, c.factors[0], c.levels_a
+            M, L, H, Nn = mean, lo, hi, n
+        traces = [{"level": tl[i], "mean": _lst(M[i]), "lower": _lst(L[i]), "upper": _lst(H[i]),
+                   "n": [int(x) for x in Nn[i]]} for i in range(len(tl))]
+        orient.append({"x_factor": xf, "x_levels": list(xl), "trace_factor": tf, "traces": traces})
+    return {"response": c.response, "level": level,
+            "interval_method": f"{level:.0%} t interval from each cell's own SD; none for n < 2",
+            "orientations": orient}
+
+
+def _thin(n: int, max_points: int) -> np.ndarray:
+    if n <= max_points:
+        return np.arange(n)
+    edge = min(100, max_points // 10)
+    mid = np.linspace(edge, n - edge - 1, max_points - 2 * edge).round().astype(np.int64)
+    return np.unique(np.concatenate([np.arange(edge), mid, np.arange(n - edge, n)]))
+
+
+def qq_points(fit: Fit, level: float = 0.95, max_points: int = MAX_POINTS) -> dict | None:
+    """Normal-quantile plot of studentized residuals with a Kolmogorov band.
+
+    Returns {n, level, theoretical, sample, band_lower, band_upper, outside,
+    band_method, thinned, rows_outside} or None in summary mode.
+    """
+    if fit.obs is None or fit.anova.ms_error in (None, 0.0):
+        return None
+    counts = fit.cells.counts.ravel()
+    nc = counts[fit.obs.cell]
+    keep = nc >= 2
+    r = fit.resid_full[keep] / np.sqrt(fit.anova.ms_error * (1.0 - 1.0 / nc[keep]))
+    rows = fit.obs.rows[keep]
+    order = np.argsort(r, kind="stable")
+    rs = r[order]
+    n = rs.size
+    if n < 3:
+        return None
+    i = np.arange(1, n + 1, dtype=float)
+    theo = stats.norm.ppf((i - 0.375) / (n + 0.25))
+    d = float(stats.kstwo.ppf(level, n))
+    with np.errstate(divide="ignore"):
+        lo = stats.norm.ppf(np.clip(i / n - d, 0.0, 1.0))
+        hi = stats.norm.ppf(np.clip((i - 1) / n + d, 0.0, 1.0))
+    out = (rs < lo) | (rs > hi)
+    idx = _thin(n, max_points)
+    idx = np.union1d(idx, np.flatnonzero(out))
+    return {
+        "n": int(n), "level": level,
+        "theoretical": _lst(theo[idx]), "sample": _lst(rs[idx]),
+        "band_lower": _lst(lo[idx]), "band_upper": _lst(hi[idx]),
+        "outside": int(out.sum()),
+        "rows_outside": [int(x) for x in rows[order][out][:50]],
+        "band_method": (f"{level:.0%} simultaneous Kolmogorov band (KS critical value {d:.4f}); conservative "
+                        "with estimated mean and SD (Lilliefors 1967)"),
+        "thinned": bool(idx.size < n),
+    }
+
+
+def spread_vs_fitted(fit: Fit, max_points: int = MAX_POINTS) -> dict:
+    """Residuals against fitted cell means, and cell SD against cell mean.
+
+    Returns {response, cells: [{label, mean, sd, n}], pooled_sd, points:
+    {fitted, resid} or None (summary mode), thinned}.
+    """
+    c = fit.cells
+    cells = []
+    for j in range(c.J):
+        for k in range(c.K):
+            n = int(c.counts[j, k])
+            if n == 0:
+                continue
+            sd = float(np.sqrt(c.variances[j, k])) if n > 1 else None
+            cells.append({"label": c.cell_label(j, k), "mean": float(c.display_means[j, k]), "sd": sd, "n": n})
+    pooled = float(np.sqrt(fit.anova.ms_error)) if fit.anova.ms_error else None
+    pts, thinned = None, False
+    if fit.obs is not None:
+        N = fit.resid_full.size
+        idx = np.arange(N) if N <= max_points else np.random.default_rng(0).choice(N, max_points, replace=False)
+        thinned = N > max_points
+        pts = {"fitted": _lst(fit.fitted_full[idx] + c.offset), "resid": _lst(fit.resid_full[idx])}
+    return {"response": c.response, "cells": cells, "pooled_sd": pooled, "points": pts, "thinned": thinned}
+
+
+def sd_vs_n(fit: Fit) -> dict:
+    """Cell SD against cell size (cells with n >= 2).
+
+    Returns {response, n, sd, labels, pooled_sd, spearman}.
+    """
+    c = fit.cells
+    use = c.counts >= 2
+    n = c.counts[use].astype(float)
+    sd = np.sqrt(c.variances[use])
+    labels = [c.cell_label(j, k) for j, k in zip(*np.nonzero(use))]
+    rho = None
+    if n.size >= 3 and np.ptp(n) > 0 and np.ptp(sd) > 0:
+        rho = _num(stats.spearmanr(n, sd).statistic)
+    pooled = float(np.sqrt(fit.anova.ms_error)) if fit.anova.ms_error else None
+    return {"response": c.response, "n": [int(x) for x in n], "sd": _lst(sd), "labels": labels,
+            "pooled_sd": pooled, "spearman": rho}
+
+
+def _find(diagnostics, did: str):
+    for d in diagnostics or ():
+        if getattr(d, "id", None) == did:
+            return d
+        if isinstance(d, dict) and d.get("id") == did:
+            return d
+    return None
+
+
+def _values(d) -> dict:
+    return d.values if hasattr(d, "values") else (d.get("values") or {})
+
+
+def loo_points(diagnostics) -> dict | None:
+    """Leave-one-out interaction p-values by row, from the 'influence'
+    diagnostic (values 'loo_p', 'rows', 'alpha'); None when absent."""
+    d = _find(diagnostics, "influence")
+    if d is None:
+        return None
+    v = _values(d)
+    p, rows = v.get("loo_p"), v.get("rows")
+    if not p or not rows or len(p) != len(rows):
+        return None
+    pairs = [(int(r), float(q)) for r, q in zip(rows, p) if q is not None]
+    if not pairs:
+        return None
+    pairs.sort()
+    return {"rows": [r for r, _ in pairs], "p": [q for _, q in pairs], "alpha": v.get("alpha"),
+            "p_full": v.get("p_full"), "row_kind": v.get("row_kind")}
+
+
+def boxcox_profile(diagnostics) -> dict | None:
+    """Box-Cox profile log-likelihood from the 'scale' diagnostic (values
+    'profile_lambda', 'profile_loglik', 'lambda_hat', 'lambda_ci'); None when
+    absent."""
+    d = _find(diagnostics, "scale")
+    if d is None:
+        return None
+    v = _values(d)
+    lam, ll = v.get("profile_lambda"), v.get("profile_loglik")
+    if not lam or not ll or len(lam) != len(ll):
+        return None
+    pairs = [(float(a), float(b)) for a, b in zip(lam, ll) if a is not None and b is not None]
+    if len(pairs) < 2:
+        return None
+    ci = v.get("lambda_ci")
+    if not ci or any(x is None for x in ci):
+        ci = None
+    lmax = v.get("loglik_max")
+    if lmax is None:
+        lmax = max(b for _, b in pairs)
+    return {"lambda": [a for a, _ in pairs], "loglik": [b for _, b in pairs], "lambda_hat": v.get("lambda_hat"),
+            "lambda_ci": list(ci) if ci else None, "cutoff": lmax - float(stats.chi2.ppf(0.95, 1)) / 2.0}
