@@ -141,19 +141,28 @@ def rank_transform_all(fit: Fit) -> tuple[MethodResult, ...]:
     if fit.obs is None:
         return tuple(_no_data("rank-transform", e, valid=False) for e in EFFECTS)
     cells = _cells_of(mid_ranks(fit.obs.y), fit)
-    an = anova_two_way(cells)
-    ss_type = "III" if cells.m == cells.J * cells.K else "II"
+    full = cells.m == cells.J * cells.K
+    ss_type = "III" if full else "II"
+    if full and cells.df_within > 0:
+        # fast path: Type III F from the rank cell statistics, no effect-size intervals
+        rows = {e: (v["F"], v["p"], v["df1"], None) for e, v in type3_f(cells).items()}
+        df_e = cells.df_within
+    else:
+        an = anova_two_way(cells)
+        rows = {e: (an.tables[ss_type].row(e).F, an.tables[ss_type].row(e).p,
+                    an.tables[ss_type].row(e).df, an.tables[ss_type].row(e).note) for e in EFFECTS}
+        df_e = an.df_error
     out = []
     for e in EFFECTS:
-        row = an.tables[ss_type].row(e)
+        F, p, df1, note = rows[e]
         notes = [RT_REASON, "classical ANOVA on the mid-ranks of the response (Conover & Iman 1981), "
                             f"Type {ss_type} sums of squares"]
-        if row.note:
-            notes.append(row.note)
+        if note:
+            notes.append(note)
         out.append(MethodResult(
-            id="rank-transform", effect=e, statistic=row.F, statistic_name="F",
-            df1=float(row.df) if row.F is not None else None,
-            df2=float(an.df_error) if row.F is not None else None, p=row.p,
+            id="rank-transform", effect=e, statistic=F, statistic_name="F",
+            df1=float(df1) if F is not None else None,
+            df2=float(df_e) if F is not None else None, p=p,
             valid_for_interaction=False, notes=tuple(notes), extra={"ss_type": ss_type},
         ))
     return tuple(out)
