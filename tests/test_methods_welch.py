@@ -11,7 +11,7 @@ from numpy.testing import assert_allclose
 from scipy import stats
 from statsmodels.stats.oneway import anova_oneway
 
-from audit.core import contrast_matrix, type3_contrasts
+from audit.core import contrast_matrix
 from audit.design import cells_from_summary
 from audit.fit import fit_cells, fit_observations
 from audit.intake import load

@@ -271,7 +271,8 @@ def welch_james_trimmed(fit: Fit, *, effect: str = "AB", gamma: float = 0.2) -> 
     if out is None:
         return _degenerate(mid, effect, "not computed: the Winsorized variances leave the contrast "
                                         "covariance singular", extra={"gamma": gamma})
-    notes = [_HYP_NOTE[effect].replace("marginal means", "marginal trimmed means"),
+    notes = [_HYP_NOTE[effect].replace("marginal means", "marginal trimmed means").replace(
+                 "of the cell means", "of the trimmed cell means"),
              f"{gamma:.0%} trimmed means with Winsorized variances: tests trimmed population means, "
              "not means; resistant to heavy tails and outliers, allows unequal variances"]
     extra = {"gamma": float(gamma), "min_h": int(h.min()),
