@@ -335,3 +335,30 @@ def test_core_from_cells_equals_fit(unbalanced_3x4):
     direct = anova_two_way(cells)
     via_fit = fit_observations(obs).anova
     assert direct.to_dict() == via_fit.to_dict()
+
+
+def test_disconnected_design_uses_model_ranks():
+    # 2 x 2 with the off-diagonal cells empty: A and B are confounded. Reference: ranks and
+    # residual SS of the lstsq fits; the interaction has rank(full) - rank(A+B) = 0 df.
+    frame = orchard_frame(np.full((2, 2), 4), seed=5, empty=[(0, 1), (1, 0)])
+    obs = load(frame, response="yield_kg", factors=FACTORS)
+    an = fit_observations(obs).anova
+    r = lstsq_model_comparisons(obs)
+    assert an.df_interaction == r["full"][1] - r["A+B"][1] == 0
+    row = an.tables["I"].row("A")
+    assert row.df == r["A"][1] - r["mu"][1]
+    assert_allclose(row.ss, r["mu"][0] - r["A"][0], rtol=1e-9)
+    for typ in ("I", "II", "III"):
+        ab = an.tables[typ].row("AB")
+        assert ab.F is None and ab.p is None and ab.note
+
+
+def test_proportional_counts_types_one_and_two_agree():
+    # source: METHODS.md section 1 (Searle 1987): with proportional cell counts Types I and II
+    # give the same main-effect SS; reference values also from statsmodels anova_lm(typ=1)
+    frame = orchard_frame(np.array([[2, 4, 6], [3, 6, 9]]), seed=9)
+    an = fit_observations(load(frame, response="yield_kg", factors=FACTORS)).anova
+    for effect in ("A", "B"):
+        assert_allclose(an.tables["I"].row(effect).ss, an.tables["II"].row(effect).ss, rtol=1e-9)
+    ref = statsmodels_table(frame, "yield_kg", FACTORS, 1)
+    assert_allclose(an.tables["II"].row("A").ss, ref["A"]["sum_sq"], rtol=1e-9)
