@@ -128,6 +128,66 @@ def _anova_lines(f: Findings) -> list[str]:
     return out
 
 
+SEVERITY_WORD = {"ok": "OK", "note": "NOTE", "warning": "WARNING", "serious": "SERIOUS"}
+
+
+def _wrap(text: str, indent: str, width: int = 78) -> list[str]:
+    import textwrap
+
+    return textwrap.wrap(text, width=width, initial_indent=indent, subsequent_indent=indent) or [indent]
+
+
+def _diagnostic_lines(f: Findings) -> list[str]:
+    out = ["ASSUMPTION AND DESIGN CHECKS", RULE]
+    for d in f.diagnostics:
+        head = f"[{SEVERITY_WORD[d.severity]:>7}] {d.id}: "
+        lines = _wrap(d.summary, " " * len(head))
+        lines[0] = head + lines[0].lstrip()
+        out += lines
+    if f.fragility is not None:
+        k = f.fragility.get("deletions_to_flip")
+        rows = f.fragility.get("rows") or []
+        if k is None:
+            out.append(f"Fragility: the interaction decision did not flip within "
+                       f"{f.fragility.get('steps_tried', 'the capped number of')} greedy deletions.")
+        else:
+            out.append(f"Fragility: deleting {k} row(s) flips the interaction decision at alpha = {f.alpha:g}"
+                       f" (rows {', '.join(map(str, rows))}).")
+    return out
+
+
+_EFFECT_ORDER = {"AB": 0, "A": 1, "B": 2}
+
+
+def _method_lines(f: Findings) -> list[str]:
+    out = ["INTERACTION TEST REFITTED BY OTHER METHODS", RULE]
+    rows = []
+    notes = []
+    a, b = f.factors
+    names = {"A": a, "B": b, "AB": f"{a}:{b}"}
+    for m in sorted(f.methods, key=lambda m: _EFFECT_ORDER.get(m.effect, 9)):
+        if m.df1 is None:
+            df = "-"
+        else:
+            df = f"{_num(m.df1, 3)}, {_num(m.df2, 4)}" if m.df2 is not None else _num(m.df1, 3)
+        res = "-"
+        if m.resamples:
+            res = f"{m.resamples}"
+            if m.mc_se is not None:
+                res += f" (MC SE {m.mc_se:.4f})"
+        flag = "" if m.valid_for_interaction or m.effect != "AB" else " (not valid for AB)"
+        stat = "-" if m.statistic is None else f"{m.statistic_name} = {_num(m.statistic)}"
+        rows.append([m.id + flag, names.get(m.effect, m.effect), stat, df, _p(m.p), res])
+        if m.p is None and m.notes:
+            notes.append(f"  {m.id} ({names.get(m.effect, m.effect)}): {m.notes[0]}")
+        elif not m.valid_for_interaction and m.effect == "AB" and m.notes:
+            notes.append(f"  {m.id}: {m.notes[0]}")
+    out += _table(["Method", "Effect", "Statistic", "df", "p", "Resamples"], rows, "llrrrr")
+    for n in notes:
+        out += _wrap(n.strip(), "  ")
+    return out
+
+
 def render_text(f: Findings) -> str:
     """The terminal report: design, ANOVA tables, then the standing cautions."""
     src = f.provenance.get("input") or ("summary table" if f.mode == "summary" else "data frame")
@@ -141,6 +201,12 @@ def render_text(f: Findings) -> str:
     lines.append("")
     lines += _anova_lines(f)
     lines.append("")
+    if f.diagnostics:
+        lines += _diagnostic_lines(f)
+        lines.append("")
+    if f.methods:
+        lines += _method_lines(f)
+        lines.append("")
     lines.append("CAUTIONS")
     lines.append(RULE)
     lines += [f"- {c}" for c in f.cautions]
