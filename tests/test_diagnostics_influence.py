@@ -259,3 +259,17 @@ def test_summary_mode_is_a_note():
         assert d.severity == "note" and d.values["available"] is False
         assert "raw observations" in d.summary
         _json_ok(d)
+
+
+def test_tiny_design_reports_none_not_nan():
+    # one error df: deleting from the only replicated cell leaves no error term
+    frame = pd.DataFrame({"y": [1.0, 2.0, 3.0, 4.0, 5.0, 6.5, 7.0], "a": list("xxxyyyy"), "b": list("pqrpqrr")})
+    fit = _fit(frame, response="y", factors=("a", "b"))
+    d = influence(fit)
+    assert d.values["loo_p"][5] is None and d.values["loo_p"][6] is None
+    assert "cannot be formed after deletion" in d.summary
+    f = fragility(fit)
+    assert f.values["stopped"] == "no testable deletion left" and f.values["deletions_to_flip"] is None
+    assert outliers(fit).severity == "note"
+    for x in (d, f, outliers(fit)):
+        _json_ok(x)

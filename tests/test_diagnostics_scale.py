@@ -210,3 +210,13 @@ def test_shape_empty_cell_uses_filled_pairs_only():
     ab = s.values["a_lines_across_b"]
     assert ab["crosses"] and set(ab["crossings"][0]["between"]) == {"flour1", "flour3"}
     _json_ok(s)
+
+
+def test_boxcox_without_interior_maximum_is_a_note():
+    frame = pd.DataFrame({"volume": [1.0, 2.0, 3.0, 4.0, 5.0, 6.5, 7.0],
+                          "oven": list("xxxyyyy"), "flour": list("pqrpqrr")})
+    d = scale(_fit(frame))
+    assert d.severity == "note" and d.values["lambda_hat"] is None
+    assert "not determined" in d.summary and d.values["removable"] is False
+    assert_allclose(d.values["log_p"], _ref_ab_p(frame, np.log(frame.volume.to_numpy())), rtol=1e-9)
+    _json_ok(d)

@@ -426,11 +426,9 @@ def influence(fit, *, top: int = 10) -> Diagnostic:
     max_lr = float(lr.max()) if valid.any() else 0.0
     if fl.size:
         sev = "serious"
-        first = most[0] if most else None
         summ = (f"Influence: deleting a single observation flips the interaction decision at alpha {alpha:g} "
                 f"for {fl.size} row(s) (most influential: row {int(rows[fl[0]])}, p {_fmt_p(p0)} -> "
                 f"{_fmt_p(float(p[fl[0]]))}); the interaction conclusion rests on individual observations.")
-        del first
     elif max_lr >= 1.0:
         sev = "warning"
         summ = (f"Influence: no single deletion flips the interaction decision, but deleting row "
@@ -488,7 +486,8 @@ def fragility(fit, *, max_steps: int = FRAGILITY_MAX_STEPS) -> Diagnostic:
     (int, or None if not flipped within the cap), ``rows`` (row numbers in
     deletion order when flipped, else empty), ``rows_tried`` (the greedy
     deletions made, flipped or not), ``p_path`` (interaction p after each deletion),
-    ``max_steps``, ``cells_emptied`` (cells left empty by the deletions).
+    ``max_steps``, ``stopped`` ('flipped' | 'cap reached' | 'no testable
+    deletion left'), ``cells_emptied`` (cells left empty by the deletions).
     """
     if fit.obs is None:
         return _summary_mode("fragility")
@@ -519,11 +518,13 @@ def fragility(fit, *, max_steps: int = FRAGILITY_MAX_STEPS) -> Diagnostic:
     deleted: list[int] = []
     path: list[float] = []
     flipped = False
+    exhausted = False
     for _ in range(max_steps):
         idx = np.flatnonzero(keep)
         F, p, _d1, _d2 = loo_interaction(y_all[idx], cell_all[idx], J, K)
         valid = np.isfinite(p)
         if not valid.any():
+            exhausted = True
             break
         Fv = np.where(np.isfinite(F), F, np.inf)
         cand = np.flatnonzero(valid)
@@ -553,6 +554,10 @@ def fragility(fit, *, max_steps: int = FRAGILITY_MAX_STEPS) -> Diagnostic:
                 f"(p {_fmt_p(path[-1])}).")
         if sig0 and k <= 5:
             summ += " The interaction claim rests on very few observations."
+    elif exhausted:
+        summ = (f"Fragility: the {word} interaction decision at alpha {alpha:g} did not flip within "
+                f"{len(deleted)} greedy deletion(s); after them no further deletion leaves a testable "
+                "interaction, so the search stopped before the cap.")
     else:
         summ = (f"Fragility: the {word} interaction decision at alpha {alpha:g} did not flip within "
                 f"{len(deleted)} greedy deletion(s) (cap {max_steps}); last p {_fmt_p(path[-1] if path else None)}.")
@@ -568,5 +573,6 @@ def fragility(fit, *, max_steps: int = FRAGILITY_MAX_STEPS) -> Diagnostic:
         "rows_tried": del_rows,
         "p_path": path,
         "max_steps": max_steps,
+        "stopped": "flipped" if flipped else ("no testable deletion left" if exhausted else "cap reached"),
         "cells_emptied": emptied,
     })

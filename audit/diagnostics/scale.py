@@ -250,7 +250,7 @@ def boxcox_profile(y: np.ndarray, cell: np.ndarray, JK: int):
     """
     prof = _Profile(y, cell, JK)
     f = lambda lam: float(prof.loglik(lam)[0])  # noqa: E731
-    grid = np.linspace(-3.0, 3.0, 121)
+    grid = np.linspace(-3.0, 3.0, 61)
     ll = prof.loglik(grid)
     i = int(np.argmax(ll))
     if i in (0, grid.size - 1):
@@ -339,6 +339,17 @@ def scale(fit) -> Diagnostic:
                           values={**base, "reason": r})
     X = additive_design(J, K)
     sig_raw = raw_p < alpha
+    if abs(lam) >= _LAMBDA_LIMIT - 1e-6:
+        r = (f"the Box-Cox profile likelihood has no maximum inside [-{_LAMBDA_LIMIT:g}, {_LAMBDA_LIMIT:g}] "
+             f"(too little within-cell information: {cells.df_within} error df), so lambda is not determined")
+        z = prof.transform(np.array([0.0]))[0]
+        csorted = np.repeat(np.flatnonzero(cells.counts.ravel() > 0), prof.n.astype(np.int64))
+        log_p = interaction_test(*cell_sums(z, csorted, JK), X)[3]
+        return Diagnostic(id="scale", severity="note",
+                          summary=(f"Scale: {r}; on the log scale the interaction p is {_fmt_p(log_p)} "
+                                   f"(raw {_fmt_p(raw_p)})."),
+                          values={**base, "reason": r, "log_p": _num(log_p),
+                                  "survives_log": bool((log_p < alpha) == sig_raw) if np.isfinite(log_p) else None})
 
     def p_at(lams):
         z = prof.transform(np.atleast_1d(lams))
