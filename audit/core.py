@@ -262,15 +262,16 @@ def _row(effect, label, ss, df, ms_error, df_error, N, note=None) -> AnovaRow:
                         partial_eta_sq=None, partial_eta_sq_ci=None, partial_omega_sq=None,
                         note=note or "no within-cell error term (one observation per cell): F and p cannot be formed")
     sse = ms_error * df_error
-    if ms_error > 0:
-        F = ms / ms_error
-        p = float(stats.f.sf(F, df, df_error))
-    else:  # perfect fit within cells: any between-cell difference is infinitely significant
-        F = float("inf") if ss > 0 else 0.0
-        p = 0.0 if ss > 0 else 1.0
-    eta = ss / (ss + sse) if ss + sse > 0 else 0.0
+    if ms_error <= 0:
+        return AnovaRow(effect=effect, label=label, ss=ss, df=df, ms=ms, F=None, p=None,
+                        partial_eta_sq=1.0 if ss > 0 else None, partial_eta_sq_ci=None, partial_omega_sq=None,
+                        note=note or "no variation within cells (every observation equals its cell mean): "
+                                     "the F ratio is undefined")
+    F = ms / ms_error
+    p = float(stats.f.sf(F, df, df_error))
+    eta = ss / (ss + sse)
     omega = (ss - df * ms_error) / (ss + (N - df) * ms_error)
-    ci = partial_eta_sq_ci(F, df, df_error) if np.isfinite(F) else (1.0, 1.0)
+    ci = partial_eta_sq_ci(F, df, df_error)
     return AnovaRow(effect=effect, label=label, ss=ss, df=df, ms=ms, F=float(F), p=p,
                     partial_eta_sq=float(eta), partial_eta_sq_ci=ci, partial_omega_sq=float(omega), note=note)
 
@@ -339,8 +340,8 @@ def anova_two_way(cells: CellStats) -> AnovaResult:
         rows3 = [AnovaRow(**{**r.__dict__, "df": df}) for r, df in zip(rows3, (J - 1, K - 1))]
     ab_note = None
     if cells.m < J * K:
-        ab_note = (f"empty cells: interaction tested on {df_ab} df (m - J - K + 1), "
-                   "the same under every SS type")
+        ab_note = (f"empty cells: interaction tested on {df_ab} df (filled cells minus the additive "
+                   "model's rank; m - J - K + 1 in a connected design), the same under every SS type")
     rows3.append(_row("AB", labels["AB"], ss_ab, df_ab, ms_e, df_e, N, note=ab_note))
     rows3.append(_residual(sse, df_e, ms_e))
     tables["III"] = AnovaTable(ss_type="III", rows=tuple(rows3))

@@ -244,15 +244,17 @@ def read_table(path: str | os.PathLike):
 
 
 def _as_level_text(col) -> "np.ndarray":
-    """Factor values as text: numbers that are whole print without '.0'."""
+    """Factor values as text (None where missing): numbers that are whole print
+    without '.0'.  Converts each distinct value once, not each row."""
     import pandas as pd
 
+    codes, uniq = pd.factorize(col, sort=False, use_na_sentinel=True)
     if pd.api.types.is_float_dtype(col):
-        return np.array(
-            [None if pd.isna(v) else (str(int(v)) if float(v).is_integer() else repr(float(v))) for v in col],
-            dtype=object,
-        )
-    return np.array([None if pd.isna(v) else str(v).strip() for v in col], dtype=object)
+        texts = [str(int(v)) if float(v).is_integer() else repr(float(v)) for v in uniq]
+    else:
+        texts = [str(v).strip() for v in uniq]
+    lookup = np.array(texts + [None], dtype=object)
+    return lookup[codes]  # code -1 (missing) picks the trailing None
 
 
 def _missing_mask(col) -> np.ndarray:
