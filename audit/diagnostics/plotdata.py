@@ -17,7 +17,10 @@ Constructions
   (critical value d from scipy.stats.kstwo at the chosen level): the i-th order
   statistic must lie between Phi^-1(i/n - d) and Phi^-1((i-1)/n + d).  With
   mean and SD estimated the band is conservative (Lilliefors 1967), so a point
-  outside it is a real departure.  Above ``max_points`` residuals the points
+  outside it is a real departure.  Like the KS test it is wide in the
+  tails (the outermost few points may have no bound at all), so it shows
+  departures of the bulk; single extreme values are the job of the
+  ``outliers`` diagnostic.  Above ``max_points`` residuals the points
   are thinned to evenly spaced ranks (all extremes kept) for drawing only.
 """
 
@@ -169,7 +172,9 @@ def _find(diagnostics, did: str):
 
 
 def _values(d) -> dict:
-    return d.values if hasattr(d, "values") else (d.get("values") or {})
+    if isinstance(d, dict):
+        return d.get("values") or {}
+    return d.values or {}
 
 
 def loo_points(diagnostics) -> dict | None:
