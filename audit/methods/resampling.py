@@ -229,25 +229,33 @@ def f_statistic_maker(layout: Layout, Cs: list[np.ndarray], ss_total: float) -> 
 
 
 def wald_statistic_maker(layout: Layout, Cs: list[np.ndarray], *, kind: str, scale: float) -> StatFn:
-    """Wald statistic of each hypothesis from cell sums and sums of squares of u*.
+    """Wald-type statistic of each hypothesis from cell sums and sums of squares of u*.
 
-    kind 'hc2' (the Welch-James T: v = s2 / n) or 'hc3' (v = css / (n - 1)^2,
-    reported as F = W / r).  Every filled cell needs n >= 2.  A resample with
-    (numerically) zero variance in a cell gets a tiny variance floor
-    (1e-12 of the pooled scale), which makes its statistic very large: it then
-    counts as exceeding the observed one (the conservative direction).
+    kind
+        'hc2': the Welch-James T (v = s2 / n);
+        'hc3': the HC3 Wald F = W / r (v = css / (n - 1)^2);
+        'wj': -log of the Welch-James approximate p-value, i.e. T / c referred
+        to F(r, r (r + 2) / (3A)) (Johansen 1980) - a monotone "prepivoted"
+        form of T that corrects each resample for its own small-cell
+        heaviness; larger means more extreme, as for the others.
+    Every filled cell needs n >= 2.  A resample with (numerically) zero
+    variance in a cell gets a tiny variance floor (1e-12 of the pooled scale),
+    which makes its statistic very large: it then counts as exceeding the
+    observed one (the conservative direction).
     """
     n = layout.counts
-    if kind == "hc2":
+    if kind in ("hc2", "wj"):
         denom = (n - 1.0) * n
     elif kind == "hc3":
         denom = (n - 1.0) ** 2
     else:
-        raise ValueError(f"kind: expected 'hc2' or 'hc3', found {kind!r}")
+        raise ValueError(f"kind: expected 'hc2', 'hc3' or 'wj', found {kind!r}")
     floor = max(scale, 1e-300) * 1e-12
     divide = [C.shape[0] if kind == "hc3" else 1 for C in Cs]
 
-    from .wald import wald_quadratic
+    from scipy import special
+
+    from .wald import wald_quadratic, welch_james_a
 
     def fn(S, SQ):
         means = S / n
@@ -255,7 +263,15 @@ def wald_statistic_maker(layout: Layout, Cs: list[np.ndarray], *, kind: str, sca
         v = np.maximum(css / denom, floor / n)
         out = np.empty((S.shape[0], len(Cs)))
         for e, C in enumerate(Cs):
-            out[:, e] = wald_quadratic(means, v, C) / divide[e]
+            T = wald_quadratic(means, v, C)
+            if kind == "wj":
+                r = C.shape[0]
+                A = welch_james_a(v, n - 1.0, C)
+                c = r + 2.0 * A - 6.0 * A / (r + 2.0)
+                with np.errstate(divide="ignore"):
+                    out[:, e] = -np.log(special.fdtrc(r, r * (r + 2.0) / (3.0 * A), T / c))
+            else:
+                out[:, e] = T / divide[e]
         return out
 
     return fn
