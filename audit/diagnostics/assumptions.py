@@ -513,7 +513,10 @@ def homogeneity(fit: Fit) -> Diagnostic:
     elif matters and pairing == "positive":
         direction = "large variances in large cells: the classical F is conservative"
     v["direction"] = direction
-    if direction:
+    if r_sd is None:
+        cons = ("check that cell for tied or capped values (rounding, a floor or ceiling); the pooled error "
+                "variance hides it and a heteroscedasticity-robust test should agree")
+    elif direction:
         cons = direction + " (Box 1954; Glass, Peckham & Sanders 1972)"
     elif sev == "ok":
         cons = "no concern for the interaction F"

@@ -144,11 +144,12 @@ def balance(fit: Fit) -> Diagnostic:
         if single:
             bits.append(f"{len(single)} cell(s) with n = 1")
         if len(small) > len(single):
-            bits.append(f"{len(small) - len(single)} other cell(s) with n < {SMALL_CELL}")
+            bits.append(f"{len(small) - len(single)} {'other ' if single else ''}cell(s) with n < {SMALL_CELL}")
         if ratio > RATIO_LIMIT:
             bits.append(f"cell sizes differ by a factor of {ratio:.1f}")
-        cons = (", ".join(bits) + ": small and unequal cells make the interaction F sensitive to unequal "
-                "variances and to single observations")
+        kind = "small and unequal cells make" if cls == "unbalanced" else "small cells make"
+        cons = (", ".join(bits) + f": {kind} the interaction F sensitive to unequal variances and to single "
+                "observations")
     elif cls == "unbalanced":
         sev = "note"
         cons = f"unequal cell sizes (ratio {ratio:.2f}): {ss}"
