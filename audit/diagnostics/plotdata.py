@@ -106,7 +106,10 @@ def qq_points(fit: Fit, level: float = 0.95, max_points: int = MAX_POINTS) -> di
         hi = stats.norm.ppf(np.clip((i - 1) / n + d, 0.0, 1.0))
     out = (rs < lo) | (rs > hi)
     idx = _thin(n, max_points)
-    idx = np.union1d(idx, np.flatnonzero(out))
+    outside_idx = np.flatnonzero(out)
+    if outside_idx.size > max_points // 2:  # keep the drawing small: an even subset of the outside points
+        outside_idx = outside_idx[_thin(outside_idx.size, max_points // 2)]
+    idx = np.union1d(idx, outside_idx)
     return {
         "n": int(n), "level": level,
         "theoretical": _lst(theo[idx]), "sample": _lst(rs[idx]),
@@ -177,9 +180,13 @@ def _values(d) -> dict:
     return d.values or {}
 
 
-def loo_points(diagnostics) -> dict | None:
+def loo_points(diagnostics, max_points: int = MAX_POINTS) -> dict | None:
     """Leave-one-out interaction p-values by row, from the 'influence'
-    diagnostic (values 'loo_p', 'rows', 'alpha'); None when absent."""
+    diagnostic (values 'loo_p', 'rows', 'alpha'); None when absent.
+
+    Returns {rows, p, alpha, n, n_below_alpha, n_undefined, thinned, p_full,
+    row_kind}; above ``max_points`` rows the drawing keeps the smallest and
+    largest p-values and evenly spaced rows between (counts are of all rows)."""
     d = _find(diagnostics, "influence")
     if d is None:
         return None
@@ -191,7 +198,18 @@ def loo_points(diagnostics) -> dict | None:
     if not pairs:
         return None
     pairs.sort()
-    return {"rows": [r for r, _ in pairs], "p": [q for _, q in pairs], "alpha": v.get("alpha"),
+    alpha = v.get("alpha")
+    n_below = sum(1 for _, q in pairs if alpha is not None and q < alpha)
+    rows = np.array([r for r, _ in pairs])
+    ps = np.array([q for _, q in pairs])
+    thinned = ps.size > max_points
+    if thinned:  # keep the extremes of p (the rows that matter) and evenly spaced rows between
+        k = max_points // 4
+        order = np.argsort(ps, kind="stable")
+        keep = np.union1d(np.union1d(order[:k], order[-k:]), _thin(ps.size, max_points - 2 * k))
+        rows, ps = rows[keep], ps[keep]
+    return {"rows": rows.tolist(), "p": ps.tolist(), "alpha": alpha, "n": len(pairs), "n_below_alpha": n_below,
+            "n_undefined": len(p) - len(pairs), "thinned": bool(thinned),
             "p_full": v.get("p_full"), "row_kind": v.get("row_kind")}
 
 

@@ -116,7 +116,7 @@ def _residual_qq(fit, outdir: str) -> str | None:
     ax.set_xlabel("expected normal quantile (Blom plotting positions)")
     ax.set_ylabel(f"studentized residual of {fit.cells.response} (full model)")
     note = f"n = {d['n']}" + (", points thinned for drawing" if d["thinned"] else "")
-    ax.set_title(f"Are the residuals close to normal?\nNormal-quantile plot with a simultaneous band ({note})",
+    ax.set_title(f"Are the residuals close to normal?\nNormal-quantile plot with a simultaneous band\n({note})",
                  fontsize=11)
     ax.legend(fontsize=8, loc="upper left")
     ax.grid(True, alpha=0.3)
@@ -196,11 +196,13 @@ def _loo(fit, diagnostics, outdir: str) -> str | None:
     above = [(r, p) for r, p in zip(rows, ps) if p >= alpha]
     fig = _new_figure(9.0, 5.2)
     ax = fig.subplots()
+    n_below, n_all = d["n_below_alpha"], d["n"]
     if above:
-        ax.scatter([r for r, _ in above], [p for _, p in above], s=12, marker="o", label="p >= alpha")
+        ax.scatter([r for r, _ in above], [p for _, p in above], s=12, marker="o",
+                   label=f"p >= alpha ({n_all - n_below} of {n_all} rows)")
     if below:
         ax.scatter([r for r, _ in below], [p for _, p in below], s=22, marker="v", color="firebrick",
-                   label="p < alpha")
+                   label=f"p < alpha ({n_below} of {n_all} rows)")
     ax.axhline(alpha, color="black", linestyle="--", linewidth=1.2, label=f"alpha = {alpha:g}")
     if d.get("p_full") is not None:
         ax.axhline(max(d["p_full"], 1e-300), color="0.4", linestyle=":", linewidth=1.2,
@@ -211,7 +213,8 @@ def _loo(fit, diagnostics, outdir: str) -> str | None:
     ax.set_xlabel(f"row left out ({kind})")
     ax.set_ylabel("interaction p-value without that row (log scale)")
     ax.set_title("Does any single observation decide the interaction test?\n"
-                 "Interaction p-value with each row left out in turn", fontsize=11)
+                 "Interaction p-value with each row left out in turn"
+                 + (" (drawing thinned; counts are of all rows)" if d["thinned"] else ""), fontsize=11)
     ax.legend(fontsize=8)
     ax.grid(True, alpha=0.3, which="both")
     return _save(fig, outdir, FIGURE_FILES["loo"])
