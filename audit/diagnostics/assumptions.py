@@ -6,6 +6,11 @@ is refitted: residuals come from the fit, and the variance tests work on the
 cell groups with ``np.bincount`` (Bartlett, the SD ratio and the size/variance
 pairing need only the cell statistics, so they also work in summary mode).
 
+Residuals of the cell-means model are not independent (they sum to zero in
+each cell and carry N - m df), so normality tests on them are approximate, as
+is usual practice; they test the pooled residual distribution, which a mixture
+of unequal cell variances also makes heavy-tailed.
+
 Severity is graded by the *size* of a departure, not by p alone: with large N a
 trivial departure is "significant", with small N a large one is not.
 
@@ -297,7 +302,7 @@ def normality(fit: Fit) -> Diagnostic:
     else:
         what = f"residuals depart {'strongly' if band == 'large' else 'severely'} from normal"
         cons = ("the cells are large enough (n >= 30) for the F test's level to hold, but power is lost"
-                if clt else "the interaction F p-value may be off; compare with the rank-free robust methods")
+                if clt else "the interaction F p-value may be off; compare with the robust and resampling methods of this audit")
     tail = "; with fewer than 20 residuals the tests have little power" if low_power else ""
     summary = f"Normality: {what} ({desc}): {cons}{tail}."
     return Diagnostic(id="normality", severity=sev, summary=summary, values=v)
