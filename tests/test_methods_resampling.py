@@ -297,6 +297,16 @@ def test_studentized_all_shares_one_pass():
         assert d["p_interval"] and d["resamples"] == B_FAST and d["statistic_name"] == "T/c"
 
 
+def test_results_are_plain_json():
+    import json
+
+    fit = _fit(_moore())
+    for fn in (freedman_lane_all, ter_braak_all, studentized_permutation_all, wild_bootstrap_all):
+        for r in fn(fit, resamples=99, seed=1):
+            text = json.dumps(r.to_dict(), allow_nan=False)
+            assert json.loads(text)["id"] == r.id
+
+
 # --------------------------------------------------------------- progress
 
 def test_progress_callable_and_terminal_bar():

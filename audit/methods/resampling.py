@@ -377,7 +377,7 @@ def resampled_p(stat_star: np.ndarray, stat_obs: float, *, alpha: float | None =
     given, ``settled`` says whether the interval lies wholly on one side of it.
     """
     B = int(stat_star.size)
-    thr = stat_obs - TIE_RTOL * abs(stat_obs)
+    thr = stat_obs - TIE_RTOL * abs(stat_obs) if np.isfinite(stat_obs) else stat_obs
     k = int(np.count_nonzero(stat_star >= thr))
     p = (1.0 + k) / (B + 1.0)
     lo, hi = clopper_pearson(k, B)
