@@ -315,6 +315,9 @@ def test_progress_callable_and_terminal_bar():
     freedman_lane(fit, resamples=B_FAST, seed=1, progress=lambda d, t: calls.append((d, t)))
     assert calls and calls[-1] == (B_FAST, B_FAST)
 
+    r = freedman_lane(fit, resamples=99, seed=1, progress=True)     # stderr is not a terminal under pytest
+    assert r.p is not None
+
     class FakeTTY(io.StringIO):
         def isatty(self):
             return True

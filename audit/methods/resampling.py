@@ -29,7 +29,8 @@ r x m hypothesis matrix on the cell means, z_c = S_c / sqrt(n_c)):
   D = diag(1/n), i.e. the extra SS of the hypothesis), SSE = sum u*^2 - ||z||^2
   (sum u*^2 does not change under permutation or sign flips), and
   F = (SS_H / r) / (SSE / (N - m)).
-* Welch-James T (HC2) and HC3 Wald: cell means S/n, within-cell SS
+* Welch-James T (HC2), its approximate p-value (used to order the studentized
+  permutation) and the HC3 Wald F: cell means S/n, within-cell SS
   SQ - S^2/n, then the batch Wald form of :mod:`audit.methods.wald`.
 
 p-values: p = (1 + #{stat* >= stat_obs}) / (B + 1) (Phipson & Smyth 2010);
