@@ -15,6 +15,7 @@ from .design import cells_from_summary, describe_design
 from .findings import Findings
 from .fit import check_alpha, fit_cells, fit_observations
 from .intake import load
+from .results import Diagnostic
 
 __all__ = ["check", "check_summary"]
 
@@ -45,6 +46,12 @@ def check(
     levels: dict | None = None,
     order: str | None = None,
     unit: str | None = None,
+    resamples: int = 9999,
+    seed: int | None = None,
+    diagnostics: bool = True,
+    methods: bool = True,
+    figures: bool = False,
+    progress=None,
 ) -> Findings:
     """Audit the two-way ANOVA of a long-format dataset.
 
@@ -65,6 +72,19 @@ def check(
         Run-order column (used by the independence checks).
     unit : str, optional
         Experimental-unit column (pseudo-replication check).
+    resamples : int, default 9999
+        Resamples for each permutation / bootstrap method (0 skips them).
+    seed : int, optional
+        Seed of the resampling methods; when None a fresh one is drawn and
+        recorded in ``provenance['seed']`` so the run can be repeated.
+    diagnostics, methods : bool, default True
+        Run the assumption/design diagnostics and the alternative methods.
+    figures : bool, default False
+        Also compute the plot coordinates for the report figures
+        (``Findings.figure_data``).
+    progress : bool or callable, optional
+        Progress display for the resampling methods (True: a bar on a
+        terminal's stderr).
 
     Returns
     -------
@@ -81,15 +101,55 @@ def check(
     design = describe_design(
         fit.cells, dropped=obs.dropped.to_dict(obs.levels_a, obs.levels_b), centring=obs.centring
     )
+    return _assemble(fit, design, mode="data", source=(obs.source.path, obs.source.sha256),
+                     resamples=resamples, seed=seed, diagnostics=diagnostics, methods=methods,
+                     figures=figures, progress=progress)
+
+
+def _fragility_block(diags: tuple[Diagnostic, ...]) -> dict | None:
+    for d in diags:
+        if d.id == "fragility" and d.values.get("available", True):
+            v = d.values
+            return {"deletions_to_flip": v.get("deletions_to_flip"), "rows": v.get("rows", []),
+                    "max_steps": v.get("max_steps"), "stopped": v.get("stopped")}
+    return None
+
+
+def _assemble(fit, design, *, mode, source, resamples, seed, diagnostics, methods, figures, progress) -> Findings:
+    """Run the later stages on a fit and collect everything into Findings."""
+    from .methods import new_seed, run_methods
+
+    diags: tuple = ()
+    meths: tuple = ()
+    if diagnostics:
+        from .diagnostics import run_diagnostics
+
+        diags = run_diagnostics(fit)
+    prov = _provenance(*source)
+    if methods:
+        if seed is None and resamples and fit.has_data:
+            seed = new_seed()
+        meths = run_methods(fit, resamples=resamples, seed=seed, progress=progress)
+        prov["resamples"] = resamples
+        prov["seed"] = seed
+    fig = None
+    if figures:
+        from .diagnostics.plotdata import figure_data
+
+        fig = figure_data(fit, diags)
     return Findings(
-        mode="data",
-        alpha=alpha,
-        response=obs.response,
-        factors=obs.factors,
+        mode=mode,
+        alpha=fit.alpha,
+        response=fit.cells.response,
+        factors=fit.cells.factors,
         design=design,
         cells=fit.cells,
         anova=fit.anova,
-        provenance=_provenance(obs.source.path, obs.source.sha256),
+        diagnostics=diags,
+        methods=meths,
+        fragility=_fragility_block(diags),
+        provenance=prov,
+        figure_data=fig,
     )
 
 
@@ -102,6 +162,9 @@ def check_summary(
     n: str = "n",
     response: str = "y",
     alpha: float = 0.05,
+    diagnostics: bool = True,
+    methods: bool = True,
+    figures: bool = False,
 ) -> Findings:
     """Audit from a table of cell means, SDs and sizes (one row per cell).
 
@@ -118,6 +181,9 @@ def check_summary(
     response : str
         Name to show for the response.
     alpha : float, default 0.05
+    diagnostics, methods, figures : bool
+        As in :func:`check`; only what cell statistics support is computed
+        (the others say they need the raw data).
 
     Returns
     -------
@@ -127,13 +193,5 @@ def check_summary(
     cells = cells_from_summary(table, factors=tuple(factors), mean=mean, sd=sd, n=n, response=response)
     fit = fit_cells(cells, alpha=alpha)
     design = describe_design(cells, dropped={"total": 0, "note": "summary table: rows dropped are unknown"})
-    return Findings(
-        mode="summary",
-        alpha=alpha,
-        response=response,
-        factors=cells.factors,
-        design=design,
-        cells=cells,
-        anova=fit.anova,
-        provenance=_provenance(None, None),
-    )
+    return _assemble(fit, design, mode="summary", source=(None, None), resamples=0, seed=None,
+                     diagnostics=diagnostics, methods=methods, figures=figures, progress=None)

@@ -51,8 +51,14 @@ def build_parser() -> argparse.ArgumentParser:
                    help="level order for a factor (repeatable; default: order of first appearance)")
     c.add_argument("--order", metavar="COL", help="run-order column (independence checks)")
     c.add_argument("--unit", metavar="COL", help="experimental-unit column (pseudo-replication check)")
+    c.add_argument("--resamples", type=int, default=9999, metavar="B",
+                   help="resamples for each permutation/bootstrap method (default 9999; 0 skips them)")
+    c.add_argument("--seed", type=int, default=None,
+                   help="seed of the resampling methods (default: a fresh one, printed in the findings)")
+    c.add_argument("--no-diagnostics", action="store_true", help="skip the assumption and design checks")
+    c.add_argument("--no-methods", action="store_true", help="skip the alternative methods")
     c.add_argument("--json", metavar="PATH", help="write the findings JSON to PATH ('-' for stdout only)")
-    c.add_argument("--report", metavar="DIR", help="write report.txt, findings.json (and figures) into DIR")
+    c.add_argument("--report", metavar="DIR", help="write report.txt, findings.json and the figures into DIR")
     return p
 
 
@@ -64,6 +70,8 @@ def _run_check(args) -> int:
     findings = check(
         args.data, response=args.response, factors=tuple(args.factors), alpha=args.alpha,
         levels=dict(args.levels) or None, order=args.order, unit=args.unit,
+        resamples=args.resamples, seed=args.seed, diagnostics=not args.no_diagnostics,
+        methods=not args.no_methods, figures=bool(args.report), progress=sys.stderr.isatty(),
     )
     text = render_text(findings)
     js = findings.to_json()
@@ -77,6 +85,9 @@ def _run_check(args) -> int:
         os.makedirs(args.report, exist_ok=True)
         atomic_write_text(os.path.join(args.report, "report.txt"), text)
         atomic_write_text(os.path.join(args.report, "findings.json"), js + "\n")
+        from .render.figures import write_figures
+
+        write_figures(findings.figure_data, args.report)
     return 0
 
 

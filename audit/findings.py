@@ -68,6 +68,9 @@ class Findings:
         {'deletions_to_flip', 'rows'} in data mode.
     cautions : tuple of str
     provenance : dict
+        Tool and library versions, input SHA-256, timestamp, resamples, seed.
+    figure_data : dict or None
+        Plot coordinates for the report figures (not part of the JSON).
     """
 
     mode: str
@@ -82,6 +85,7 @@ class Findings:
     fragility: dict | None = None
     cautions: tuple[str, ...] = CAUTIONS
     provenance: dict = field(default_factory=dict)
+    figure_data: dict | None = field(default=None, repr=False, compare=False)
 
     def diagnostic(self, id: str) -> Diagnostic:
         for d in self.diagnostics:

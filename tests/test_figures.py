@@ -14,6 +14,7 @@ from audit.diagnostics import plotdata
 from audit.errors import OptionError
 from audit.fit import fit_cells, fit_observations
 from audit.intake import load
+from audit.diagnostics.plotdata import figure_data
 from audit.render.figures import FIGURE_FILES, write_figures
 from audit.results import Diagnostic
 
@@ -139,7 +140,7 @@ def test_write_all_figures(tmp_path, fit):
 
     backend = matplotlib.get_backend()
     out = tmp_path / "report"
-    paths = write_figures(fit, [_fake_influence(fit), _fake_scale()], out)
+    paths = write_figures(figure_data(fit, [_fake_influence(fit), _fake_scale()]), out)
     assert [os.path.basename(p) for p in paths] == list(FIGURE_FILES.values())
     assert all(_is_png(p) and os.path.getsize(p) > 10_000 for p in paths)
     assert not [n for n in os.listdir(out) if n.startswith(".tmp-")]  # atomic writes leave no temp files
@@ -148,14 +149,14 @@ def test_write_all_figures(tmp_path, fit):
 
 def test_figures_skip_gracefully(tmp_path, fit):
     bad = Diagnostic(id="influence", severity="ok", summary="s", values={"available": False})
-    paths = write_figures(fit, [bad], tmp_path)
+    paths = write_figures(figure_data(fit, [bad]), tmp_path)
     names = [os.path.basename(p) for p in paths]
     assert FIGURE_FILES["loo"] not in names and FIGURE_FILES["boxcox"] not in names
     assert FIGURE_FILES["residual_qq"] in names
 
 
 def test_summary_mode_figures(tmp_path, fit):
-    paths = write_figures(fit_cells(fit.cells), None, tmp_path)
+    paths = write_figures(figure_data(fit_cells(fit.cells), None), tmp_path)
     assert [os.path.basename(p) for p in paths] == [FIGURE_FILES[k] for k in ("cell_means", "spread", "sd_n")]
     assert all(_is_png(p) for p in paths)
 
@@ -164,4 +165,4 @@ def test_unusable_report_folder(tmp_path, fit):
     blocker = tmp_path / "a-file"
     blocker.write_text("x")
     with pytest.raises(OptionError, match="report folder"):
-        write_figures(fit, [], blocker / "sub")
+        write_figures(figure_data(fit, []), blocker / "sub")

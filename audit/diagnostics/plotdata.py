@@ -32,7 +32,8 @@ from scipy import stats
 from ..fit import Fit
 from .assumptions import _num
 
-__all__ = ["cell_means_ci", "qq_points", "spread_vs_fitted", "sd_vs_n", "loo_points", "boxcox_profile"]
+__all__ = ["cell_means_ci", "qq_points", "spread_vs_fitted", "sd_vs_n", "loo_points", "boxcox_profile",
+           "figure_data"]
 
 MAX_POINTS = 5000
 
@@ -235,3 +236,22 @@ def boxcox_profile(diagnostics) -> dict | None:
         lmax = max(b for _, b in pairs)
     return {"lambda": [a for a, _ in pairs], "loglik": [b for _, b in pairs], "lambda_hat": v.get("lambda_hat"),
             "lambda_ci": list(ci) if ci else None, "cutoff": lmax - float(stats.chi2.ppf(0.95, 1)) / 2.0}
+
+
+def figure_data(fit: Fit, diagnostics) -> dict:
+    """Every coordinate the report figures draw, in one JSON-friendly dict.
+
+    Keys: ``response``, ``alpha``, ``row_kind``, ``cell_means``, ``qq``,
+    ``spread``, ``sd_n``, ``loo``, ``boxcox`` (the last four may be None).
+    """
+    return {
+        "response": fit.cells.response,
+        "alpha": fit.alpha,
+        "row_kind": fit.obs.row_kind if fit.obs is not None else "line",
+        "cell_means": cell_means_ci(fit),
+        "qq": qq_points(fit),
+        "spread": spread_vs_fitted(fit),
+        "sd_n": sd_vs_n(fit),
+        "loo": loo_points(diagnostics),
+        "boxcox": boxcox_profile(diagnostics),
+    }

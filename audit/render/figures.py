@@ -1,6 +1,7 @@
 """Figures for the report folder: one PNG per question, readable without the text.
 
-Only draws; every coordinate comes from :mod:`audit.diagnostics.plotdata`.
+Only draws; every coordinate comes from :func:`audit.diagnostics.plotdata.figure_data`,
+computed by the API and carried in ``Findings.figure_data``.
 matplotlib is imported lazily and used through its object interface with the
 Agg canvas, so the global pyplot state of a caller is never touched.  Each file
 is written to a temporary name in the target folder and moved into place with
@@ -14,7 +15,6 @@ import math
 import os
 import tempfile
 
-from ..diagnostics import plotdata
 from ..errors import OptionError
 
 __all__ = ["write_figures", "FIGURE_FILES"]
@@ -59,8 +59,8 @@ def _save(fig, outdir: str, name: str) -> str:
     return final
 
 
-def _cell_means(fit, outdir: str) -> str:
-    d = plotdata.cell_means_ci(fit)
+def _cell_means(fd: dict, outdir: str) -> str:
+    d = fd["cell_means"]
     resp = d["response"]
     o1, o2 = d["orientations"]
     fig = _new_figure(12.0, 5.2)
@@ -90,8 +90,8 @@ def _cell_means(fit, outdir: str) -> str:
     return _save(fig, outdir, FIGURE_FILES["cell_means"])
 
 
-def _residual_qq(fit, outdir: str) -> str | None:
-    d = plotdata.qq_points(fit)
+def _residual_qq(fd: dict, outdir: str) -> str | None:
+    d = fd["qq"]
     if d is None:
         return None
     theo, samp = _nan(d["theoretical"]), _nan(d["sample"])
@@ -114,7 +114,7 @@ def _residual_qq(fit, outdir: str) -> str | None:
     ax.set_xlim(-lim, lim)
     ax.set_ylim(-lim, lim)
     ax.set_xlabel("expected normal quantile (Blom plotting positions)")
-    ax.set_ylabel(f"studentized residual of {fit.cells.response} (full model)")
+    ax.set_ylabel(f"studentized residual of {fd['response']} (full model)")
     note = f"n = {d['n']}" + (", points thinned for drawing" if d["thinned"] else "")
     ax.set_title(f"Are the residuals close to normal?\nNormal-quantile plot with a simultaneous band\n({note})",
                  fontsize=11)
@@ -123,8 +123,8 @@ def _residual_qq(fit, outdir: str) -> str | None:
     return _save(fig, outdir, FIGURE_FILES["residual_qq"])
 
 
-def _spread(fit, outdir: str) -> str:
-    d = plotdata.spread_vs_fitted(fit)
+def _spread(fd: dict, outdir: str) -> str:
+    d = fd["spread"]
     resp = d["response"]
     has_pts = d["points"] is not None
     fig = _new_figure(12.0 if has_pts else 6.5, 5.2)
@@ -160,8 +160,8 @@ def _spread(fit, outdir: str) -> str:
     return _save(fig, outdir, FIGURE_FILES["spread"])
 
 
-def _sd_n(fit, outdir: str) -> str | None:
-    d = plotdata.sd_vs_n(fit)
+def _sd_n(fd: dict, outdir: str) -> str | None:
+    d = fd["sd_n"]
     if len(d["n"]) < 2:
         return None
     fig = _new_figure(7.0, 5.6)
@@ -186,11 +186,11 @@ def _sd_n(fit, outdir: str) -> str | None:
     return _save(fig, outdir, FIGURE_FILES["sd_n"])
 
 
-def _loo(fit, diagnostics, outdir: str) -> str | None:
-    d = plotdata.loo_points(diagnostics)
+def _loo(fd: dict, outdir: str) -> str | None:
+    d = fd["loo"]
     if d is None:
         return None
-    alpha = d["alpha"] if d["alpha"] is not None else fit.alpha
+    alpha = d["alpha"] if d["alpha"] is not None else fd["alpha"]
     rows, ps = d["rows"], [max(p, 1e-300) for p in d["p"]]
     below = [(r, p) for r, p in zip(rows, ps) if p < alpha]
     above = [(r, p) for r, p in zip(rows, ps) if p >= alpha]
@@ -208,7 +208,7 @@ def _loo(fit, diagnostics, outdir: str) -> str | None:
         ax.axhline(max(d["p_full"], 1e-300), color="0.4", linestyle=":", linewidth=1.2,
                    label=f"p with all rows = {d['p_full']:.3g}")
     ax.set_yscale("log")
-    row_kind = d.get("row_kind") or (fit.obs.row_kind if fit.obs is not None else "line")
+    row_kind = d.get("row_kind") or fd["row_kind"]
     kind = "line number in the input file" if row_kind == "line" else "0-based row position in the data frame"
     ax.set_xlabel(f"row left out ({kind})")
     ax.set_ylabel("interaction p-value without that row (log scale)")
@@ -220,8 +220,8 @@ def _loo(fit, diagnostics, outdir: str) -> str | None:
     return _save(fig, outdir, FIGURE_FILES["loo"])
 
 
-def _boxcox(fit, diagnostics, outdir: str) -> str | None:
-    d = plotdata.boxcox_profile(diagnostics)
+def _boxcox(fd: dict, outdir: str) -> str | None:
+    d = fd["boxcox"]
     if d is None:
         return None
     fig = _new_figure(8.0, 5.4)
@@ -239,30 +239,29 @@ def _boxcox(fit, diagnostics, outdir: str) -> str | None:
     ax.axvline(0.0, color="tab:orange", linestyle=(0, (1, 1)), linewidth=1.4, label="lambda = 0 (log)")
     ax.set_xlabel("Box-Cox power lambda")
     ax.set_ylabel("profile log-likelihood of the full model")
-    ax.set_title(f"Which power transformation of {fit.cells.response} fits best?\n"
+    ax.set_title(f"Which power transformation of {fd['response']} fits best?\n"
                  "Box-Cox profile likelihood (is lambda = 1 inside the interval?)", fontsize=11)
     ax.legend(fontsize=8)
     ax.grid(True, alpha=0.3)
     return _save(fig, outdir, FIGURE_FILES["boxcox"])
 
 
-def write_figures(fit, diagnostics, outdir) -> list[str]:
+def write_figures(figure_data: dict, outdir) -> list[str]:
     """Write the report figures into ``outdir`` (created if needed).
 
     Parameters
     ----------
-    fit : audit.fit.Fit
-    diagnostics : iterable of Diagnostic (or their dicts); the 'influence'
-        and 'scale' entries feed the leave-one-out and Box-Cox figures, which
-        are skipped when those entries (or their values) are absent.
+    figure_data : dict
+        Plot coordinates from :func:`audit.diagnostics.plotdata.figure_data`
+        (``Findings.figure_data``).  The leave-one-out and Box-Cox figures are
+        skipped when their entries are None; in summary mode so are the figures
+        that need raw data.
     outdir : path
 
     Returns
     -------
     list of str
-        Paths of the PNG files written, in a fixed order.  In summary mode the
-        figures that need raw data (normal-quantile, residual panel,
-        leave-one-out) are skipped.
+        Paths of the PNG files written, in a fixed order.
     """
     outdir = os.fspath(outdir)
     try:
@@ -272,10 +271,10 @@ def write_figures(fit, diagnostics, outdir) -> list[str]:
                           "choose a writable folder") from None
     if not os.access(outdir, os.W_OK):
         raise OptionError(f"report folder {outdir!r} is not writable; choose a writable folder")
-    diagnostics = list(diagnostics or ())
-    written = [_cell_means(fit, outdir)]
-    for p in (_residual_qq(fit, outdir), _spread(fit, outdir), _sd_n(fit, outdir),
-              _loo(fit, diagnostics, outdir), _boxcox(fit, diagnostics, outdir)):
+    fd = figure_data
+    written = [_cell_means(fd, outdir)]
+    for p in (_residual_qq(fd, outdir), _spread(fd, outdir), _sd_n(fd, outdir), _loo(fd, outdir),
+              _boxcox(fd, outdir)):
         if p is not None:
             written.append(p)
     return written

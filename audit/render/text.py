@@ -140,7 +140,7 @@ def _wrap(text: str, indent: str, width: int = 78) -> list[str]:
 def _diagnostic_lines(f: Findings) -> list[str]:
     out = ["ASSUMPTION AND DESIGN CHECKS", RULE]
     for d in f.diagnostics:
-        head = f"[{SEVERITY_WORD[d.severity]:>7}] {d.id}: "
+        head = f"[{SEVERITY_WORD[d.severity]:>7}] "
         lines = _wrap(d.summary, " " * len(head))
         lines[0] = head + lines[0].lstrip()
         out += lines
@@ -149,7 +149,8 @@ def _diagnostic_lines(f: Findings) -> list[str]:
         rows = f.fragility.get("rows") or []
         if k is None:
             out.append(f"Fragility: the interaction decision did not flip within "
-                       f"{f.fragility.get('steps_tried', 'the capped number of')} greedy deletions.")
+                       f"{f.fragility.get('max_steps') or 'the capped number of'} greedy deletions"
+                       f" ({f.fragility.get('stopped') or 'cap reached'}).")
         else:
             out.append(f"Fragility: deleting {k} row(s) flips the interaction decision at alpha = {f.alpha:g}"
                        f" (rows {', '.join(map(str, rows))}).")
@@ -160,9 +161,10 @@ _EFFECT_ORDER = {"AB": 0, "A": 1, "B": 2}
 
 
 def _method_lines(f: Findings) -> list[str]:
-    out = ["INTERACTION TEST REFITTED BY OTHER METHODS", RULE]
+    out = ["THE TESTS REFITTED BY OTHER METHODS (interaction first, then main effects)", RULE]
     rows = []
     notes = []
+    last = None
     a, b = f.factors
     names = {"A": a, "B": b, "AB": f"{a}:{b}"}
     for m in sorted(f.methods, key=lambda m: _EFFECT_ORDER.get(m.effect, 9)):
@@ -177,6 +179,9 @@ def _method_lines(f: Findings) -> list[str]:
                 res += f" (MC SE {m.mc_se:.4f})"
         flag = "" if m.valid_for_interaction or m.effect != "AB" else " (not valid for AB)"
         stat = "-" if m.statistic is None else f"{m.statistic_name} = {_num(m.statistic)}"
+        if last is not None and m.effect != last:
+            rows.append([""] * 6)
+        last = m.effect
         rows.append([m.id + flag, names.get(m.effect, m.effect), stat, df, _p(m.p), res])
         if m.p is None and m.notes:
             notes.append(f"  {m.id} ({names.get(m.effect, m.effect)}): {m.notes[0]}")
