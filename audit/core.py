@@ -34,6 +34,8 @@ __all__ = [
     "AnovaResult",
     "anova_two_way",
     "additive_cell_fit",
+    "additive_design",
+    "weighted_ls_residual",
     "contrast_matrix",
     "partial_eta_sq_ci",
 ]
@@ -146,37 +148,42 @@ def contrast_matrix(L: int) -> np.ndarray:
     return np.hstack([np.eye(L - 1), -np.ones((L - 1, 1))])
 
 
-def _design_columns(J: int, K: int, terms: tuple[str, ...]) -> np.ndarray:
-    """Cell-level design matrix (J*K rows, j-major) with sum-to-zero coding."""
+def additive_design(J: int, K: int, terms: tuple[str, ...] = ("A", "B")) -> np.ndarray:
+    """Cell-level design matrix (J*K rows, j-major) with sum-to-zero coding:
+    intercept, then A contrasts and B contrasts for the terms named."""
     cols = [np.ones((J * K, 1))]
-    ca = contrast_matrix(J).T  # J x (J-1)
-    cb = contrast_matrix(K).T
     if "A" in terms:
-        cols.append(np.kron(ca, np.ones((K, 1))))
+        cols.append(np.kron(contrast_matrix(J).T, np.ones((K, 1))))
     if "B" in terms:
-        cols.append(np.kron(np.ones((J, 1)), cb))
+        cols.append(np.kron(np.ones((J, 1)), contrast_matrix(K).T))
     return np.hstack(cols)
+
+
+def weighted_ls_residual(X: np.ndarray, w: np.ndarray, target: np.ndarray) -> tuple[np.ndarray, int]:
+    """Residual of the weighted least-squares fit of ``target`` on ``X`` over the
+    rows with w > 0 (zero elsewhere), with one step of iterative refinement;
+    and the rank of the fit."""
+    keep = w > 0
+    sw = np.sqrt(w[keep])
+    Xk = X[keep]
+    Xw = Xk * sw[:, None]
+    beta, _, rank, _ = np.linalg.lstsq(Xw, target[keep] * sw, rcond=None)
+    r = target[keep] - Xk @ beta
+    r = r - Xk @ np.linalg.lstsq(Xw, r * sw, rcond=None)[0]
+    out = np.zeros_like(target, dtype=float)
+    out[keep] = r
+    return out, int(rank)
 
 
 def _weighted_fit(cells: CellStats, terms: tuple[str, ...], centre: float) -> tuple[np.ndarray, float, int]:
     """Weighted LS of cell means on a sub-model; returns (fit, Q, rank)."""
-    J, K = cells.J, cells.K
     n = cells.counts.ravel().astype(float)
     keep = n > 0
     ybar = np.where(keep, cells.means.ravel() - centre, 0.0)
-    X = _design_columns(J, K, terms)
-    w = np.sqrt(n[keep])
-    Xw = X[keep] * w[:, None]
-    beta, _, rank, _ = np.linalg.lstsq(Xw, ybar[keep] * w, rcond=None)
-    fit = np.full(J * K, np.nan)
-    fit[keep] = X[keep] @ beta
-    # one refinement step on the residual (iterative refinement)
-    r = ybar[keep] - fit[keep]
-    dbeta = np.linalg.lstsq(Xw, r * w, rcond=None)[0]
-    fit[keep] += X[keep] @ dbeta
-    r = ybar[keep] - fit[keep]
-    Q = float(np.sum(n[keep] * r * r))
-    return fit.reshape(J, K) + centre, Q, int(rank)
+    r, rank = weighted_ls_residual(additive_design(cells.J, cells.K, terms), n, ybar)
+    Q = float(np.sum(n * r * r))
+    fit = np.where(keep, ybar - r, np.nan)
+    return fit.reshape(cells.J, cells.K) + centre, Q, rank
 
 
 def additive_cell_fit(cells: CellStats) -> tuple[np.ndarray, float, int]:

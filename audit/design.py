@@ -17,6 +17,7 @@ from .errors import AuditInputError, ColumnError, FactorError, ResponseError
 
 __all__ = [
     "CellStats",
+    "cell_moments",
     "DesignSummary",
     "cells_from_observations",
     "cells_from_summary",
@@ -116,6 +117,21 @@ class CellStats:
         return f"{self.levels_a[j]} x {self.levels_b[k]}"
 
 
+def cell_moments(y: np.ndarray, cell: np.ndarray, m: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Counts, means (0 in empty cells) and centred sums of squares of ``y`` per
+    cell index 0..m-1, by ``bincount`` in two passes (the mean is corrected by
+    the mean residual before the squares are summed)."""
+    y = np.asarray(y, dtype=float)
+    n = np.bincount(cell, minlength=m)
+    nz = np.maximum(n, 1)
+    mean = np.bincount(cell, weights=y, minlength=m) / nz
+    d = y - mean[cell]
+    mean = mean + np.bincount(cell, weights=d, minlength=m) / nz
+    d = y - mean[cell]
+    css = np.bincount(cell, weights=d * d, minlength=m)
+    return n, mean, css
+
+
 def cells_from_observations(
     y: np.ndarray,
     a: np.ndarray,
@@ -130,18 +146,8 @@ def cells_from_observations(
     """Cell counts, means and centred SS by ``bincount`` (two passes)."""
     J, K = len(levels_a), len(levels_b)
     cell = np.asarray(a, dtype=np.int64) * K + np.asarray(b, dtype=np.int64)
-    y = np.asarray(y, dtype=float)
-    n = np.bincount(cell, minlength=J * K)
-    s = np.bincount(cell, weights=y, minlength=J * K)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean = np.where(n > 0, s / np.maximum(n, 1), np.nan)
-    # second pass: accumulate around the cell means, then correct the mean
-    d = y - mean[cell]
-    corr = np.bincount(cell, weights=d, minlength=J * K)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean = np.where(n > 0, mean + corr / np.maximum(n, 1), np.nan)
-    d = y - mean[cell]
-    css = np.bincount(cell, weights=d * d, minlength=J * K)
+    n, mean, css = cell_moments(y, cell, J * K)
+    mean = np.where(n > 0, mean, np.nan)
     return CellStats(
         factors=factors,
         levels_a=tuple(levels_a),

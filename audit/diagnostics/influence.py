@@ -62,7 +62,8 @@ import math
 import numpy as np
 from scipy import stats
 
-from ..core import contrast_matrix
+from ..core import additive_design, weighted_ls_residual
+from ..design import cell_moments
 from ..results import Diagnostic
 
 __all__ = [
@@ -89,40 +90,9 @@ _SUMMARY_MODE = ("needs the raw observations; only cell summaries were given, "
 # cell-level machinery shared with scale.py
 # --------------------------------------------------------------------------
 
-def additive_design(J: int, K: int) -> np.ndarray:
-    """Cell-level design matrix of the additive model (J*K rows, j-major),
-    sum-to-zero coding: intercept, A contrasts, B contrasts."""
-    ca = contrast_matrix(J).T
-    cb = contrast_matrix(K).T
-    return np.hstack([np.ones((J * K, 1)), np.kron(ca, np.ones((K, 1))), np.kron(np.ones((J, 1)), cb)])
-
-
 def cell_sums(y: np.ndarray, cell: np.ndarray, JK: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Counts, means (0 where empty) and centred SS per cell, two passes by bincount."""
-    n = np.bincount(cell, minlength=JK)
-    s = np.bincount(cell, weights=y, minlength=JK)
-    nz = np.maximum(n, 1)
-    mean = s / nz
-    d = y - mean[cell]
-    mean = mean + np.bincount(cell, weights=d, minlength=JK) / nz
-    d = y - mean[cell]
-    css = np.bincount(cell, weights=d * d, minlength=JK)
-    return n, np.where(n > 0, mean, 0.0), css
-
-
-def _wls_residual(X: np.ndarray, w: np.ndarray, target: np.ndarray) -> tuple[np.ndarray, int]:
-    """Residual of a weighted LS fit of ``target`` on ``X`` (rows with w > 0 only,
-    zero elsewhere), with one step of iterative refinement; and the rank."""
-    keep = w > 0
-    sw = np.sqrt(w[keep])
-    Xk = X[keep]
-    Xw = Xk * sw[:, None]
-    beta, _, rank, _ = np.linalg.lstsq(Xw, target[keep] * sw, rcond=None)
-    r = target[keep] - Xk @ beta
-    r = r - Xk @ np.linalg.lstsq(Xw, r * sw, rcond=None)[0]
-    out = np.zeros_like(target, dtype=float)
-    out[keep] = r
-    return out, int(rank)
+    """Counts, means (0 where empty) and centred SS per cell (see design.cell_moments)."""
+    return cell_moments(y, cell, JK)
 
 
 def _f_and_p(Q, sse, df1, df2):
@@ -156,7 +126,7 @@ def interaction_test(counts: np.ndarray, means: np.ndarray, css: np.ndarray, X: 
     w = counts.astype(float)
     filled = w > 0
     centre = float(np.sum(w * np.where(filled, means, 0.0)) / w.sum())
-    r, rank = _wls_residual(X, w, np.where(filled, means - centre, 0.0))
+    r, rank = weighted_ls_residual(X, w, np.where(filled, means - centre, 0.0))
     Q = float(np.sum(w * r * r))
     m = int(filled.sum())
     df1 = m - rank
@@ -209,7 +179,7 @@ def loo_interaction(y: np.ndarray, cell: np.ndarray, J: int, K: int, *, chunk: i
         nc = int(n[c])
         w = n.astype(float)
         w[c] -= 1.0
-        r0, rank = _wls_residual(X, w, target)
+        r0, rank = weighted_ls_residual(X, w, target)
         if nc == 1:  # the cell empties: the fit simply loses that cell
             Q = np.array([float(np.sum(w * r0 * r0))])
             sse_i = np.array([sse - css[c]])
@@ -217,7 +187,7 @@ def loo_interaction(y: np.ndarray, cell: np.ndarray, J: int, K: int, *, chunk: i
         else:
             e = np.zeros(JK)
             e[c] = 1.0
-            u, _ = _wls_residual(X, w, e)
+            u, _ = weighted_ls_residual(X, w, e)
             keep = w > 0
             r0k, uk, wk = r0[keep], u[keep], w[keep]
             d = y[idx] - mean[c]

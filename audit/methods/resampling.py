@@ -53,7 +53,7 @@ from typing import Callable
 import numpy as np
 from scipy import stats
 
-from ..core import type3_contrasts
+from ..core import additive_design, type3_contrasts
 from ..errors import OptionError
 from ..fit import Fit
 from ..results import MethodResult
@@ -129,14 +129,6 @@ def layout_from_fit(fit: Fit) -> Layout:
 
 # --------------------------------------------------------------------------- hypotheses
 
-def _additive_columns(J: int, K: int) -> np.ndarray:
-    """Cell-level design of the additive model (intercept, A and B indicators)."""
-    ones = np.ones((J * K, 1))
-    a = np.kron(np.eye(J), np.ones((K, 1)))
-    b = np.kron(np.ones((J, 1)), np.eye(K))
-    return np.hstack([ones, a, b])
-
-
 def effect_hypothesis(cells, effect: str) -> tuple[np.ndarray | None, str | None]:
     """Hypothesis matrix C (r x m, on the filled cells) for effect 'A', 'B' or 'AB'.
 
@@ -154,7 +146,7 @@ def effect_hypothesis(cells, effect: str) -> tuple[np.ndarray | None, str | None
     if effect != "AB":
         return None, (f"not computed: the Type III hypothesis of main effect {effect} compares unweighted "
                       f"marginal means, which need every cell filled (found {int((~filled).sum())} empty cell(s))")
-    X = _additive_columns(J, K)[filled]
+    X = additive_design(J, K)[filled]
     U, s, _ = np.linalg.svd(X, full_matrices=True)
     rank = int((s > s[0] * 1e-10).sum())
     C = U[:, rank:].T
