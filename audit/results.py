@@ -8,9 +8,18 @@ None with a reason in ``summary`` or ``notes``.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
-__all__ = ["SEVERITIES", "Diagnostic", "MethodResult"]
+__all__ = ["SEVERITIES", "Diagnostic", "MethodResult", "json_float"]
+
+def json_float(x) -> float | None:
+    """A JSON-safe float for ``values`` / ``extra``: None for None, NaN or inf."""
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
 
 #: severity words, mildest first; colour is never the only carrier
 SEVERITIES = ("ok", "note", "warning", "serious")

@@ -94,7 +94,7 @@ import numpy as np
 from scipy import stats
 
 from ..fit import Fit
-from ..results import Diagnostic
+from ..results import Diagnostic, json_float
 
 __all__ = [
     "normality",
@@ -119,12 +119,7 @@ PAIRING_RHO = 0.5
 _STEPS = ("ok", "note", "warning", "serious")
 
 
-def _num(x) -> float | None:
-    """A JSON-safe float: None for NaN/inf/None."""
-    if x is None:
-        return None
-    x = float(x)
-    return x if math.isfinite(x) else None
+_num = json_float
 
 
 def _step(sev: str, by: int) -> str:

@@ -64,7 +64,7 @@ from scipy import stats
 
 from ..core import additive_design, weighted_ls_residual
 from ..design import cell_moments
-from ..results import Diagnostic
+from ..results import Diagnostic, json_float
 
 __all__ = [
     "outliers",
@@ -211,12 +211,7 @@ def loo_interaction(y: np.ndarray, cell: np.ndarray, J: int, K: int, *, chunk: i
 # helpers
 # --------------------------------------------------------------------------
 
-def _num(x):
-    """JSON-safe float (None for NaN/inf)."""
-    if x is None:
-        return None
-    x = float(x)
-    return x if math.isfinite(x) else None
+_num = json_float
 
 
 def _fmt_p(p) -> str:

@@ -53,7 +53,8 @@ import numpy as np
 from scipy import optimize, stats
 
 from ..results import Diagnostic
-from .influence import _fmt_p, _num, additive_design, cell_sums, interaction_test
+from ..core import additive_design
+from .influence import _fmt_p, _num, cell_sums, interaction_test
 
 __all__ = ["shape", "scale", "boxcox_profile", "CROSSING_Z"]
 
