@@ -24,7 +24,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, stats
 
 from .design import CellStats
 
@@ -236,6 +235,8 @@ def partial_eta_sq_ci(F: float, df1: int, df2: int, *, level: float = 0.95) -> t
     Finds lambda_lo, lambda_hi with P(F' <= F_obs; lambda) = (1 + level)/2 and
     (1 - level)/2, then eta^2 = lambda / (lambda + df1 + df2 + 1) [3].
     """
+    from scipy import optimize, stats
+
     hi_q = (1 + level) / 2
     lo_q = (1 - level) / 2
 
@@ -274,6 +275,8 @@ def _row(effect, label, ss, df, ms_error, df_error, N, note=None) -> AnovaRow:
                         partial_eta_sq=1.0 if ss > 0 else None, partial_eta_sq_ci=None, partial_omega_sq=None,
                         note=note or "no variation within cells (every observation equals its cell mean): "
                                      "the F ratio is undefined")
+    from scipy import stats
+
     F = ms / ms_error
     p = float(stats.f.sf(F, df, df_error))
     eta = ss / (ss + sse)

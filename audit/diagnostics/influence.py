@@ -145,6 +145,9 @@ def loo_interaction(y: np.ndarray, cell: np.ndarray, J: int, K: int, *, chunk: i
     cell : ndarray of int (N,)
         Cell index a * K + b.
     J, K : int
+        Numbers of levels of A and B.
+    chunk : int, default 2,000,000
+        Work arrays are processed in pieces of about this many elements.
 
     Returns
     -------

@@ -306,10 +306,20 @@ def resample_statistics(
     ----------
     u_sorted : ndarray (N,)
         The vector to resample, in cell-sorted order.
+    layout : Layout
+        Cell boundaries of the sorted observations.
     statistic : callable (S, SQ) -> (b, e)
         From cell sums S (b, m) and, when ``squares``, sums of squares SQ.
     scheme : 'permute' (u*_r = a random permutation of u, row by row) or
         'sign' (u*_r = u times independent Rademacher signs).
+    resamples : int
+        B, the number of resamples.
+    rng : numpy.random.Generator
+        Source of randomness (the same generator state gives the same results).
+    squares : bool, default False
+        Also accumulate per-cell sums of squares.
+    budget : int, default CHUNK_BYTES
+        Memory budget in bytes for one chunk of resamples.
     progress : callable (done, total), optional
 
     Returns
