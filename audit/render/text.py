@@ -163,7 +163,7 @@ _EFFECT_ORDER = {"AB": 0, "A": 1, "B": 2}
 def _method_lines(f: Findings) -> list[str]:
     out = ["THE TESTS REFITTED BY OTHER METHODS (interaction first, then main effects)", RULE]
     rows = []
-    notes = []
+    notes: dict = {}
     last = None
     a, b = f.factors
     names = {"A": a, "B": b, "AB": f"{a}:{b}"}
@@ -183,13 +183,11 @@ def _method_lines(f: Findings) -> list[str]:
             rows.append([""] * 6)
         last = m.effect
         rows.append([m.id + flag, names.get(m.effect, m.effect), stat, df, _p(m.p), res])
-        if m.p is None and m.notes:
-            notes.append(f"  {m.id} ({names.get(m.effect, m.effect)}): {m.notes[0]}")
-        elif not m.valid_for_interaction and m.effect == "AB" and m.notes:
-            notes.append(f"  {m.id}: {m.notes[0]}")
+        if m.notes and (m.p is None or (not m.valid_for_interaction and m.effect == "AB")):
+            notes.setdefault((m.id, m.notes[0]), []).append(names.get(m.effect, m.effect))
     out += _table(["Method", "Effect", "Statistic", "df", "p", "Resamples"], rows, "llrrrr")
-    for n in notes:
-        out += _wrap(n.strip(), "  ")
+    for (mid, text), effects in notes.items():
+        out += _wrap(f"{mid} ({', '.join(effects)}): {text}", "  ")
     return out
 
 
@@ -214,5 +212,8 @@ def render_text(f: Findings) -> str:
         lines.append("")
     lines.append("CAUTIONS")
     lines.append(RULE)
-    lines += [f"- {c}" for c in f.cautions]
+    for c in f.cautions:
+        wrapped = _wrap(c, "  ")
+        wrapped[0] = "- " + wrapped[0].lstrip()
+        lines += wrapped
     return "\n".join(lines) + "\n"
