@@ -25,7 +25,9 @@ def _num(x, digits: int = 4) -> str:
     if x == 0:
         return "0"
     ax = abs(x)
-    if ax >= 1e6 or ax < 1e-3:
+    if 1e4 <= ax < 1e12:
+        return f"{x:,.0f}"
+    if ax >= 1e12 or ax < 1e-3:
         return f"{x:.{digits - 1}e}"
     return f"{x:.{digits}g}" if ax >= 1 else f"{x:.{digits}f}".rstrip("0").rstrip(".")
 
