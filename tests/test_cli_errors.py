@@ -99,3 +99,16 @@ def test_report_folder_written_and_input_unchanged(tmp_path):
     assert (out / "report.txt").exists() and (out / "findings.json").exists()
     assert (tmp_path / "f.json").exists()
     assert hashlib.sha256(open(src, "rb").read()).hexdigest() == before
+
+
+def test_outputs_get_ordinary_file_permissions(tmp_path):
+    # common practice: a written report is readable like any new file (0666 less the umask)
+    import stat
+
+    out = tmp_path / "f.json"
+    r = run("check", os.path.join(ROOT, "fixtures", "bakery_loaf_volume.csv"), "--response", "loaf_volume_ml",
+            "--factors", "flour", "hydration", "--no-methods", "--json", str(out))
+    assert r.returncode == 0, r.stderr
+    mask = os.umask(0)
+    os.umask(mask)
+    assert stat.S_IMODE(os.stat(out).st_mode) == 0o666 & ~mask

@@ -82,6 +82,10 @@ FRAGILITY_MAX_STEPS = 20
 #: rows listed at most in long value lists (counts are always given in full)
 _LIST_CAP = 100
 
+#: leave-one-out p-values listed one per row up to this many rows; beyond it the
+#: list keeps the extremes and evenly spaced rows (``loo_complete`` False)
+LOO_LIST_CAP = 20_000
+
 _SUMMARY_MODE = ("needs the raw observations; only cell summaries were given, "
                  "so this check was not run")
 
@@ -352,8 +356,10 @@ def influence(fit, *, top: int = 10) -> Diagnostic:
     """The interaction p-value with each observation left out (exact).
 
     values keys: ``available``, ``alpha``, ``p_full``, ``F_full``, ``df``
-    [df1, df2] of the full data, ``loo_p`` (one per kept row, data order; None
-    where the test cannot be formed), ``rows`` (row numbers, same order),
+    [df1, df2] of the full data, ``loo_p`` (one per kept row, data order, up to
+    LOO_LIST_CAP rows, else the extremes and evenly spaced rows; None where the
+    test cannot be formed), ``rows`` (row numbers, same order), ``loo_complete``,
+    ``n_loo``, ``n_loo_undefined``, ``n_loo_below_alpha`` (counts of all rows),
     ``p_min``, ``p_max``, ``n_flipping`` (single deletions that flip the
     decision), ``flipping_rows`` (up to 100), ``most_influential`` (up to
     ``top`` entries {row, cell, y, p, F, log10_ratio}, largest |log10(p_i/p)|
@@ -408,14 +414,26 @@ def influence(fit, *, top: int = 10) -> Diagnostic:
                 f"{_fmt_p(float(np.nanmax(p)) if valid.any() else None)}.")
     if (~valid).any():
         summ += f" For {int((~valid).sum())} row(s) the test cannot be formed after deletion (p listed as None)."
+    # one p per row up to LOO_LIST_CAP rows; beyond, the extremes and evenly spaced rows
+    # (counts stay those of all rows) so that the findings JSON stays small
+    if p.size > LOO_LIST_CAP:
+        from .plotdata import thin_keep_extremes
+
+        keep_idx = thin_keep_extremes(np.where(valid, p, 1.0), LOO_LIST_CAP)
+    else:
+        keep_idx = np.arange(p.size)
     return Diagnostic(id="influence", severity=sev, summary=summ, values={
         "available": True,
         "alpha": alpha,
         "p_full": p0,
         "F_full": _num(ab.F),
         "df": [int(ab.df), int(fit.anova.df_error)],
-        "loo_p": [(float(v) if ok else None) for v, ok in zip(p.tolist(), valid.tolist())],
-        "rows": [int(r) for r in rows],
+        "loo_p": [(float(p[i]) if valid[i] else None) for i in keep_idx.tolist()],
+        "rows": [int(rows[i]) for i in keep_idx.tolist()],
+        "loo_complete": bool(keep_idx.size == p.size),
+        "n_loo": int(p.size),
+        "n_loo_undefined": int((~valid).sum()),
+        "n_loo_below_alpha": int((valid & (np.where(valid, p, 1.0) < alpha)).sum()),
         "p_min": _num(np.nanmin(p)) if valid.any() else None,
         "p_max": _num(np.nanmax(p)) if valid.any() else None,
         "n_flipping": int(fl.size),

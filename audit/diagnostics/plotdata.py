@@ -32,7 +32,7 @@ from scipy import stats
 from ..fit import Fit
 from .assumptions import _num
 
-__all__ = ["cell_means_ci", "qq_points", "spread_vs_fitted", "sd_vs_n", "loo_points", "boxcox_profile",
+__all__ = ["thin_keep_extremes", "cell_means_ci", "qq_points", "spread_vs_fitted", "sd_vs_n", "loo_points", "boxcox_profile",
            "figure_data"]
 
 MAX_POINTS = 5000
@@ -79,6 +79,17 @@ def _thin(n: int, max_points: int) -> np.ndarray:
     edge = min(100, max_points // 10)
     mid = np.linspace(edge, n - edge - 1, max_points - 2 * edge).round().astype(np.int64)
     return np.unique(np.concatenate([np.arange(edge), mid, np.arange(n - edge, n)]))
+
+
+def thin_keep_extremes(values: np.ndarray, max_points: int) -> np.ndarray:
+    """Indices (sorted) of at most about ``max_points`` entries of ``values``: the
+    max_points/4 smallest, the max_points/4 largest and evenly spaced ones between."""
+    values = np.asarray(values, dtype=float)
+    if values.size <= max_points:
+        return np.arange(values.size)
+    k = max_points // 4
+    order = np.argsort(values, kind="stable")
+    return np.union1d(np.union1d(order[:k], order[-k:]), _thin(values.size, max_points - 2 * k))
 
 
 def qq_points(fit: Fit, level: float = 0.95, max_points: int = MAX_POINTS) -> dict | None:
@@ -200,17 +211,21 @@ def loo_points(diagnostics, max_points: int = MAX_POINTS) -> dict | None:
         return None
     pairs.sort()
     alpha = v.get("alpha")
-    n_below = sum(1 for _, q in pairs if alpha is not None and q < alpha)
     rows = np.array([r for r, _ in pairs])
     ps = np.array([q for _, q in pairs])
-    thinned = ps.size > max_points
-    if thinned:  # keep the extremes of p (the rows that matter) and evenly spaced rows between
-        k = max_points // 4
-        order = np.argsort(ps, kind="stable")
-        keep = np.union1d(np.union1d(order[:k], order[-k:]), _thin(ps.size, max_points - 2 * k))
+    # the influence diagnostic may already carry a thinned list; its counts are of all rows
+    complete = v.get("loo_complete", True)
+    n_all = int(v.get("n_loo", len(pairs) if complete else len(p)))
+    n_undefined = int(v.get("n_loo_undefined", len(p) - len(pairs)))
+    n_below = v.get("n_loo_below_alpha")
+    if n_below is None:
+        n_below = int(sum(1 for _, q in pairs if alpha is not None and q < alpha))
+    thinned = ps.size > max_points or not complete
+    if ps.size > max_points:  # keep the extremes of p (the rows that matter) and evenly spaced rows between
+        keep = thin_keep_extremes(ps, max_points)
         rows, ps = rows[keep], ps[keep]
-    return {"rows": rows.tolist(), "p": ps.tolist(), "alpha": alpha, "n": len(pairs), "n_below_alpha": n_below,
-            "n_undefined": len(p) - len(pairs), "thinned": bool(thinned),
+    return {"rows": rows.tolist(), "p": ps.tolist(), "alpha": alpha, "n": n_all - n_undefined,
+            "n_below_alpha": int(n_below), "n_undefined": n_undefined, "thinned": bool(thinned),
             "p_full": v.get("p_full"), "row_kind": v.get("row_kind")}
 
 

@@ -13,8 +13,8 @@ from __future__ import annotations
 
 import math
 import os
-import tempfile
 
+from .._io import atomic_write_with
 from ..errors import OptionError
 
 __all__ = ["write_figures", "FIGURE_FILES"]
@@ -47,15 +47,7 @@ def _new_figure(width: float, height: float):
 
 def _save(fig, outdir: str, name: str) -> str:
     final = os.path.join(outdir, name)
-    fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=".png", dir=outdir)
-    os.close(fd)
-    try:
-        fig.savefig(tmp, format="png", dpi=_DPI)
-        os.replace(tmp, final)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
+    atomic_write_with(final, lambda tmp: fig.savefig(tmp, format="png", dpi=_DPI), suffix=".png")
     return final
 
 
@@ -191,7 +183,9 @@ def _loo(fd: dict, outdir: str) -> str | None:
     if d is None:
         return None
     alpha = d["alpha"] if d["alpha"] is not None else fd["alpha"]
-    rows, ps = d["rows"], [max(p, 1e-300) for p in d["p"]]
+    floor = 1e-16  # p-values below this are drawn at it (double precision cannot tell them apart from 0)
+    clipped = any(p < floor for p in d["p"])
+    rows, ps = d["rows"], [max(p, floor) for p in d["p"]]
     below = [(r, p) for r, p in zip(rows, ps) if p < alpha]
     above = [(r, p) for r, p in zip(rows, ps) if p >= alpha]
     fig = _new_figure(9.0, 5.2)
@@ -205,8 +199,11 @@ def _loo(fd: dict, outdir: str) -> str | None:
                    label=f"p < alpha ({n_below} of {n_all} rows)")
     ax.axhline(alpha, color="black", linestyle="--", linewidth=1.2, label=f"alpha = {alpha:g}")
     if d.get("p_full") is not None:
-        ax.axhline(max(d["p_full"], 1e-300), color="0.4", linestyle=":", linewidth=1.2,
-                   label=f"p with all rows = {d['p_full']:.3g}")
+        ax.axhline(max(d["p_full"], floor), color="0.4", linestyle=":", linewidth=1.2,
+                   label=(f"p with all rows = {d['p_full']:.3g}" if d["p_full"] >= floor
+                          else "p with all rows < 1e-16"))
+    if clipped:
+        ax.text(0.01, 0.93, "p-values below 1e-16 are drawn at 1e-16", transform=ax.transAxes, fontsize=8)
     ax.set_yscale("log")
     row_kind = d.get("row_kind") or fd["row_kind"]
     kind = "line number in the input file" if row_kind == "line" else "0-based row position in the data frame"
