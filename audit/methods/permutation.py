@@ -55,6 +55,7 @@ from .resampling import (
     layout_from_fit,
     none_result,
     p_notes,
+    permute_shared,
     progress_fn,
     resample_statistics,
     resampled_p,
@@ -168,21 +169,24 @@ def _freedman_lane(fit, effects, resamples, seed, progress, budget=None):
     cs = layout.cell_sorted
     kw = {} if budget is None else {"budget": budget}
     done = []
-    prog = progress_fn(progress, mid, B * len(ok))
-    for i, (e, C) in enumerate(zip(ok, Cs)):
-        rng, seed_rec = seed_value(seed)                       # same permutations for every effect
+    us, fns, obs = [], [], []
+    for C in Cs:
         mu_r = restricted_cell_fit(means, layout.counts, C)
         u = y_sorted - mu_r[cs]
         fn = f_statistic_maker(layout, [C], float(u @ u))
-        obs = fn(*_cell_sums(u, layout))[0]
-        sub = None if prog is None else (lambda d, t, i=i: prog(i * B + d, B * len(ok)))
-        star = resample_statistics(u, layout, fn, scheme="permute", resamples=B, rng=rng, progress=sub, **kw)
+        us.append(u)
+        fns.append(fn)
+        obs.append(fn(*_cell_sums(u, layout))[0])
+    rng, seed_rec = seed_value(seed)  # one set of permutations, shared by every effect
+    stars = permute_shared(us, layout, fns, resamples=B, rng=rng, progress=progress_fn(progress, mid, B), **kw) \
+        if ok else []
+    for e, C, o, star in zip(ok, Cs, obs, stars):
         extra = {"df_error": int(layout.N - layout.m), "scheme": "permute restricted-model residuals",
                  "robust_to_unequal_variances": False}
         notes = [f"Freedman-Lane: residuals of the model restricted by the hypothesis "
                  f"({'the additive model A + B' if e == 'AB' else 'the full model without ' + e}) permuted and "
                  "added back to its fitted values; statistic: the classical F", _EXCHANGE]
-        done += _results(mid, name, [e], [C], obs, star, B, seed_rec, chunk_size(layout.N, B, squares=False,
+        done += _results(mid, name, [e], [C], o, star, B, seed_rec, chunk_size(layout.N, B, squares=False,
                          **kw), fit.alpha, extra, notes, [C.shape[0]])
     return _merge(effects, done, skipped)
 

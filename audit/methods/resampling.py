@@ -70,6 +70,7 @@ __all__ = [
     "f_statistic_maker",
     "wald_statistic_maker",
     "resample_statistics",
+    "permute_shared",
     "resampled_p",
     "clopper_pearson",
     "check_resamples",
@@ -361,6 +362,70 @@ def resample_statistics(
         if progress is not None:
             progress(done, B)
     return out
+
+
+def permute_shared(
+    us: list[np.ndarray],
+    layout: Layout,
+    statistics: list[StatFn],
+    *,
+    resamples: int,
+    rng: np.random.Generator,
+    budget: int = CHUNK_BYTES,
+    progress: Callable[[int, int], None] | None = None,
+) -> list[np.ndarray]:
+    """Like :func:`resample_statistics` with scheme 'permute', for several vectors
+    that must see the same permutations (one permutation of the row indices per
+    resample, then one gather per vector).
+
+    Parameters
+    ----------
+    us : list of ndarray (N,)
+        The vectors to permute, each in cell-sorted order.
+    layout : Layout
+        Cell boundaries of the sorted observations.
+    statistics : list of callable (S, SQ) -> (b, e)
+        One statistic per vector, from its cell sums.
+    resamples : int
+        B, the number of resamples.
+    rng : numpy.random.Generator
+        Source of randomness.  The permutations are exactly those that
+        :func:`resample_statistics` draws from the same generator state, so
+        the results are identical to calling it once per vector with the same
+        seed; drawing them once saves the dominant cost.
+    budget : int, default CHUNK_BYTES
+        Memory budget in bytes for one chunk (an index array and a value array).
+    progress : callable (done, total), optional
+
+    Returns
+    -------
+    list of ndarray (B, e_k)
+    """
+    B = resamples
+    N = layout.N
+    b = chunk_size(N, B, squares=False, budget=budget)
+    starts = layout.starts
+    outs: list = [None] * len(us)
+    idx = np.empty((b, N), dtype=np.intp)
+    W = np.empty((b, N))
+    base = np.arange(N, dtype=np.intp)
+    done = 0
+    while done < B:
+        bb = min(b, B - done)
+        I = idx[:bb]
+        I[...] = base
+        rng.permuted(I, axis=1, out=I)
+        for k, (u, fn) in enumerate(zip(us, statistics)):
+            Wk = W[:bb]
+            np.take(u, I, out=Wk)
+            st = fn(np.add.reduceat(Wk, starts, axis=1), None)
+            if outs[k] is None:
+                outs[k] = np.empty((B, st.shape[1]))
+            outs[k][done:done + bb] = st
+        done += bb
+        if progress is not None:
+            progress(done, B)
+    return outs
 
 
 def clopper_pearson(k: int, n: int, level: float = P_INTERVAL_LEVEL) -> tuple[float, float]:
