@@ -338,3 +338,22 @@ def test_progress_callable_and_terminal_bar():
     for d in range(1, 11):
         bar(d * 100, 1000)
     assert fast.getvalue() == ""
+
+
+def test_shared_permutations_equal_one_pass_per_vector():
+    # common practice: permuting row indices once and gathering each vector gives exactly
+    # the permutations a per-vector shuffle draws from the same generator state
+    from audit.methods.resampling import Layout, permute_shared, resample_statistics
+
+    rng0 = np.random.default_rng(5)
+    counts = np.array([4, 7, 5, 6])
+    starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    N = int(counts.sum())
+    layout = Layout(order=np.arange(N), filled=np.arange(4), counts=counts.astype(float), starts=starts, N=N)
+    us = [rng0.normal(size=N), rng0.normal(size=N)]
+    fn = lambda S, SQ: S  # noqa: E731  cell sums themselves
+    shared = permute_shared(us, layout, [fn, fn], resamples=37, rng=np.random.default_rng(9), budget=8 * N * 2 * 5)
+    for u, got in zip(us, shared):
+        ref = resample_statistics(u, layout, fn, scheme="permute", resamples=37, rng=np.random.default_rng(9),
+                                  budget=8 * N * 2 * 3)
+        np.testing.assert_array_equal(got, ref)
