@@ -188,6 +188,9 @@ def _method_lines(f: Findings) -> list[str]:
         if m.notes and (m.p is None or (not m.valid_for_interaction and m.effect == "AB")):
             notes.setdefault((m.id, m.notes[0]), []).append(names.get(m.effect, m.effect))
     out += _table(["Method", "Effect", "Statistic", "df", "p", "Resamples"], rows, "llrrrr")
+    if f.provenance.get("seed") is not None and any(m.resamples for m in f.methods):
+        out.append(f"Resampled p-values: B = {f.provenance.get('resamples')} per method, seed "
+                   f"{f.provenance['seed']} (repeat the run with --seed {f.provenance['seed']}).")
     for (mid, text), effects in notes.items():
         out += _wrap(f"{mid} ({', '.join(effects)}): {text}", "  ")
     return out
