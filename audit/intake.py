@@ -18,7 +18,7 @@ import csv
 import hashlib
 import math
 import os
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from decimal import Decimal, InvalidOperation, localcontext
 
 import numpy as np

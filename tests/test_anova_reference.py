@@ -6,7 +6,6 @@ explicit least-squares model comparisons done here with numpy.linalg.lstsq.
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
 import pytest
 from numpy.testing import assert_allclose
 from scipy import stats

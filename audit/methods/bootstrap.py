@@ -34,10 +34,9 @@ import numpy as np
 
 from ..fit import Fit
 from ..results import MethodResult
-from .permutation import _cell_sums, _checks, _merge, _results, _split_estimable
+from .permutation import _cell_sums, _merge, _prepare, _results
 from .resampling import (
     chunk_size,
-    layout_from_fit,
     progress_fn,
     resample_statistics,
     restricted_cell_fit,
@@ -52,14 +51,11 @@ __all__ = ["wild_bootstrap", "wild_bootstrap_all"]
 
 def _wild(fit, effects, resamples, seed, progress, budget=None):
     mid, name = "wild-bootstrap", "F"
-    B, early = _checks(fit, effects, resamples, mid, name,
-                       need_two="the HC3 statistic (a cell with n = 1 has leverage 1/n = 1, weight 0/0)")
-    if early:
-        return tuple(early)
-    Cs, ok, skipped = _split_estimable(fit, effects, mid, name, B)
-    layout = layout_from_fit(fit)
-    y_sorted = np.asarray(fit.obs.y, dtype=float)[layout.order]
-    means = fit.cells.means.ravel()[layout.filled]
+    early, st = _prepare(fit, effects, resamples, mid, name,
+                         need_two="the HC3 statistic (a cell with n = 1 has leverage 1/n = 1, weight 0/0)")
+    if early is not None:
+        return early
+    B, Cs, ok, skipped, layout, y_sorted, means = st
     cs = layout.cell_sorted
     n = layout.counts
     kw = {} if budget is None else {"budget": budget}

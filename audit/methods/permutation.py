@@ -41,6 +41,8 @@ References
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numpy as np
 
 from ..fit import Fit
@@ -151,6 +153,34 @@ def _merge(effects, done: list[MethodResult], skipped: dict) -> tuple[MethodResu
     return tuple(by[e] for e in effects)
 
 
+class _Setup(NamedTuple):
+    """What every resampling method needs once its inputs have passed the checks."""
+
+    B: int
+    Cs: list
+    ok: list
+    skipped: dict
+    layout: object
+    y_sorted: np.ndarray
+    means: np.ndarray
+
+
+def _prepare(fit: Fit, effects, resamples, mid: str, name: str, *, need_two: str | None):
+    """Checks, estimable hypotheses and the cell-sorted layout, shared by every
+    resampling method.  Returns (early, setup): ``early`` is the finished tuple of
+    results when nothing can be resampled (setup None then)."""
+    B, early = _checks(fit, effects, resamples, mid, name, need_two=need_two)
+    if early:
+        return tuple(early), None
+    Cs, ok, skipped = _split_estimable(fit, effects, mid, name, B)
+    if not ok:
+        return _merge(effects, [], skipped), None
+    layout = layout_from_fit(fit)
+    y_sorted = np.asarray(fit.obs.y, dtype=float)[layout.order]
+    means = fit.cells.means.ravel()[layout.filled]
+    return None, _Setup(B, Cs, ok, skipped, layout, y_sorted, means)
+
+
 def _cell_sums(u_sorted, layout, squares=False):
     S = np.add.reduceat(u_sorted[None, :], layout.starts, axis=1)
     SQ = np.add.reduceat((u_sorted * u_sorted)[None, :], layout.starts, axis=1) if squares else None
@@ -159,13 +189,10 @@ def _cell_sums(u_sorted, layout, squares=False):
 
 def _freedman_lane(fit, effects, resamples, seed, progress, budget=None):
     mid, name = "permutation-freedman-lane", "F"
-    B, early = _checks(fit, effects, resamples, mid, name, need_two=None)
-    if early:
-        return tuple(early)
-    Cs, ok, skipped = _split_estimable(fit, effects, mid, name, B)
-    layout = layout_from_fit(fit)
-    y_sorted = np.asarray(fit.obs.y, dtype=float)[layout.order]
-    means = fit.cells.means.ravel()[layout.filled]
+    early, st = _prepare(fit, effects, resamples, mid, name, need_two=None)
+    if early is not None:
+        return early
+    B, Cs, ok, skipped, layout, y_sorted, means = st
     cs = layout.cell_sorted
     kw = {} if budget is None else {"budget": budget}
     done = []
@@ -178,8 +205,7 @@ def _freedman_lane(fit, effects, resamples, seed, progress, budget=None):
         fns.append(fn)
         obs.append(fn(*_cell_sums(u, layout))[0])
     rng, seed_rec = seed_value(seed)  # one set of permutations, shared by every effect
-    stars = permute_shared(us, layout, fns, resamples=B, rng=rng, progress=progress_fn(progress, mid, B), **kw) \
-        if ok else []
+    stars = permute_shared(us, layout, fns, resamples=B, rng=rng, progress=progress_fn(progress, mid, B), **kw)
     for e, C, o, star in zip(ok, Cs, obs, stars):
         extra = {"df_error": int(layout.N - layout.m), "scheme": "permute restricted-model residuals",
                  "robust_to_unequal_variances": False}
@@ -193,15 +219,10 @@ def _freedman_lane(fit, effects, resamples, seed, progress, budget=None):
 
 def _ter_braak(fit, effects, resamples, seed, progress, budget=None):
     mid, name = "permutation-ter-braak", "F"
-    B, early = _checks(fit, effects, resamples, mid, name, need_two=None)
-    if early:
-        return tuple(early)
-    Cs, ok, skipped = _split_estimable(fit, effects, mid, name, B)
-    if not ok:
-        return _merge(effects, [], skipped)
-    layout = layout_from_fit(fit)
-    y_sorted = np.asarray(fit.obs.y, dtype=float)[layout.order]
-    means = fit.cells.means.ravel()[layout.filled]
+    early, st = _prepare(fit, effects, resamples, mid, name, need_two=None)
+    if early is not None:
+        return early
+    B, Cs, ok, skipped, layout, y_sorted, means = st
     u = y_sorted - means[layout.cell_sorted]
     fn = f_statistic_maker(layout, Cs, float(u @ u))
     # observed statistic: the classical F of the data (residual permutation of the full model)
@@ -221,15 +242,11 @@ def _ter_braak(fit, effects, resamples, seed, progress, budget=None):
 
 def _studentized(fit, effects, resamples, seed, progress, budget=None):
     mid, name = "permutation-studentized", "T/c"
-    B, early = _checks(fit, effects, resamples, mid, name,
-                       need_two="the studentized statistic (cell variances s2/n)")
-    if early:
-        return tuple(early)
-    Cs, ok, skipped = _split_estimable(fit, effects, mid, name, B)
-    if not ok:
-        return _merge(effects, [], skipped)
-    layout = layout_from_fit(fit)
-    y_sorted = np.asarray(fit.obs.y, dtype=float)[layout.order]
+    early, st = _prepare(fit, effects, resamples, mid, name,
+                         need_two="the studentized statistic (cell variances s2/n)")
+    if early is not None:
+        return early
+    B, Cs, ok, skipped, layout, y_sorted, means = st
     u = y_sorted - float(np.mean(y_sorted))
     scale = float(u @ u) / layout.N
     fn = wald_statistic_maker(layout, Cs, kind="wj", scale=scale)
@@ -237,7 +254,6 @@ def _studentized(fit, effects, resamples, seed, progress, budget=None):
     obs = fn(S, SQ)[0]
     # the reported statistic: Welch-James T / c of the data, with T, A, c
     n = layout.counts
-    means = fit.cells.means.ravel()[layout.filled]
     var = fit.cells.variances.ravel()[layout.filled]
     shown, each = [], []
     for C in Cs:

@@ -221,7 +221,7 @@ def aligned_rank_transform(fit: Fit, *, effect: str = "AB") -> MethodResult:
     max_other = max(others.values())
     passed = bool(max_other < SELF_CHECK_TOL * max(1.0, chk[effect]["F"]))
     res = type3_f(_cells_of(aligned_mid_ranks(al), fit))[effect]
-    check_note = (f"alignment self-check: ANOVA on the aligned (unranked) responses gives F = "
+    check_note = ("alignment self-check: ANOVA on the aligned (unranked) responses gives F = "
                   + ", ".join(f"{v:.2g} for {k}" for k, v in others.items())
                   + (" (zero to rounding, as it should)" if passed else
                      " - NOT zero: the alignment failed, do not use this result"))
