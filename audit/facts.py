@@ -1,0 +1,186 @@
+"""Typed payloads: the facts a diagnostic hands to later stages.
+
+A :class:`~audit.results.Diagnostic` carries its numbers twice: ``values`` (a
+JSON dictionary for people and files) and ``facts`` (one of the frozen types
+below, for code).  Later stages (the trust rules and the verdict) read only
+``facts`` and ``severity``, never ``values`` keys, so a diagnostic can reword
+or extend its JSON without breaking the verdict, and a missing fact is a type
+error at the source instead of a silent ``None`` downstream.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+__all__ = [
+    "HomogeneityFacts",
+    "FragilityFacts",
+    "InfluenceFacts",
+    "ScaleFacts",
+    "ShapeFacts",
+    "IndependenceFacts",
+    "NormalityFacts",
+    "OutlierFacts",
+    "BalanceFacts",
+]
+
+
+@dataclass(frozen=True, kw_only=True)
+class HomogeneityFacts:
+    """Spread across cells.
+
+    Attributes
+    ----------
+    sd_ratio : float or None
+        Largest over smallest cell SD (cells with n >= 2).
+    n_ratio : float or None
+        Largest over smallest cell size.
+    unequal_variances : bool
+        The spread differs beyond what equal variances give with these cell
+        sizes (or a cell has zero spread beside cells that do not).
+    pairing : str
+        'negative' (large variances in small cells: the classical F is
+        liberal), 'positive' (large variances in large cells: conservative)
+        or 'none'.
+    """
+
+    sd_ratio: float | None
+    n_ratio: float | None
+    unequal_variances: bool
+    pairing: str
+
+
+@dataclass(frozen=True, kw_only=True)
+class NormalityFacts:
+    """Shape of the residual distribution.
+
+    Attributes
+    ----------
+    size_band : str or None
+        'small', 'moderate', 'large' or 'extreme' departure (None if not run).
+    """
+
+    size_band: str | None
+
+
+@dataclass(frozen=True, kw_only=True)
+class BalanceFacts:
+    """Cell sizes.
+
+    Attributes
+    ----------
+    min_n : int
+        Smallest size of a filled cell.
+    empty_cells : int
+    single_cells : int
+        Cells holding one observation.
+    """
+
+    min_n: int
+    empty_cells: int
+    single_cells: int
+
+
+@dataclass(frozen=True, kw_only=True)
+class OutlierFacts:
+    """Observations beyond the outlier cut-off.
+
+    Attributes
+    ----------
+    rows : tuple of int
+        Their row labels.
+    """
+
+    rows: tuple
+
+
+@dataclass(frozen=True, kw_only=True)
+class InfluenceFacts:
+    """Leave-one-out results for the interaction.
+
+    Attributes
+    ----------
+    flipping_rows : tuple of int
+        Rows whose single deletion flips the interaction decision at alpha.
+    p_min, p_max : float or None
+        Range of the leave-one-out interaction p-values.
+    """
+
+    flipping_rows: tuple
+    p_min: float | None
+    p_max: float | None
+
+
+@dataclass(frozen=True, kw_only=True)
+class FragilityFacts:
+    """Greedy deletions that flip the interaction decision.
+
+    Attributes
+    ----------
+    deletions_to_flip : int or None
+        How many deletions flip it (None: not flipped within ``max_steps``,
+        or not run).
+    rows : tuple of int
+        The rows deleted, in order.
+    max_steps : int
+    significant_before : bool or None
+        The interaction decision on all the data.
+    """
+
+    deletions_to_flip: int | None
+    rows: tuple
+    max_steps: int
+    significant_before: bool | None
+
+
+@dataclass(frozen=True, kw_only=True)
+class ShapeFacts:
+    """Form of the interaction.
+
+    Attributes
+    ----------
+    shape : str
+        'ordinal', 'crossover', 'crossover within noise' or 'none' (not
+        significant or not judged).
+    """
+
+    shape: str
+
+
+@dataclass(frozen=True, kw_only=True)
+class ScaleFacts:
+    """The interaction test after transformations of the response.
+
+    Attributes
+    ----------
+    removable : bool
+        Significant on the raw scale but not at some Box-Cox lambda inside
+        the 95% profile interval.
+    lambda_hat : float or None
+    log_p, boxcox_p : float or None
+        Interaction p after log and after the Box-Cox lambda-hat.
+    """
+
+    removable: bool
+    lambda_hat: float | None
+    log_p: float | None
+    boxcox_p: float | None
+
+
+@dataclass(frozen=True, kw_only=True)
+class IndependenceFacts:
+    """What the data say about independence.
+
+    Attributes
+    ----------
+    checked : bool
+        A run-order or unit column was given.
+    pseudo_replication : bool
+        An experimental unit was observed more than once.
+    serial_dependence : bool
+        Run order shows dependence (runs test or lag-1 correlation).
+    """
+
+    checked: bool
+    pseudo_replication: bool
+    serial_dependence: bool

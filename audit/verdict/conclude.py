@@ -1,0 +1,367 @@
+"""The verdict: does the claimed interaction conclusion hold up on these data?
+
+This module is the only place that decides.  It weighs, for the interaction
+(and for each main effect that a claim names):
+
+* the claim: stated (a reported test, ``present`` / ``absent``) or, without
+  one, the classical F's decision at alpha;
+* whether a reported test can be reproduced from the data (reconciliation);
+* the methods the trust rules keep (:mod:`audit.verdict.trust`): untrusted
+  methods do not vote, and a split among trusted methods is itself a finding;
+* fragility and influence (a handful of deletions flip the decision), scale
+  dependence (a removable interaction), graded problems, closeness to alpha,
+  and, for an "absent" claim, the design's sensitivity.
+
+Verdicts (exactly one per effect; the overall verdict is the interaction's):
+
+=====================  ====================================================
+holds                  every trusted method agrees with the claim; not
+                       fragile; not scale-dependent; no caveat
+holds-with-caveats     agrees, with stated caveats (near alpha, removable,
+                       a warning-level problem, few trusted methods, low
+                       sensitivity for an "absent" claim, a resampled
+                       decision not settled)
+fragile                one or two deletions flip the decision, or the
+                       trusted methods split around alpha
+does-not-hold          every trusted method contradicts the claim
+not-reproducible       the reported test cannot be reproduced from the data
+cannot-judge           no trusted test of the effect (no error df and no
+                       Tukey test, too little data, dependent observations)
+=====================  ====================================================
+
+Exit status of ``check``: 0 for holds and holds-with-caveats (1 with
+``--strict`` for caveats), 1 for fragile, does-not-hold and not-reproducible,
+3 for cannot-judge (2 is kept for usage and input errors).
+
+Caution: the verdict supports a statistician's judgement and does not replace
+it; independence of observations cannot be checked from the data.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from ..decision import decision, near_alpha
+
+__all__ = ["VERDICTS", "Reason", "EffectVerdict", "Verdict", "conclude", "exit_status",
+           "FRAGILE_DELETIONS", "LOW_SENSITIVITY_ETA2"]
+
+VERDICTS = ("holds", "holds-with-caveats", "fragile", "does-not-hold", "not-reproducible", "cannot-judge")
+
+#: this many deletions or fewer that flip the decision make it fragile (our
+#: choice, matching the fragility check's "serious" grade for a significant effect)
+FRAGILE_DELETIONS = 2
+
+#: an "absent" claim is weakly supported when the design cannot detect a
+#: partial eta squared of this size with 80% power (Cohen 1988's "medium" f =
+#: 0.25, i.e. eta^2 = 0.0588; from memory)
+LOW_SENSITIVITY_ETA2 = 0.0588
+
+#: fewer trusted methods than this for an effect is itself a caveat (our choice)
+MIN_TRUSTED = 2
+
+_EXIT = {"holds": 0, "holds-with-caveats": 0, "fragile": 1, "does-not-hold": 1, "not-reproducible": 1,
+         "cannot-judge": 3}
+
+_EFFECT_WORD = {"AB": "interaction", "A": "main effect of A", "B": "main effect of B"}
+
+
+@dataclass(frozen=True, kw_only=True)
+class Reason:
+    """One reason behind a verdict.
+
+    Attributes
+    ----------
+    text : str
+        One plain sentence.
+    ref : str
+        The finding behind it: 'diagnostic:<id>', 'method:<id>',
+        'calibration:<id>', 'claim:<item>' or 'sensitivity'.
+    weight : str
+        'decisive' (it set the verdict), 'caveat' or 'support'.
+    """
+
+    text: str
+    ref: str
+    weight: str
+
+    def to_dict(self) -> dict:
+        return {"text": self.text, "ref": self.ref, "weight": self.weight}
+
+
+@dataclass(frozen=True, kw_only=True)
+class EffectVerdict:
+    """The verdict on one effect.
+
+    Attributes
+    ----------
+    effect : str
+        'AB', 'A' or 'B'.
+    verdict : str
+        One of :data:`VERDICTS`.
+    claim_present : bool or None
+        What the claim says (True: the effect is present).
+    claim_source : str
+        'stated' or 'classical-f'.
+    trusted_methods : tuple of str
+    agreeing, disagreeing, unsettled : tuple of str
+        Trusted methods whose decision agrees / disagrees with the claim /
+        is not settled at this number of resamples.
+    reasons : tuple of Reason
+        Ranked, most important first.
+    """
+
+    effect: str
+    verdict: str
+    claim_present: bool | None
+    claim_source: str
+    trusted_methods: tuple[str, ...]
+    agreeing: tuple[str, ...]
+    disagreeing: tuple[str, ...]
+    unsettled: tuple[str, ...]
+    reasons: tuple[Reason, ...]
+
+    def to_dict(self) -> dict:
+        return {"effect": self.effect, "verdict": self.verdict, "claim_present": self.claim_present,
+                "claim_source": self.claim_source, "trusted_methods": list(self.trusted_methods),
+                "agreeing": list(self.agreeing), "disagreeing": list(self.disagreeing),
+                "unsettled": list(self.unsettled), "reasons": [r.to_dict() for r in self.reasons]}
+
+
+@dataclass(frozen=True, kw_only=True)
+class Verdict:
+    """The overall verdict (the interaction's) and each judged effect's.
+
+    Attributes
+    ----------
+    verdict : str
+    reasons : tuple of Reason
+    effects : tuple of EffectVerdict
+        The interaction first, then any main effect a claim named.
+    """
+
+    verdict: str
+    reasons: tuple[Reason, ...]
+    effects: tuple[EffectVerdict, ...] = field(default=())
+
+    def effect(self, effect: str) -> EffectVerdict:
+        for e in self.effects:
+            if e.effect == effect:
+                return e
+        raise KeyError(f"no verdict for effect {effect!r}; judged: {', '.join(e.effect for e in self.effects)}")
+
+
+def exit_status(verdict: str, *, strict: bool = False) -> int:
+    """Exit status of ``check`` for a verdict.
+
+    Parameters
+    ----------
+    verdict : str
+    strict : bool
+        Caveats exit 1 too.
+    """
+    if strict and verdict == "holds-with-caveats":
+        return 1
+    return _EXIT[verdict]
+
+
+def _settled(m, alpha: float) -> bool:
+    """A resampled p is settled when its Monte Carlo interval lies on one side of alpha."""
+    if m.p_interval is None:
+        return True
+    lo, hi = m.p_interval
+    return not (lo < alpha <= hi)
+
+
+def _fmt_p(p: float) -> str:
+    if p < 0.001:
+        return "p < .001"
+    s = f"{p:.3f}"
+    return "p = " + (s[1:] if s.startswith("0") else s)
+
+
+def _present_word(present: bool) -> str:
+    return "present" if present else "absent"
+
+
+def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, methods, trust, alpha: float,
+                 reconciliation=None, fragility=None, influence=None, scale=None, graded=(),
+                 sensitivity=None, cannot_reason: str | None = None) -> EffectVerdict:
+    """Judge one effect (see the module docstring for the rules).
+
+    Parameters
+    ----------
+    effect : str
+    claim_present : bool or None
+        None when there is no claim and no classical decision.
+    claim_source : str
+    methods : sequence of MethodResult
+        Every method result (other effects are ignored).
+    trust : sequence of MethodTrust
+        Same order as ``methods``.
+    alpha : float
+    reconciliation : object, optional
+        ``.reproduced`` (bool or None) and ``.checks`` (items with ``ok``,
+        ``item`` and ``message``).
+    fragility : FragilityFacts, optional (interaction only)
+    influence : InfluenceFacts, optional (interaction only)
+    scale : ScaleFacts, optional (interaction only)
+    graded : sequence of (id, severity, summary)
+        Diagnostics graded warning or serious, as caveats.
+    sensitivity : object, optional
+        For an "absent" claim: ``.eta2_80`` (smallest partial eta squared
+        detectable with 80% power) and ``.text``.
+    cannot_reason : str, optional
+        A reason that no test can be judged at all.
+    """
+    reasons: list[Reason] = []
+    word = _EFFECT_WORD[effect]
+    pairs = [(m, t) for m, t in zip(methods, trust) if m.effect == effect]
+    trusted = [(m, t) for m, t in pairs if t.trusted]
+    tnames = tuple(m.id for m, _ in trusted)
+
+    def out(verdict: str, agreeing=(), disagreeing=(), unsettled=()) -> EffectVerdict:
+        return EffectVerdict(effect=effect, verdict=verdict, claim_present=claim_present,
+                             claim_source=claim_source, trusted_methods=tnames, agreeing=tuple(agreeing),
+                             disagreeing=tuple(disagreeing), unsettled=tuple(unsettled), reasons=tuple(reasons))
+
+    # 1. the reported numbers must be reproducible before anything else counts
+    if reconciliation is not None and reconciliation.reproduced is False:
+        for c in reconciliation.checks:
+            if not c.ok and getattr(c, "severity", "serious") != "note":
+                reasons.append(Reason(text=c.message, ref=f"claim:{c.item}", weight="decisive"))
+        if not reasons:
+            reasons.append(Reason(text="the reported test cannot be reproduced from the data", ref="claim",
+                                  weight="decisive"))
+        return out("not-reproducible")
+    if reconciliation is not None:
+        for c in reconciliation.checks:
+            if not c.ok:
+                reasons.append(Reason(text=c.message, ref=f"claim:{c.item}", weight="caveat"))
+
+    if cannot_reason:
+        reasons.insert(0, Reason(text=cannot_reason, ref="design", weight="decisive"))
+        return out("cannot-judge")
+    if claim_present is None:
+        reasons.insert(0, Reason(text=f"there is no claim about the {word} and the classical F could not be "
+                                      "formed", ref="method:classical-f", weight="decisive"))
+        return out("cannot-judge")
+    if not trusted:
+        why = "; ".join(f"{m.id}: {t.reason}" for m, t in pairs[:4])
+        reasons.insert(0, Reason(text=f"no method can be trusted to test the {word} on these data"
+                                      + (f" ({why})" if why else ""), ref="trust", weight="decisive"))
+        return out("cannot-judge")
+
+    agree, disagree, unsettled = [], [], []
+    for m, _t in trusted:
+        if not _settled(m, alpha):
+            unsettled.append(m.id)
+            continue
+        d = decision(m.p, alpha)
+        (agree if d == claim_present else disagree).append(m.id)
+    pm = {m.id: m.p for m, _ in trusted}
+
+    def listing(ids) -> str:
+        return ", ".join(f"{i} ({_fmt_p(pm[i])})" for i in ids)
+
+    claim_txt = f"the claim that the {word} is {_present_word(claim_present)}"
+    if claim_source == "classical-f":
+        claim_txt += " (the classical F's decision; no claim was stated)"
+
+    if not agree and not disagree:
+        reasons.insert(0, Reason(text=f"every trusted method's resampled p is too close to alpha {alpha:g} to "
+                                      f"settle the decision at this number of resamples ({', '.join(unsettled)})",
+                                 ref=f"method:{unsettled[0]}", weight="decisive"))
+        return out("fragile", agree, disagree, unsettled)
+    if disagree and agree:
+        reasons.insert(0, Reason(text=f"the trusted methods split around alpha {alpha:g}: {listing(agree)} "
+                                      f"agree with {claim_txt}; {listing(disagree)} do not",
+                                 ref=f"method:{disagree[0]}", weight="decisive"))
+        return out("fragile", agree, disagree, unsettled)
+    if disagree:
+        reasons.insert(0, Reason(text=f"every trusted method contradicts {claim_txt}: {listing(disagree)}",
+                                 ref=f"method:{disagree[0]}", weight="decisive"))
+        untrusted_agree = [m.id for m, t in pairs if not t.trusted and m.p is not None
+                           and decision(m.p, alpha) == claim_present]
+        for m, t in pairs:
+            if m.id in untrusted_agree:
+                reasons.append(Reason(text=f"{m.id} ({_fmt_p(m.p)}) agrees with the claim but is not trusted "
+                                           f"here: {t.reason}", ref=f"method:{m.id}", weight="support"))
+        return out("does-not-hold", agree, disagree, unsettled)
+
+    # every settled trusted method agrees: look for fragility, then caveats
+    verdict = "holds"
+    if fragility is not None and fragility.deletions_to_flip is not None \
+            and fragility.deletions_to_flip <= FRAGILE_DELETIONS:
+        rows = ", ".join(str(r) for r in fragility.rows[:fragility.deletions_to_flip])
+        reasons.append(Reason(text=f"deleting {fragility.deletions_to_flip} observation(s) (row {rows}) flips "
+                                   f"the {word} decision at alpha {alpha:g}", ref="diagnostic:fragility",
+                              weight="decisive"))
+        verdict = "fragile"
+    elif influence is not None and influence.flipping_rows:
+        rows = ", ".join(str(r) for r in influence.flipping_rows[:5])
+        reasons.append(Reason(text=f"deleting a single observation (row {rows}) flips the {word} decision",
+                              ref="diagnostic:influence", weight="decisive"))
+        verdict = "fragile"
+    if verdict == "fragile":
+        reasons.append(Reason(text=f"the trusted methods agree with {claim_txt} on all the data: {listing(agree)}",
+                              ref=f"method:{agree[0]}", weight="support"))
+        return out("fragile", agree, disagree, unsettled)
+
+    caveats: list[Reason] = []
+    if scale is not None and scale.removable and claim_present:
+        caveats.append(Reason(text="the interaction is removable: it is not significant after a transformation "
+                                   "the data support (Box-Cox), so it may reflect the measurement scale rather "
+                                   "than a substantive interaction", ref="diagnostic:scale", weight="caveat"))
+    near = [i for i in agree if near_alpha(pm[i], alpha)]
+    if near:
+        caveats.append(Reason(text=f"close to alpha {alpha:g}: {listing(near)}", ref=f"method:{near[0]}",
+                              weight="caveat"))
+    if unsettled:
+        caveats.append(Reason(text=f"not settled at this number of resamples: {', '.join(unsettled)}",
+                              ref=f"method:{unsettled[0]}", weight="caveat"))
+    if fragility is not None and fragility.deletions_to_flip is not None and fragility.deletions_to_flip <= 5:
+        caveats.append(Reason(text=f"deleting {fragility.deletions_to_flip} observations flips the {word} "
+                                   f"decision", ref="diagnostic:fragility", weight="caveat"))
+    if len(trusted) < MIN_TRUSTED:
+        caveats.append(Reason(text=f"only one method can be trusted here ({trusted[0][0].id})", ref="trust",
+                              weight="caveat"))
+    if not claim_present and sensitivity is not None and getattr(sensitivity, "eta2_80", None) is not None \
+            and sensitivity.eta2_80 > LOW_SENSITIVITY_ETA2:
+        caveats.append(Reason(text=sensitivity.text, ref="sensitivity", weight="caveat"))
+    conservative = [t.method for _m, t in trusted if t.conservative]
+    if conservative and not claim_present:
+        caveats.append(Reason(text=f"conservative here, so a non-significant result is weak evidence of "
+                                   f"absence: {', '.join(conservative)}", ref=f"calibration:{conservative[0]}",
+                              weight="caveat"))
+    for did, sev, summ in graded:
+        if did in ("fragility", "influence", "scale") and effect == "AB":
+            continue  # weighed above
+        caveats.append(Reason(text=f"{did} graded {sev}: {summ}", ref=f"diagnostic:{did}", weight="caveat"))
+    lead = Reason(text=f"every trusted method agrees with {claim_txt}: {listing(agree)}",
+                  ref=f"method:{agree[0]}", weight="decisive")
+    reasons.insert(0, lead)
+    reasons.extend(caveats)
+    return out("holds-with-caveats" if caveats or reconciliation_caveat(reasons) else "holds",
+               agree, disagree, unsettled)
+
+
+def reconciliation_caveat(reasons) -> bool:
+    return any(r.ref.startswith("claim:") and r.weight == "caveat" for r in reasons)
+
+
+def conclude(effects: tuple[EffectVerdict, ...]) -> Verdict:
+    """The overall verdict is the interaction's; its reasons lead.
+
+    Parameters
+    ----------
+    effects : tuple of EffectVerdict
+        The interaction's first.
+    """
+    ab = effects[0]
+    reasons = list(ab.reasons)
+    if ab.claim_present and ab.verdict in ("holds", "holds-with-caveats") and len(effects) > 1:
+        reasons.append(Reason(text="with an interaction present, each main effect averages over an effect that "
+                                   "changes across the other factor's levels; read main effects with that in mind",
+                              ref="method:classical-f", weight="caveat"))
+    return Verdict(verdict=ab.verdict, reasons=tuple(reasons), effects=effects)

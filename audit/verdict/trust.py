@@ -1,0 +1,266 @@
+"""Which methods can be trusted on this dataset: the trust rules.
+
+Every method's result for every effect gets ``trusted`` (True/False) and one
+plain reason.  Two kinds of evidence decide it:
+
+1. **Rules** with published sources (the table :data:`TRUST_RULES`, also in
+   DEVELOPERS.md), applied to facts the diagnostics report about this
+   dataset: cell sizes, unequal variances and how they pair with cell sizes.
+2. **The size check** (:mod:`audit.verdict.calibration`): the method's Type I
+   error estimated on simulated null datasets shaped like this one.  A method
+   found liberal there is not trusted, whatever the rules say; one found
+   conservative stays trusted and is marked so.
+
+A method is trusted when no rule and no size-check row withdraws trust.  The
+first rule that withdraws it gives the reason (the rules are ordered from the
+most basic: a p-value that does not exist, then validity, then data-shaped
+evidence).  Untrusted methods do not vote in the verdict.
+
+Caution: these rules encode measured and published behaviour; they support a
+statistician's judgement and do not replace it.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["TrustRule", "MethodTrust", "TRUST_RULES", "assess_trust", "trimmed_kept"]
+
+
+@dataclass(frozen=True, kw_only=True)
+class TrustRule:
+    """One row of the rule table.
+
+    Attributes
+    ----------
+    id : str
+        Stable rule id (cited in ``MethodTrust.rule``).
+    methods : tuple of str
+        Method ids it applies to.
+    when : str
+        The condition, in words.
+    source : str
+        Where the rule comes from.
+    """
+
+    id: str
+    methods: tuple[str, ...]
+    when: str
+    source: str
+
+
+#: the rule table (order matters: the first rule that applies gives the reason)
+TRUST_RULES: tuple[TrustRule, ...] = (
+    TrustRule(id="no-p", methods=("*",), when="the method gave no p-value on these data",
+              source="common practice"),
+    TrustRule(id="rank-transform", methods=("rank-transform",),
+              when="always: ranking creates interaction out of main effects, and the rank-transform tests "
+                   "are unreliable in factorial designs",
+              source="Blair, Sawilowsky & Higgins 1987; Sawilowsky 1990; METHODS.md 10a (size .807 with "
+                     "main effects)"),
+    TrustRule(id="self-check", methods=("aligned-rank-transform",),
+              when="the alignment self-check failed (the aligned responses carry other effects)",
+              source="Wobbrock, Findlater, Gergle & Higgins 2011"),
+    TrustRule(id="pseudo-replication", methods=("*",),
+              when="an experimental unit was observed more than once: every test here treats the "
+                   "repeated observations as independent",
+              source="Hurlbert 1984"),
+    TrustRule(id="welch-small-cells", methods=("welch-james",),
+              when="a cell has 3 or fewer observations: the variance estimates have at most 2 df and "
+                   "the test runs liberal",
+              source="Johansen 1980 (the approximation needs moderate n); METHODS.md 10a"),
+    TrustRule(id="trimmed-small-cells", methods=("welch-james-trimmed",),
+              when="a cell keeps fewer than 4 observations after 20% trimming",
+              source="Wilcox 2017 (Introduction to Robust Estimation, from memory); METHODS.md 10a "
+                     "(size .103 in cells of 4-16 with unequal variances)"),
+    TrustRule(id="studentized-small-cells", methods=("permutation-studentized",),
+              when="a cell has 5 or fewer observations",
+              source="Pauly, Brunner & Konietschke 2015 (asymptotic validity); METHODS.md 10a (size .077-.082 "
+                     "in cells of 4-5)"),
+    TrustRule(id="wild-small-cells", methods=("wild-bootstrap",),
+              when="a cell has 3 or fewer observations: sign flips then swap each cell's spread and mean "
+                   "deviation",
+              source="Davidson & Flachaire 2008; common practice"),
+    TrustRule(id="hc-single", methods=("hc3-wald", "hc4-wald"),
+              when="a cell has one observation (its leverage is 1)",
+              source="Long & Ervin 2000; Cribari-Neto 2004"),
+    TrustRule(id="equal-variance-unequal-n", methods=("classical-f", "permutation-freedman-lane",
+                                                      "permutation-ter-braak"),
+              when="variances differ beyond chance and cell sizes differ (ratio >= 1.5), or the SD ratio "
+                   "exceeds 3: the test is liberal when large variances sit in small cells and "
+                   "conservative in the reverse",
+              source="Box 1954; Glass, Peckham & Sanders 1972; Anderson & ter Braak 2003; METHODS.md 10a "
+                     "(sizes .13-.29)"),
+    TrustRule(id="art-unequal-variances", methods=("aligned-rank-transform",),
+              when="variances differ beyond chance across cells",
+              source="Leys & Schumann 2010; METHODS.md 10a (size .177 in a 2 x 2 with one cell SD x 4)"),
+    TrustRule(id="hc4-warm", methods=("hc4-wald",),
+              when="no size check was run: HC4 with the F(q, N - m) reference runs warm even on clean data",
+              source="METHODS.md 10a (size .066, 99% CI .054-.080, pooled over clean conditions)"),
+    TrustRule(id="size-check-liberal", methods=("*",),
+              when="the size check on null datasets shaped like this one finds the method liberal",
+              source="METHODS.md 10b; this dataset's size check"),
+    TrustRule(id="tukey-only-form", methods=("tukey-one-df",),
+              when="never withdrawn, but it detects only the multiplicative (a_j b_k) form of interaction",
+              source="Tukey 1949"),
+)
+
+_RULES = {r.id: r for r in TRUST_RULES}
+
+#: the trimming proportion of the trimmed Welch-James test
+TRIM = 0.2
+
+
+def trimmed_kept(counts: np.ndarray, gamma: float = TRIM) -> np.ndarray:
+    """Observations kept per cell by symmetric trimming: n - 2 floor(gamma n).
+
+    Parameters
+    ----------
+    counts : ndarray of int
+    gamma : float
+    """
+    c = np.asarray(counts, dtype=int)
+    return c - 2 * np.floor(gamma * c).astype(int)
+
+
+@dataclass(frozen=True, kw_only=True)
+class MethodTrust:
+    """Whether one method's test of one effect is trusted here, and why.
+
+    Attributes
+    ----------
+    method : str
+    effect : str
+    trusted : bool
+    reason : str
+        One plain sentence (why trusted, or why not).
+    rule : str or None
+        The rule id that decided (None when no rule withdrew trust).
+    conservative : bool
+        The size check found it conservative on data shaped like these.
+    """
+
+    method: str
+    effect: str
+    trusted: bool
+    reason: str
+    rule: str | None
+    conservative: bool = False
+
+    def to_dict(self) -> dict:
+        return {"method": self.method, "effect": self.effect, "trusted": self.trusted,
+                "reason": self.reason, "rule": self.rule, "conservative": self.conservative}
+
+
+def _pct(x: float) -> str:
+    return f"{100 * x:.0f}%" if x >= 0.1 else f"{100 * x:.1f}%"
+
+
+def _heteroscedastic_unequal(h) -> bool:
+    if h is None:
+        return False
+    big_ratio = h.sd_ratio is not None and math.isfinite(h.sd_ratio) and h.sd_ratio > 3.0
+    unequal_n = h.n_ratio is not None and h.n_ratio >= 1.5
+    return bool(h.unequal_variances and (unequal_n or big_ratio))
+
+
+def _one(m, *, min_n: int, min_kept: int, homog, indep, calib_row, alpha: float, self_check_ok) -> MethodTrust:
+    mid, eff = m.id, m.effect
+
+    def no(rule: str, reason: str) -> MethodTrust:
+        return MethodTrust(method=mid, effect=eff, trusted=False, reason=reason, rule=rule)
+
+    if m.p is None:
+        why = m.notes[0] if m.notes else "no p-value could be computed"
+        return no("no-p", f"not computed on these data: {why}")
+    if mid == "rank-transform" or not m.valid_for_interaction and eff == "AB":
+        return no("rank-transform", "ranking turns main effects into interaction, so the rank transform does "
+                                    "not test the interaction validly (Blair, Sawilowsky & Higgins 1987)")
+    if mid == "aligned-rank-transform" and self_check_ok is False:
+        return no("self-check", "the alignment self-check failed: the aligned responses still carry other "
+                                "effects")
+    if indep is not None and indep.pseudo_replication:
+        return no("pseudo-replication", "an experimental unit was observed more than once, so the "
+                                        "observations are not independent")
+    if mid == "welch-james" and min_n <= 3:
+        return no("welch-small-cells", f"the smallest cell has {min_n} observation(s); Welch-James runs "
+                                       "liberal with so few per cell")
+    if mid == "welch-james-trimmed" and min_kept < 4:
+        return no("trimmed-small-cells", f"20% trimming keeps only {min_kept} observation(s) in the smallest "
+                                         "cell")
+    if mid == "permutation-studentized" and min_n <= 5:
+        return no("studentized-small-cells", f"the smallest cell has {min_n} observations; the studentized "
+                                             "permutation runs liberal in cells of 5 or fewer")
+    if mid == "wild-bootstrap" and min_n <= 3:
+        return no("wild-small-cells", f"the smallest cell has {min_n} observation(s); sign flips then swap "
+                                      "each cell's spread and mean deviation")
+    if mid in ("hc3-wald", "hc4-wald") and min_n <= 1:
+        return no("hc-single", "a cell has a single observation, whose leverage is 1")
+    if mid in ("classical-f", "permutation-freedman-lane", "permutation-ter-braak") and _heteroscedastic_unequal(homog):
+        side = {"negative": "large variances sit in small cells (liberal)",
+                "positive": "large variances sit in large cells (conservative)"}.get(
+            homog.pairing, "variances differ across cells of unequal size")
+        return no("equal-variance-unequal-n", f"it assumes equal variances, and here {side}")
+    if mid == "aligned-rank-transform" and homog is not None and homog.unequal_variances:
+        return no("art-unequal-variances", "the aligned rank transform runs liberal when variances differ "
+                                           "across cells, as they do here")
+    if calib_row is not None and getattr(calib_row, "status", None) == "liberal":
+        size = calib_row.size
+        return no("size-check-liberal", f"on data shaped like yours it rejects a true null about {_pct(size)} "
+                                        f"of the time (alpha {alpha:g})")
+    if mid == "hc4-wald" and calib_row is None:
+        return no("hc4-warm", "without a size check HC4 is not relied on: with the F reference it runs warm "
+                              "even on clean data")
+    conservative = calib_row is not None and getattr(calib_row, "status", None) == "conservative"
+    if conservative:
+        reason = (f"trusted, but conservative here: on data shaped like yours it rejects a true null about "
+                  f"{_pct(calib_row.size)} of the time")
+    elif calib_row is not None and getattr(calib_row, "status", None) == "ok":
+        reason = f"no rule applies, and its size on data shaped like yours is about {_pct(calib_row.size)}"
+    elif mid == "tukey-one-df":
+        reason = "the only test of interaction with one observation per cell; it detects only the " \
+                 "multiplicative form"
+    else:
+        reason = "no trust rule applies to these data"
+    return MethodTrust(method=mid, effect=eff, trusted=True, reason=reason, rule=None, conservative=conservative)
+
+
+def assess_trust(methods, *, counts, alpha: float, homogeneity=None, independence=None, calibration=None,
+                 self_checks: dict | None = None) -> tuple[MethodTrust, ...]:
+    """Apply the trust rules to every method result.
+
+    Parameters
+    ----------
+    methods : sequence of MethodResult
+    counts : ndarray (J, K) of int
+        Cell sizes.
+    alpha : float
+    homogeneity : HomogeneityFacts, optional
+    independence : IndependenceFacts, optional
+    calibration : object, optional
+        The size check; ``calibration.row(method, effect)`` returns a row
+        with ``status`` and ``size``, or None when that method was not
+        checked.
+    self_checks : dict, optional
+        {(method, effect): bool} for methods with a self-check.
+
+    Returns
+    -------
+    tuple of MethodTrust, one per method result, in the same order.
+    """
+    c = np.asarray(counts)
+    filled = c[c > 0]
+    min_n = int(filled.min()) if filled.size else 0
+    min_kept = int(trimmed_kept(filled).min()) if filled.size else 0
+    out = []
+    for m in methods:
+        row = calibration.row(m.id, m.effect) if calibration is not None else None
+        if row is not None and getattr(row, "status", None) == "not-run":
+            row = None
+        sc = (self_checks or {}).get((m.id, m.effect))
+        out.append(_one(m, min_n=min_n, min_kept=min_kept, homog=homogeneity, indep=independence,
+                        calib_row=row, alpha=alpha, self_check_ok=sc))
+    return tuple(out)
