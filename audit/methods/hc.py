@@ -94,7 +94,7 @@ def hc_wald(fit: Fit, *, effect: str = "AB", kind: str = "hc3") -> MethodResult:
     if kind not in KINDS:
         raise ValueError(f"kind: expected one of {KINDS}, found {kind!r}")
     mid = f"{kind}-wald"
-    cells = fit.cells
+    cells = fit.cells.standardised()   # exact power-of-two scale: squares neither underflow nor overflow
     counts = cells.counts
 
     def none(reason):

@@ -219,7 +219,7 @@ def welch_james(fit: Fit, *, effect: str = "AB") -> MethodResult:
     (summary mode too).  ``extra`` holds T (the HC2 Wald chi-square), A, c.
     """
     check_effect(effect)
-    cells = fit.cells
+    cells = fit.cells.standardised()   # exact power-of-two scale: same statistic at every data scale
     reason = _cells_problem(cells, 2, "the Welch-James test")
     if reason:
         return _degenerate("welch-james", effect, reason)
@@ -255,7 +255,8 @@ def welch_james_trimmed(fit: Fit, *, effect: str = "AB", gamma: float = 0.2) -> 
     if reason:
         return _degenerate(mid, effect, reason, extra={"gamma": gamma})
     m = cells.J * cells.K
-    tmean, wvar, n, h = trimmed_cell_stats(fit.obs.y, fit.obs.cell, m, gamma=gamma)
+    unit = cells.standardised().unit   # exact power of two: squares stay in range at every data scale
+    tmean, wvar, n, h = trimmed_cell_stats(fit.obs.y / unit, fit.obs.cell, m, gamma=gamma)
     if (h < 2).any():
         bad = [f"{cells.cell_label(i // cells.K, i % cells.K)} (n = {n[i]}, h = {h[i]})"
                for i in np.nonzero(h < 2)[0]]
@@ -276,7 +277,8 @@ def welch_james_trimmed(fit: Fit, *, effect: str = "AB", gamma: float = 0.2) -> 
              f"{gamma:.0%} trimmed means with Winsorized variances: tests trimmed population means, "
              "not means; resistant to heavy tails and outliers, allows unequal variances"]
     extra = {"gamma": float(gamma), "min_h": int(h.min()),
-             "trimmed_means": [[float(x) for x in row] for row in (tmean + cells.offset).reshape(cells.J, cells.K)]}
+             "trimmed_means": [[float(x) for x in row]
+                               for row in (tmean * unit + cells.offset).reshape(cells.J, cells.K)]}
     return _result_from_core(mid, effect, *out, C.shape[0], notes, extra)
 
 
