@@ -393,8 +393,8 @@ def _row(effect, label, ss, df, sc: _Scale, note=None) -> AnovaRow:
     ss = max(float(ss), 0.0)
     if ss <= sc.zero and ss > 0.0:
         ss = 0.0
-        notes.append("the effect SS is zero to rounding (at or below 1e-25 of the sum of squared "
-                     "responses) and is reported as 0")
+        notes.append("the effect SS is zero to rounding (at or below 5e-26 of the sum of squared "
+                     "responses, ZERO_SS_RTOL) and is reported as 0")
     ms = ss / df
     ss_d = _restore(ss, sc.unit, "sum of squares", notes)
     ms_d = _restore(ms, sc.unit, "mean square", [])
@@ -460,8 +460,11 @@ def anova_two_way(cells: CellStats) -> AnovaResult:
     uncorrected = float(np.sum(np.where(n_all > 0, cells.means, 0.0) ** 2 * n_all) + cells.sse_within)
     zero = ZERO_SS_RTOL * uncorrected
     sse = cells.sse_within
-    if sse <= zero:
+    sse_note = None
+    if 0.0 < sse <= zero:
         sse = 0.0
+        sse_note = ("the residual SS is zero to rounding (at or below 5e-26 of the sum of squared "
+                    "responses, ZERO_SS_RTOL) and is reported as 0")
     ms_e = sse / df_e if df_e > 0 else None
     sc = _Scale(ms_error=ms_e, df_error=df_e, N=N, unit=u, zero=zero)
     centre = _grand_mean(cells)
@@ -481,13 +484,13 @@ def anova_two_way(cells: CellStats) -> AnovaResult:
         _row("A", labels["A"], q_mu - q_a, rank_a - 1, sc),
         _row("B", labels["B"], q_a - q_ab_model, rank_add - rank_a, sc),
         _row("AB", labels["AB"], ss_ab, df_ab, sc),
-        _residual(sse, df_e, ms_e, u),
+        _residual(sse, df_e, ms_e, u, sse_note),
     ))
     tables["II"] = AnovaTable(ss_type="II", rows=(
         _row("A", labels["A"], q_b - q_ab_model, rank_add - rank_b, sc),
         _row("B", labels["B"], q_a - q_ab_model, rank_add - rank_a, sc),
         _row("AB", labels["AB"], ss_ab, df_ab, sc),
-        _residual(sse, df_e, ms_e, u),
+        _residual(sse, df_e, ms_e, u, sse_note),
     ))
     if cells.m == J * K:
         C = type3_contrasts(J, K)
@@ -504,7 +507,7 @@ def anova_two_way(cells: CellStats) -> AnovaResult:
         ab_note = (f"empty cells: interaction tested on {df_ab} df (filled cells minus the additive "
                    "model's rank; m - J - K + 1 in a connected design), the same under every SS type")
     rows3.append(_row("AB", labels["AB"], ss_ab, df_ab, sc, note=ab_note))
-    rows3.append(_residual(sse, df_e, ms_e, u))
+    rows3.append(_residual(sse, df_e, ms_e, u, sse_note))
     tables["III"] = AnovaTable(ss_type="III", rows=tuple(rows3))
     if ab_note:
         for t in ("I", "II"):
@@ -525,8 +528,8 @@ def anova_two_way(cells: CellStats) -> AnovaResult:
     )
 
 
-def _residual(sse: float, df_e: int, ms_e: float | None, unit: float) -> AnovaRow:
-    notes: list[str] = []
+def _residual(sse: float, df_e: int, ms_e: float | None, unit: float, note: str | None = None) -> AnovaRow:
+    notes: list[str] = [note] if note else []
     ss = _restore(sse, unit, "residual sum of squares", notes)
     ms = _restore(ms_e, unit, "residual mean square", [])
     return AnovaRow(effect="residual", label="Residual", ss=ss, df=df_e, ms=ms, F=None, p=None,
