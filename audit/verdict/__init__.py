@@ -5,5 +5,14 @@ Importing this package has no side effects.
 """
 
 from .claim import Claim, parse_claim
+from .reconcile import ClosestMatch, ReconcileCheck, Reconciliation, decision_of_claim, reconcile
 
-__all__ = ["Claim", "parse_claim"]
+__all__ = [
+    "Claim",
+    "parse_claim",
+    "ReconcileCheck",
+    "ClosestMatch",
+    "Reconciliation",
+    "reconcile",
+    "decision_of_claim",
+]
