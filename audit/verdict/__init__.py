@@ -6,6 +6,7 @@ Importing this package has no side effects.
 
 from .claim import Claim, parse_claim
 from .reconcile import ClosestMatch, ReconcileCheck, Reconciliation, decision_of_claim, reconcile
+from .sensitivity import DetectableEffect, EquivalenceResult, detectable_interaction, equivalence_test
 
 __all__ = [
     "Claim",
@@ -15,4 +16,8 @@ __all__ = [
     "Reconciliation",
     "reconcile",
     "decision_of_claim",
+    "DetectableEffect",
+    "EquivalenceResult",
+    "detectable_interaction",
+    "equivalence_test",
 ]
