@@ -353,9 +353,9 @@ def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0
         else:
             diff = implied_n - n_obs
             msg = (
-                f"df2 = {_g(claim.df2)} implies N = df2 + m = {_g(claim.df2)} + {n_cells} = {_g(implied_n)} "
-                f"observations, but the data have N = {n_obs} ({_g(abs(diff))} "
-                f"{'more' if diff > 0 else 'fewer'} than the data; error df here {err_df})"
+                f"df2 = {_g(claim.df2)} implies N = {_g(implied_n)} observations (df2 + m = {_g(claim.df2)} + "
+                f"{n_cells} cells), but the data have N = {n_obs}: {_g(abs(diff))} "
+                f"{'more' if diff > 0 else 'fewer'} than the data (error df here {err_df})"
             )
             if not float(claim.df2).is_integer():
                 msg += "; a fractional df2 points to a Welch-type or corrected test, not the classical F"
