@@ -48,6 +48,7 @@ __all__ = [
     "EquivalenceResult",
     "detectable_interaction",
     "equivalence_test",
+    "detectable_noncentrality",
     "noncentral_f_sf",
     "noncentral_f_cdf",
 ]
@@ -267,6 +268,30 @@ def _solve_noncentrality(alpha: float, power: float, df1: float, df2: float) -> 
     except (ValueError, RuntimeError):
         return None, None
     return float(lam), noncentral_f_sf(crit, df1, df2, lam)[1]
+
+
+def detectable_noncentrality(df1: float, df2: float, *, alpha: float = 0.05, power: float = 0.8) -> tuple[float | None, str | None]:
+    """The noncentrality lambda at which the F(df1, df2) test at ``alpha`` has ``power``.
+
+    Parameters
+    ----------
+    df1, df2 : float
+        Degrees of freedom (df2 may be ``math.inf``: the chi-square limit is used).
+    alpha : float, default 0.05
+        Significance level.
+    power : float, default 0.8
+        Target power.
+
+    Returns
+    -------
+    (float or None, str or None)
+        lambda and the method used; (None, None) when it cannot be computed.
+    """
+    alpha = _check_level("alpha", alpha)
+    power = _check_level("power", power)
+    if not (_finite(df1) and df1 > 0 and df2 is not None and not math.isnan(df2) and df2 > 0):
+        return None, None
+    return _solve_noncentrality(alpha, power, float(df1), float(df2))
 
 
 def _check_level(name: str, value) -> float:
