@@ -197,7 +197,9 @@ def test_degenerate_designs_give_reasons():
     # an empty cell
     emp = df[~((df.a == "a1") & (df.b == "b1"))]
     r = welch_james(_fit(emp))
-    assert r.p is None and "empty" in r.notes[0]
+    assert r.p is not None and r.df1 == 5 and "estimable" in r.notes[0]  # (J-1)(K-1) - 1 contrasts
+    r = welch_james(_fit(emp), effect="A")
+    assert r.p is None and "empty" in r.notes[0] and "a1 x b1" in r.notes[0]
     # trimmed: a cell of 2 keeps h = 2 (allowed), a cell of 5 keeps h = 3; check the h >= 2 rule with gamma 0.4
     two = pd.concat([df[~((df.a == "a1") & (df.b == "b1"))], df[(df.a == "a1") & (df.b == "b1")].iloc[:5]])
     r = welch_james_trimmed(_fit(two), gamma=0.4)
