@@ -89,8 +89,8 @@ def hc_wald(fit: Fit, *, effect: str = "AB", kind: str = "hc3") -> MethodResult:
     Needs n_jk >= 2 in every filled cell (a cell with one observation has
     leverage 1 and no usable HC weight).  With empty cells the interaction is
     tested on its estimable contrasts in the cell-means model of the filled
-    cells (p = m parameters, h_ii = 1 / n_jk); main effects then get a reason.  ``extra``: W (chi-square form),
-    kind, and for HC4 the range of exponents delta.
+    cells (p = m parameters, h_ii = 1 / n_jk); main effects then get a reason.
+    ``extra``: W (chi-square form), kind, and for HC4 the range of exponents delta.
     """
     check_effect(effect)
     if kind not in KINDS:
