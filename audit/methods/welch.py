@@ -232,6 +232,11 @@ SMALL_CELL_NOTE = ("Welch-James runs liberal in very small cells: {cells} ha{s} 
                    "variance rests on 1-2 df; read p with caution and compare the studentized permutation")
 
 
+#: note for the wild bootstrap when a filled cell has n <= 3
+WILD_SMALL_CELL_NOTE = ("wild bootstrap at its limits in cells of 2-3 observations: sign flips swap each "
+                        "cell's spread and mean deviation ({cells}); read p with caution")
+
+
 def small_cell_note(cells, limit: int = 3, template: str = SMALL_CELL_NOTE) -> str | None:
     """A note naming the filled cells with n <= ``limit`` (None when there are none)."""
     counts = cells.counts
