@@ -188,6 +188,19 @@ def rank_transform(fit: Fit, *, effect: str = "AB") -> MethodResult:
     return rank_transform_all(fit)[EFFECTS.index(effect)]
 
 
+#: cautions for the published alignment with unequal cell sizes [interaction, main effect]; figures
+#: from benchmarks/sim_art_alignment.py (seeded, unbalanced 3 x 3, normal equal-variance errors)
+UNBALANCED_ART_NOTE = (
+    "unequal cell sizes: the published alignment (marginal means of the observations) leaves part of the "
+    "main effects in the interaction-aligned responses; in our size simulation with main effects present "
+    "its interaction test rejected a true null somewhat more often than alpha (see DEVELOPERS.md); "
+    "alignment='cell-means' removes them exactly",
+    "unequal cell sizes: the published alignment estimates this main effect from marginal means of the "
+    "observations, which mix in the other factor's effect; in our size simulation (unbalanced 3 x 3, the "
+    "other factor with an effect) this test rejected 63-72% of true nulls at alpha = 0.05, against 5% with "
+    "alignment='cell-means' - do not rely on it here",
+)
+
 #: alignment estimates: the published one (marginal means of the observations) and the
 #: unweighted one (marginal means of the cell means, sum-to-zero coding)
 ALIGNMENTS = ("observation-means", "cell-means")
@@ -304,6 +317,8 @@ def aligned_rank_transform(fit: Fit, *, effect: str = "AB", alignment: str = "ob
     notes = [f"aligned for {effect} ({'marginal means of the observations, as published' if alignment == 'observation-means' else 'unweighted marginal means of the cell means'}), "
              f"mid-ranked, full factorial ANOVA on the ranks (Type III); only the {effect} row is read",
              check_note, *ART_CAUTIONS]
+    if not balanced and alignment == "observation-means":
+        notes.append(UNBALANCED_ART_NOTE[effect != "AB"])
     extra = {"ss_type": "III", "alignment": alignment,
              "self_check": {"passed": passed, "f_other": others, "max_f_other": max_other,
                             "expected_zero": exact, "tolerance": SELF_CHECK_TOL}}
