@@ -21,9 +21,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from audit.design import cells_from_observations  # noqa: E402
 from audit.fit import fit_observations  # noqa: E402
-from audit.intake import Observations  # noqa: E402
 from audit.methods.ranks import aligned_rank_transform  # noqa: E402
 
 COUNTS = np.array([[3, 8, 14], [10, 4, 7], [12, 6, 3]])   # unbalanced 3 x 3, N = 67

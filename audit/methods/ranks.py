@@ -7,13 +7,18 @@ inflated Type I error (Blair, Sawilowsky & Higgins 1987; Sawilowsky 1990).
 
 Aligned rank transform (ART; Higgins & Tashtoush 1994; Wobbrock, Findlater,
 Gergle & Higgins 2011): for each effect separately, aligned response = residual
-from the cell mean + that effect's estimate in the full model with sum-to-zero
-coding (unweighted marginal means of the cell means); mid-rank; run the full
-factorial ANOVA on the ranks (Type III) and read only the aligned effect.  The
-method's self-check, run every time: an ANOVA of the aligned (unranked)
-responses gives F = 0, to rounding, for every effect other than the aligned one.
-With the unweighted (sum-to-zero) estimates used here that holds under Type III
-in unbalanced designs too.
+from the cell mean + that effect's estimate; mid-rank; run the full factorial
+ANOVA on the ranks (Type III) and read only the aligned effect.  By default the
+effects are estimated as published, from marginal means of the observations
+(a_j = ybar_j. - ybar, ab_jk = ybar_jk - ybar_j. - ybar_.k + ybar); the option
+``alignment='cell-means'`` uses unweighted means of the cell means (the
+sum-to-zero estimates), which held size better in unbalanced designs in our
+simulation (DEVELOPERS.md).  The method's self-check, run every time: an ANOVA
+of the aligned (unranked) responses gives F = 0, to rounding, for every effect
+the alignment removes exactly (all of them in balanced designs and with the
+cell-means alignment; with the published alignment in unbalanced designs the
+interaction alignment keeps part of the main effects, and the check is that
+the interaction SS is preserved).
 
 Both need the raw observations (ranks are not in a summary table).  One
 O(N log N) ranking per effect plus bincounts; no model refit over observations.
