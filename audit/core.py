@@ -21,6 +21,7 @@ References
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -37,6 +38,9 @@ __all__ = [
     "weighted_ls_residual",
     "contrast_matrix",
     "partial_eta_sq_ci",
+    "ncf_cdf",
+    "ncf_cdf_mixture",
+    "ZERO_SS_RTOL",
 ]
 
 EFFECTS = ("A", "B", "AB")
@@ -125,7 +129,9 @@ class AnovaResult:
     additive_fit : ndarray (J, K)
         Fitted cell means of the additive model (relative to the offset).
     ss_error, df_error, ms_error : the full model's residual SS, df and MS
-        (ms_error None when df_error = 0).
+        on the response scale (ms_error None when df_error = 0; ss_error and
+        ms_error None when outside the float64 range, 0.0 when zero to
+        rounding, see :data:`ZERO_SS_RTOL`).
     df_interaction : int
         (J-1)(K-1) with every cell filled; m - rank(additive) otherwise.
     """
@@ -133,7 +139,7 @@ class AnovaResult:
     tables: dict
     interaction_terms: np.ndarray
     additive_fit: np.ndarray
-    ss_error: float
+    ss_error: float | None
     df_error: int
     ms_error: float | None
     df_interaction: int
@@ -229,52 +235,185 @@ def type3_contrasts(J: int, K: int) -> dict[str, np.ndarray]:
     }
 
 
-def partial_eta_sq_ci(F: float, df1: int, df2: int, *, level: float = 0.95) -> tuple[float, float]:
+#: an SS at or below this fraction of the uncorrected total SS (sum of the
+#: squared responses about the intake offset) is rounding noise: each value
+#: carries a rounding error of at most eps |y|, so any SS formed from exactly
+#: equal or exactly additive data is of order eps^2 sum y^2 (a factor 1e3 on
+#: eps leaves room for the accumulation over cells; our choice).  Such an
+#: effect SS is reported as 0 and a residual SS at or below it counts as "no
+#: variation within cells".
+ZERO_SS_RTOL = (1e3 * np.finfo(float).eps) ** 2
+
+#: 1 - cdf is used where the noncentral F cdf is not a number; beyond this many
+#: error df, or where neither is a number, the cdf is the expectation of the
+#: noncentral chi-square cdf over the denominator chi-square (quadrature)
+_NCF_QUAD_PANELS = np.array([0.0, 1e-12, 1e-8, 1e-5, 1e-3, 0.02, 0.2, 0.5, 0.8, 0.98,
+                             1 - 1e-3, 1 - 1e-5, 1 - 1e-8, 1 - 1e-12, 1.0])
+_NCF_QUAD_NODES = 32
+
+
+def ncf_cdf(F: float, df1: float, df2: float, lam: float) -> float:
+    """P(F' <= F) for the noncentral F(df1, df2, lam), NaN-free where possible.
+
+    scipy.stats.ncf.cdf returns NaN for some large arguments (for example
+    F = 300, df1 = 15, df2 = 1e5, lam = 9000); then 1 - ncf.sf is used, and
+    where that fails too, the defining mixture
+    P(F' <= F) = E[ P(chi2'(df1, lam) <= F df1 X / df2) ], X ~ chi2(df2),
+    by Gauss-Legendre quadrature over the probability scale of X.
+    Returns NaN only if every route fails.
+    """
+    from scipy import stats
+
+    with np.errstate(all="ignore"):
+        if lam <= 0:
+            c = float(stats.f.cdf(F, df1, df2))
+            if math.isfinite(c):
+                return c
+        c = float(stats.ncf.cdf(F, df1, df2, lam))
+        if math.isfinite(c) and 0.0 <= c <= 1.0:
+            return c
+        c = 1.0 - float(stats.ncf.sf(F, df1, df2, lam))
+        if math.isfinite(c) and 0.0 <= c <= 1.0:
+            return c
+        return ncf_cdf_mixture(F, df1, df2, lam)
+
+
+def ncf_cdf_mixture(F: float, df1: float, df2: float, lam: float) -> float:
+    """P(F' <= F) as E[ncx2.cdf(F df1 X / df2; df1, lam)], X ~ chi2(df2), by
+    Gauss-Legendre quadrature on 14 panels of u = P(X <= x), dense in the tails
+    (the definition of the noncentral F as a ratio of independent chi-squares;
+    agrees with scipy.stats.ncf.cdf to about 1e-9 where that is defined)."""
+    from scipy import stats
+
+    x, w = np.polynomial.legendre.leggauss(_NCF_QUAD_NODES)
+    a, b = _NCF_QUAD_PANELS[:-1, None], _NCF_QUAD_PANELS[1:, None]
+    u = (a + (b - a) * (x + 1.0) / 2.0).ravel()
+    ww = ((b - a) / 2.0 * w).ravel()
+    with np.errstate(all="ignore"):
+        X = stats.chi2.ppf(u, df2) / df2
+        v = stats.ncx2.cdf(F * df1 * X, df1, lam) if lam > 0 else stats.chi2.cdf(F * df1 * X, df1)
+    ok = np.isfinite(v)
+    if not ok.all():
+        return float("nan")
+    return float(np.clip(np.sum(ww * v), 0.0, 1.0))
+
+
+#: largest noncentrality searched (eta^2 = 1 - (df1 + df2 + 1) / lam beyond it)
+_LAMBDA_MAX = 1e15
+
+
+def partial_eta_sq_ci(F: float, df1: int, df2: int, *, level: float = 0.95) -> tuple[float, float] | None:
     """Confidence interval for partial eta^2 by inverting the noncentral F.
 
     Finds lambda_lo, lambda_hi with P(F' <= F_obs; lambda) = (1 + level)/2 and
-    (1 - level)/2, then eta^2 = lambda / (lambda + df1 + df2 + 1) [3].
+    (1 - level)/2, then eta^2 = lambda / (lambda + df1 + df2 + 1) [3].  The cdf
+    comes from :func:`ncf_cdf` (scipy's noncentral F with fallbacks), the root
+    from a bracketing search (doubling, then Brent's method, bisection if a
+    value is not a number).  Returns None when the interval cannot be computed
+    (every cdf route failed or no bracket up to lambda = 1e15); the caller
+    states why.
     """
-    from scipy import optimize, stats
+    from scipy import optimize
 
+    if not (math.isfinite(F) and F >= 0 and df1 > 0 and df2 > 0):
+        return None
     hi_q = (1 + level) / 2
     lo_q = (1 - level) / 2
 
+    class _Fail(Exception):
+        pass
+
     def cdf(lam: float) -> float:
-        return float(stats.ncf.cdf(F, df1, df2, lam)) if lam > 0 else float(stats.f.cdf(F, df1, df2))
+        c = ncf_cdf(F, df1, df2, lam)
+        if not math.isfinite(c):
+            raise _Fail
+        return c
 
     def solve(q: float) -> float:
         if cdf(0.0) <= q:
             return 0.0
-        upper = max(10.0, 2.0 * F * df1)
+        lower, upper = 0.0, max(10.0, 2.0 * F * df1)
         while cdf(upper) > q:
-            upper *= 2.0
-            if upper > 1e9:
-                return float("inf")
-        return float(optimize.brentq(lambda lam: cdf(lam) - q, 0.0, upper, xtol=1e-10, rtol=1e-12))
+            lower, upper = upper, upper * 2.0
+            if upper > _LAMBDA_MAX:
+                raise _Fail
+        g = lambda lam: cdf(lam) - q  # noqa: E731
+        return float(optimize.brentq(g, lower, upper, xtol=1e-10, rtol=1e-12))
 
-    lam_lo, lam_hi = solve(hi_q), solve(lo_q)
-    conv = lambda lam: lam / (lam + df1 + df2 + 1) if np.isfinite(lam) else 1.0  # noqa: E731
+    try:
+        lam_lo, lam_hi = solve(hi_q), solve(lo_q)
+    except (_Fail, ValueError, RuntimeError):
+        return None
+    conv = lambda lam: lam / (lam + df1 + df2 + 1)  # noqa: E731
     return (conv(lam_lo), conv(lam_hi))
 
 
-def _row(effect, label, ss, df, ms_error, df_error, N, note=None) -> AnovaRow:
+@dataclass(frozen=True)
+class _Scale:
+    """What a row needs besides its own SS (all SS in standardised units)."""
+
+    ms_error: float | None     # None: no error df; 0.0: no within-cell variation
+    df_error: int
+    N: int
+    unit: float                # standardised SS x unit^2 = response-scale SS
+    zero: float                # SS at or below this is rounding noise
+
+
+_RANGE_NOTE = ("the {what} is outside the float64 range on the response's scale ({val}); it is "
+               "left blank, while F, p and the effect sizes are computed on the standardised "
+               "response and are unaffected")
+
+
+def _restore(x: float | None, unit: float, what: str, notes: list) -> float | None:
+    """x * unit^2 (unit an exact power of two) or None with a note when the
+    product overflows or underflows the normal float64 range."""
+    if x is None:
+        return None
+    with np.errstate(all="ignore"):
+        v = float(x) * unit * unit
+    if x == 0.0 or (math.isfinite(v) and abs(v) >= np.finfo(float).tiny):
+        return v
+    e = math.log10(abs(x)) + 2.0 * math.log2(unit) * math.log10(2.0)
+    notes.append(_RANGE_NOTE.format(what=what, val=f"about 1e{e:.0f}"))
+    return None
+
+
+def _join(*notes) -> str | None:
+    out = [n for n in notes if n]
+    return "; ".join(out) if out else None
+
+
+def _row(effect, label, ss, df, sc: _Scale, note=None) -> AnovaRow:
+    ms_error, df_error, N = sc.ms_error, sc.df_error, sc.N
     if ss is None or df <= 0:
-        return AnovaRow(effect=effect, label=label, ss=ss if df > 0 else None, df=df, ms=None, F=None, p=None,
+        return AnovaRow(effect=effect, label=label, ss=None, df=df, ms=None, F=None, p=None,
                         partial_eta_sq=None, partial_eta_sq_ci=None, partial_omega_sq=None,
                         note=note or "no degrees of freedom left for this effect in the filled cells")
+    notes: list[str] = []
     ss = max(float(ss), 0.0)
+    if ss <= sc.zero and ss > 0.0:
+        ss = 0.0
+        notes.append("the effect SS is zero to rounding (at or below 5e-26 of the sum of squared "
+                     "responses, ZERO_SS_RTOL) and is reported as 0")
     ms = ss / df
+    ss_d = _restore(ss, sc.unit, "sum of squares", notes)
+    ms_d = _restore(ms, sc.unit, "mean square", [])
     if ms_error is None:
-        return AnovaRow(effect=effect, label=label, ss=ss, df=df, ms=ms, F=None, p=None,
+        return AnovaRow(effect=effect, label=label, ss=ss_d, df=df, ms=ms_d, F=None, p=None,
                         partial_eta_sq=None, partial_eta_sq_ci=None, partial_omega_sq=None,
-                        note=note or "no within-cell error term (one observation per cell): F and p cannot be formed")
+                        note=_join(note or "no within-cell error term (one observation per cell): F and p "
+                                           "cannot be formed", *notes))
     sse = ms_error * df_error
     if ms_error <= 0:
-        return AnovaRow(effect=effect, label=label, ss=ss, df=df, ms=ms, F=None, p=None,
-                        partial_eta_sq=1.0 if ss > 0 else None, partial_eta_sq_ci=None, partial_omega_sq=None,
-                        note=note or "no variation within cells (every observation equals its cell mean): "
-                                     "the F ratio is undefined")
+        if ss > 0:
+            eta, why = 1.0, None
+        else:
+            eta, why = None, ("partial eta squared is 0/0 (no variation within cells and none for this "
+                              "effect) and is left blank")
+        return AnovaRow(effect=effect, label=label, ss=ss_d, df=df, ms=ms_d, F=None, p=None,
+                        partial_eta_sq=eta, partial_eta_sq_ci=None, partial_omega_sq=None,
+                        note=_join(note or "no variation within cells (every observation equals its cell "
+                                           "mean, to rounding): the F ratio is undefined", why, *notes))
     from scipy import stats
 
     F = ms / ms_error
@@ -282,8 +421,12 @@ def _row(effect, label, ss, df, ms_error, df_error, N, note=None) -> AnovaRow:
     eta = ss / (ss + sse)
     omega = (ss - df * ms_error) / (ss + (N - df) * ms_error)
     ci = partial_eta_sq_ci(F, df, df_error)
-    return AnovaRow(effect=effect, label=label, ss=ss, df=df, ms=ms, F=float(F), p=p,
-                    partial_eta_sq=float(eta), partial_eta_sq_ci=ci, partial_omega_sq=float(omega), note=note)
+    if ci is None:
+        notes.append("the confidence interval of partial eta squared could not be computed (the "
+                     "noncentral F could not be evaluated or inverted at these degrees of freedom)")
+    return AnovaRow(effect=effect, label=label, ss=ss_d, df=df, ms=ms_d, F=float(F), p=p,
+                    partial_eta_sq=float(eta), partial_eta_sq_ci=ci, partial_omega_sq=float(omega),
+                    note=_join(note, *notes))
 
 
 def anova_two_way(cells: CellStats) -> AnovaResult:
@@ -307,12 +450,23 @@ def anova_two_way(cells: CellStats) -> AnovaResult:
     m - rank(A+B) df and Type III main effects are reported as not estimable
     in the usual sense [1].
     """
+    cells = cells.standardised()          # every SS below in units of cells.unit^2
+    u = cells.unit
     J, K, N = cells.J, cells.K, cells.N
     a_name, b_name = cells.factors
     labels = {"A": a_name, "B": b_name, "AB": f"{a_name}:{b_name}"}
     df_e = cells.df_within
+    n_all = cells.counts
+    uncorrected = float(np.sum(np.where(n_all > 0, cells.means, 0.0) ** 2 * n_all) + cells.sse_within)
+    zero = ZERO_SS_RTOL * uncorrected
     sse = cells.sse_within
+    sse_note = None
+    if 0.0 < sse <= zero:
+        sse = 0.0
+        sse_note = ("the residual SS is zero to rounding (at or below 5e-26 of the sum of squared "
+                    "responses, ZERO_SS_RTOL) and is reported as 0")
     ms_e = sse / df_e if df_e > 0 else None
+    sc = _Scale(ms_error=ms_e, df_error=df_e, N=N, unit=u, zero=zero)
     centre = _grand_mean(cells)
 
     q_mu = _q_one_way(cells, None)
@@ -327,33 +481,33 @@ def anova_two_way(cells: CellStats) -> AnovaResult:
     tables = {}
     # Type I: A, B | A, AB | A, B
     tables["I"] = AnovaTable(ss_type="I", rows=(
-        _row("A", labels["A"], q_mu - q_a, rank_a - 1, ms_e, df_e, N),
-        _row("B", labels["B"], q_a - q_ab_model, rank_add - rank_a, ms_e, df_e, N),
-        _row("AB", labels["AB"], ss_ab, df_ab, ms_e, df_e, N),
-        _residual(sse, df_e, ms_e),
+        _row("A", labels["A"], q_mu - q_a, rank_a - 1, sc),
+        _row("B", labels["B"], q_a - q_ab_model, rank_add - rank_a, sc),
+        _row("AB", labels["AB"], ss_ab, df_ab, sc),
+        _residual(sse, df_e, ms_e, u, sse_note),
     ))
     tables["II"] = AnovaTable(ss_type="II", rows=(
-        _row("A", labels["A"], q_b - q_ab_model, rank_add - rank_b, ms_e, df_e, N),
-        _row("B", labels["B"], q_a - q_ab_model, rank_add - rank_a, ms_e, df_e, N),
-        _row("AB", labels["AB"], ss_ab, df_ab, ms_e, df_e, N),
-        _residual(sse, df_e, ms_e),
+        _row("A", labels["A"], q_b - q_ab_model, rank_add - rank_b, sc),
+        _row("B", labels["B"], q_a - q_ab_model, rank_add - rank_a, sc),
+        _row("AB", labels["AB"], ss_ab, df_ab, sc),
+        _residual(sse, df_e, ms_e, u, sse_note),
     ))
     if cells.m == J * K:
         C = type3_contrasts(J, K)
         rows3 = [
-            _row(e, labels[e], _wald_ss(cells, C[e]), C[e].shape[0], ms_e, df_e, N) for e in ("A", "B")
+            _row(e, labels[e], _wald_ss(cells, C[e]), C[e].shape[0], sc) for e in ("A", "B")
         ]
     else:
         reason = ("not estimable in the usual sense: with empty cells the unweighted marginal means "
                   "that Type III compares are undefined (see Types I and II)")
-        rows3 = [_row(e, labels[e], None, 0, ms_e, df_e, N, note=reason) for e in ("A", "B")]
+        rows3 = [_row(e, labels[e], None, 0, sc, note=reason) for e in ("A", "B")]
         rows3 = [AnovaRow(**{**r.__dict__, "df": df}) for r, df in zip(rows3, (J - 1, K - 1))]
     ab_note = None
     if cells.m < J * K:
         ab_note = (f"empty cells: interaction tested on {df_ab} df (filled cells minus the additive "
                    "model's rank; m - J - K + 1 in a connected design), the same under every SS type")
-    rows3.append(_row("AB", labels["AB"], ss_ab, df_ab, ms_e, df_e, N, note=ab_note))
-    rows3.append(_residual(sse, df_e, ms_e))
+    rows3.append(_row("AB", labels["AB"], ss_ab, df_ab, sc, note=ab_note))
+    rows3.append(_residual(sse, df_e, ms_e, u, sse_note))
     tables["III"] = AnovaTable(ss_type="III", rows=tuple(rows3))
     if ab_note:
         for t in ("I", "II"):
@@ -362,18 +516,22 @@ def anova_two_way(cells: CellStats) -> AnovaResult:
             tables[t] = AnovaTable(ss_type=t, rows=tuple(rows))
 
     terms = np.where(cells.filled, cells.means - add_fit, np.nan)
+    res = tables["III"].rows[-1]
     return AnovaResult(
         tables=tables,
-        interaction_terms=terms,
-        additive_fit=add_fit,
-        ss_error=sse,
+        interaction_terms=terms * u,
+        additive_fit=add_fit * u,
+        ss_error=res.ss,
         df_error=df_e,
-        ms_error=ms_e,
+        ms_error=res.ms,
         df_interaction=df_ab,
     )
 
 
-def _residual(sse: float, df_e: int, ms_e: float | None) -> AnovaRow:
-    return AnovaRow(effect="residual", label="Residual", ss=sse, df=df_e, ms=ms_e, F=None, p=None,
+def _residual(sse: float, df_e: int, ms_e: float | None, unit: float, note: str | None = None) -> AnovaRow:
+    notes: list[str] = [note] if note else []
+    ss = _restore(sse, unit, "residual sum of squares", notes)
+    ms = _restore(ms_e, unit, "residual mean square", [])
+    return AnovaRow(effect="residual", label="Residual", ss=ss, df=df_e, ms=ms, F=None, p=None,
                     partial_eta_sq=None, partial_eta_sq_ci=None, partial_omega_sq=None,
-                    note=None if df_e > 0 else "no within-cell replication")
+                    note=_join(None if df_e > 0 else "no within-cell replication", *notes))

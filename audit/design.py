@@ -9,6 +9,7 @@ reviewer reads first: levels, cell counts, empty cells, balance.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -18,12 +19,35 @@ from .errors import AuditInputError, ColumnError, FactorError, ResponseError
 __all__ = [
     "CellStats",
     "cell_moments",
+    "cell_moments_scaled",
+    "pow2_scale",
     "DesignSummary",
     "cells_from_observations",
     "cells_from_summary",
     "describe_design",
     "balance_class",
 ]
+
+
+def pow2_scale(*arrays) -> float:
+    """An exact power of two near the largest finite magnitude in ``arrays``
+    (1.0 when there is none or it is 0).
+
+    Dividing by it is exact in binary floating point (barring underflow of
+    values far below the largest), so the arithmetic on the standardised values
+    is bitwise the arithmetic on the originals wherever the originals neither
+    overflow nor underflow, and squares of the standardised values stay near 1
+    at every scale of the data (common practice: scaling by powers of the radix).
+    """
+    big = 0.0
+    for a in arrays:
+        a = np.abs(np.asarray(a, dtype=float))
+        a = a[np.isfinite(a)]
+        if a.size:
+            big = max(big, float(a.max()))
+    if big == 0.0:
+        return 1.0
+    return math.ldexp(1.0, math.frexp(big)[1] - 1)   # 2^e <= big < 2^(e+1)
 
 
 def _frozen(a: np.ndarray) -> np.ndarray:
@@ -54,6 +78,18 @@ class CellStats:
         depend on it.
     response : str
         Name of the response.
+    unit : float, default 1.0
+        ``means`` and ``css`` are in units of ``unit`` (a power of two): the
+        response-scale mean is ``offset + unit * means`` and the centred SS is
+        ``unit**2 * css``.  1.0 for the cells a fit holds; the copy returned by
+        :meth:`standardised` carries its scale here.
+
+    Notes
+    -----
+    Moments and quadratic forms are computed on :meth:`standardised` values
+    (divided by an exact power of two), so that a response multiplied by 10^k
+    gives the same statistics for every k where float64 holds the data; only
+    displayed sums of squares are restored to the response scale.
     """
 
     factors: tuple[str, str]
@@ -64,11 +100,49 @@ class CellStats:
     css: np.ndarray
     offset: float = 0.0
     response: str = "y"
+    unit: float = 1.0
+    #: (scale, means / scale, css / scale^2) computed without overflow or
+    #: underflow where the cells were built (see :meth:`standardised`)
+    standard: tuple | None = field(default=None, repr=False, compare=False)
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "counts", _frozen(np.asarray(self.counts, dtype=np.int64)))
         object.__setattr__(self, "means", _frozen(np.asarray(self.means, dtype=float)))
         object.__setattr__(self, "css", _frozen(np.asarray(self.css, dtype=float)))
+
+    def standardised(self) -> "CellStats":
+        """A copy in units of an exact power of two near the largest of |mean|
+        and the cell RMS deviations (both relative to ``offset``), so that every
+        square and quadratic form of the copy is of order 1 or below.
+
+        Dividing by a power of two is exact: statistics computed on the copy are
+        those of the original wherever the original's arithmetic does not
+        overflow or underflow, and stay right where it would.  The scale is in
+        the copy's ``unit`` (relative to the response scale).
+        """
+        if self.standard is not None:
+            s, means, css = self.standard
+            s = s * self.unit
+        else:
+            n = np.maximum(self.counts, 1)
+            with np.errstate(all="ignore"):
+                rms = np.sqrt(self.css / n)
+            s0 = pow2_scale(np.where(self.counts > 0, self.means, 0.0), rms)
+            means = self.means / s0
+            css = self.css / s0 / s0
+            s = s0 * self.unit
+        return CellStats(factors=self.factors, levels_a=self.levels_a, levels_b=self.levels_b,
+                         counts=self.counts, means=means, css=css, offset=self.offset,
+                         response=self.response, unit=s, standard=(1.0, means, css))
+
+    @property
+    def sd(self) -> np.ndarray:
+        """Cell standard deviations (ddof 1) on the response scale, computed on
+        the standardised values (no overflow); NaN where n <= 1 or out of range."""
+        st = self.standardised()
+        with np.errstate(all="ignore"):
+            v = np.sqrt(st.css / (self.counts - 1)) * st.unit
+        return np.where((self.counts > 1) & np.isfinite(v), v, np.nan)
 
     @property
     def J(self) -> int:
@@ -111,7 +185,7 @@ class CellStats:
     @property
     def display_means(self) -> np.ndarray:
         """Cell means on the original scale (offset added back)."""
-        return self.means + self.offset
+        return self.means * self.unit + self.offset if self.unit != 1.0 else self.means + self.offset
 
     def cell_label(self, j: int, k: int) -> str:
         return f"{self.levels_a[j]} x {self.levels_b[k]}"
@@ -120,8 +194,26 @@ class CellStats:
 def cell_moments(y: np.ndarray, cell: np.ndarray, m: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Counts, means (0 in empty cells) and centred sums of squares of ``y`` per
     cell index 0..m-1, by ``bincount`` in two passes (the mean is corrected by
-    the mean residual before the squares are summed)."""
+    the mean residual before the squares are summed).
+
+    Computed on ``y`` divided by an exact power of two (:func:`pow2_scale`) and
+    restored, so squares neither underflow nor overflow in between; a centred
+    SS beyond the float64 range comes back as inf (or 0), see
+    :func:`cell_moments_scaled` for the standardised values themselves."""
+    n, mean, css, s = cell_moments_scaled(y, cell, m)
+    with np.errstate(over="ignore", under="ignore"):
+        return n, mean * s, css * s * s
+
+
+def cell_moments_scaled(y: np.ndarray, cell: np.ndarray, m: int):
+    """(counts, means / s, css / s^2, s) with s = :func:`pow2_scale` (y)."""
     y = np.asarray(y, dtype=float)
+    s = pow2_scale(y)
+    n, mean, css = _cell_moments_raw(y / s, cell, m)
+    return n, mean, css, s
+
+
+def _cell_moments_raw(y: np.ndarray, cell: np.ndarray, m: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     n = np.bincount(cell, minlength=m)
     nz = np.maximum(n, 1)
     mean = np.bincount(cell, weights=y, minlength=m) / nz
@@ -146,8 +238,15 @@ def cells_from_observations(
     """Cell counts, means and centred SS by ``bincount`` (two passes)."""
     J, K = len(levels_a), len(levels_b)
     cell = np.asarray(a, dtype=np.int64) * K + np.asarray(b, dtype=np.int64)
-    n, mean, css = cell_moments(y, cell, J * K)
-    mean = np.where(n > 0, mean, np.nan)
+    n, mean_s, css_s, s = cell_moments_scaled(y, cell, J * K)
+    mean_s = np.where(n > 0, mean_s, np.nan)
+    # a second exact power of two from the spread, so that cells far from 0
+    # relative to their spread keep their SS well inside the float64 range
+    rms = np.sqrt(css_s / np.maximum(n, 1))
+    s2 = pow2_scale(np.where(n > 0, mean_s, 0.0), rms)
+    mean_s, css_s, s = mean_s / s2, css_s / s2 / s2, s * s2
+    with np.errstate(over="ignore", under="ignore"):
+        mean, css = mean_s * s, css_s * s * s
     return CellStats(
         factors=factors,
         levels_a=tuple(levels_a),
@@ -157,6 +256,7 @@ def cells_from_observations(
         css=css.reshape(J, K),
         offset=offset,
         response=response,
+        standard=(s, mean_s.reshape(J, K), css_s.reshape(J, K)),
     )
 
 
@@ -199,7 +299,7 @@ def cells_from_summary(
             )
     counts = np.zeros((J, K), dtype=np.int64)
     means = np.full((J, K), np.nan)
-    css = np.zeros((J, K))
+    sds = np.zeros((J, K))
     seen = np.zeros((J, K), dtype=bool)
     for i, (ja, kb) in enumerate(zip(a_codes, b_codes)):
         row = table.iloc[i]
@@ -229,7 +329,13 @@ def cells_from_summary(
         seen[ja, kb] = True
         counts[ja, kb] = int(nn)
         means[ja, kb] = mm
-        css[ja, kb] = (nn - 1) * ss * ss if nn > 1 else 0.0
+        sds[ja, kb] = ss if nn > 1 else 0.0
+    # SS formed on values divided by an exact power of two (no overflow / underflow)
+    s = pow2_scale(np.where(counts > 0, means, 0.0), sds)
+    means_s = means / s
+    css_s = np.maximum(counts - 1, 0) * (sds / s) ** 2
+    with np.errstate(over="ignore", under="ignore"):
+        css = css_s * s * s
     return CellStats(
         factors=tuple(factors),
         levels_a=tuple(map(str, a_levels)),
@@ -238,6 +344,7 @@ def cells_from_summary(
         means=means,
         css=css,
         response=response,
+        standard=(s, means_s, css_s),
     )
 
 

@@ -31,7 +31,12 @@ CAUTIONS = (
 
 
 def to_jsonable(x):
-    """Convert numpy scalars/arrays and tuples to plain JSON types; NaN -> None."""
+    """Convert numpy scalars/arrays and tuples to plain JSON types.
+
+    A non-finite float (NaN, inf, -inf) becomes None, never a string: the JSON
+    promises a number or null.  The code that produced such a value is
+    responsible for the note saying why it is missing (this function is the
+    last safety net, not the place where reasons are given)."""
     if isinstance(x, dict):
         return {str(k): to_jsonable(v) for k, v in x.items()}
     if isinstance(x, (list, tuple)):
@@ -44,7 +49,7 @@ def to_jsonable(x):
         return int(x)
     if isinstance(x, (np.floating, float)):
         v = float(x)
-        return v if math.isfinite(v) else (None if math.isnan(v) else ("inf" if v > 0 else "-inf"))
+        return v if math.isfinite(v) else None
     return x
 
 
@@ -101,7 +106,7 @@ class Findings:
 
     def cell_table(self) -> list[dict]:
         c = self.cells
-        sd = np.sqrt(c.variances)
+        sd = c.sd                      # formed on standardised values: no overflow
         out = []
         for j, la in enumerate(c.levels_a):
             for k, lb in enumerate(c.levels_b):

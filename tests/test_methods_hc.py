@@ -165,4 +165,6 @@ def test_single_observation_and_empty_cells_give_reasons():
         json.dumps(r.to_dict(), allow_nan=False)
     emp = _layout(UNBAL, 5).query("not (a == 'a1' and b == 'b1')")
     r = hc3_wald(_fit(emp))
-    assert r.p is None and "empty" in r.notes[0]
+    assert r.p is not None and r.df1 == 5 and "estimable" in r.notes[0]  # (J-1)(K-1) - 1 contrasts
+    r = hc3_wald(_fit(emp), effect="B")
+    assert r.p is None and "empty" in r.notes[0] and "a1 x b1" in r.notes[0]

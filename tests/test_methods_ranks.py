@@ -44,16 +44,23 @@ def _moore():
         columns={"conformity": "y", "partner.status": "a", "fcategory": "b"})
 
 
-def _art_reference(df, effect):
-    """Aligned responses built with pandas alone (Wobbrock et al. 2011, sum-to-zero estimates)."""
+def _art_reference(df, effect, alignment="observation-means"):
+    """Aligned responses built with pandas alone.  Published procedure (Wobbrock et al.
+    2011): effects from marginal means of the observations; 'cell-means': unweighted
+    means of the cell means (sum-to-zero estimates)."""
     cm = df.groupby(["a", "b"])["y"].mean().unstack()
-    mu = cm.to_numpy().mean()
-    a_eff = cm.mean(axis=1) - mu
-    b_eff = cm.mean(axis=0) - mu
+    if alignment == "observation-means":
+        mu = df["y"].mean()
+        row = df.groupby("a")["y"].mean()
+        col = df.groupby("b")["y"].mean()
+    else:
+        mu = cm.to_numpy().mean()
+        row = cm.mean(axis=1)
+        col = cm.mean(axis=0)
     cell_mean = df.set_index(["a", "b"]).index.map(lambda t: cm.loc[t[0], t[1]]).to_numpy()
-    ea = df["a"].map(a_eff).to_numpy()
-    eb = df["b"].map(b_eff).to_numpy()
-    est = {"A": ea, "B": eb, "AB": cell_mean - ea - eb - mu}[effect]
+    ra = df["a"].map(row).to_numpy()
+    cb = df["b"].map(col).to_numpy()
+    est = {"A": ra - mu, "B": cb - mu, "AB": cell_mean - ra - cb + mu}[effect]
     return df["y"].to_numpy() - cell_mean + est
 
 
@@ -69,14 +76,15 @@ def test_art_self_check_balanced(data, effect):
     assert any("Leys & Schumann" in n for n in r.notes)
 
 
+@pytest.mark.parametrize("alignment", ["observation-means", "cell-means"])
 @pytest.mark.parametrize("data", [_warpbreaks, _toothgrowth, _moore])
 @pytest.mark.parametrize("effect", ["A", "B", "AB"])
-def test_art_equals_statsmodels_on_same_aligned_ranks(data, effect):
+def test_art_equals_statsmodels_on_same_aligned_ranks(data, effect, alignment):
     df = data()
     fit = _fit(df)
-    r = aligned_rank_transform(fit, effect=effect)
-    al = _art_reference(df, effect)
-    assert_allclose(aligned_response(fit, effect), al, rtol=1e-10, atol=1e-10)
+    r = aligned_rank_transform(fit, effect=effect, alignment=alignment)
+    al = _art_reference(df, effect, alignment)
+    assert_allclose(aligned_response(fit, effect, alignment=alignment), al, rtol=1e-10, atol=1e-10)
     # mid-ranks; rounding to 8 decimals restores ties that floating point broke (the data have 1-2 decimals)
     df = df.assign(rk=stats.rankdata(np.round(al, 8)))
     # reference: statsmodels OLS on the aligned ranks, anova_lm(typ=3), sum-to-zero coding
@@ -85,12 +93,39 @@ def test_art_equals_statsmodels_on_same_aligned_ranks(data, effect):
     assert_allclose(r.statistic, tab["F"].iloc[ROWS[effect]], rtol=1e-10)
     assert_allclose(r.p, tab["PR(>F)"].iloc[ROWS[effect]], rtol=1e-8)
     assert r.df2 == m.df_resid
+    assert r.extra["alignment"] == alignment
 
 
-def test_art_self_check_exact_under_type3_when_unbalanced():
-    for r in aligned_rank_transform_all(_fit(_moore())):
+def test_art_self_check_when_unbalanced():
+    # cell-means alignment: every non-aligned effect is exactly 0 under Type III (sum-to-zero estimates)
+    for r in aligned_rank_transform_all(_fit(_moore()), alignment="cell-means"):
         assert r.extra["self_check"]["passed"]
         assert r.extra["self_check"]["max_f_other"] < 1e-8
+    # published alignment: the A and B alignments leave cell means that vary in one factor only, so
+    # the other effects are exactly 0; the AB alignment keeps part of the main effects (reported)
+    res = aligned_rank_transform_all(_fit(_moore()))
+    for r in res[:2]:
+        sc = r.extra["self_check"]
+        assert sc["passed"] and sc["max_f_other"] < 1e-8 and len(sc["expected_zero"]) == 2
+    sc = res[2].extra["self_check"]
+    assert sc["passed"] and sc["expected_zero"] == [] and sc["max_f_other"] > 1e-3
+    assert "interaction SS is preserved" in res[2].notes[1]
+
+
+def test_rank_methods_without_within_cell_variation_give_null_with_a_note():
+    # every observation equals its cell mean: the core gives F = None with a note (audit.core), so must
+    # the rank methods - never an infinite F or a p of 0 (common practice: F undefined when MS_E = 0)
+    import pandas as pd
+
+    df = pd.DataFrame({"y": np.repeat([1.0, 2.0, 3.0, 5.0], 3), "a": np.repeat(["p", "p", "q", "q"], 3),
+                       "b": np.repeat(["u", "v", "u", "v"], 3)})
+    fit = _fit(df)
+    assert fit.anova.tables["III"].row("AB").F is None
+    for r in (*rank_transform_all(fit), *aligned_rank_transform_all(fit)):
+        assert r.statistic is None and r.p is None and r.df1 is None
+        assert r.notes[0].startswith("not computed") and "no variation within cells" in r.notes[0]
+        d = json.loads(json.dumps(r.to_dict(), allow_nan=False))
+        assert d["statistic"] is None and d["p"] is None
 
 
 def test_rank_transform_equals_statsmodels_on_ranks_and_is_flagged():

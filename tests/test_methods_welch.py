@@ -197,7 +197,9 @@ def test_degenerate_designs_give_reasons():
     # an empty cell
     emp = df[~((df.a == "a1") & (df.b == "b1"))]
     r = welch_james(_fit(emp))
-    assert r.p is None and "empty" in r.notes[0]
+    assert r.p is not None and r.df1 == 5 and "estimable" in r.notes[0]  # (J-1)(K-1) - 1 contrasts
+    r = welch_james(_fit(emp), effect="A")
+    assert r.p is None and "empty" in r.notes[0] and "a1 x b1" in r.notes[0]
     # trimmed: a cell of 2 keeps h = 2 (allowed), a cell of 5 keeps h = 3; check the h >= 2 rule with gamma 0.4
     two = pd.concat([df[~((df.a == "a1") & (df.b == "b1"))], df[(df.a == "a1") & (df.b == "b1")].iloc[:5]])
     r = welch_james_trimmed(_fit(two), gamma=0.4)
@@ -235,3 +237,19 @@ def test_classical_f_wraps_core():
     r = classical_f(emp, effect="A")
     assert r.extra["ss_type"] == "II" and "Type II" in r.notes[0]
     assert classical_f(emp).df1 == 5
+
+
+def test_small_cells_get_a_caution_note():
+    # common practice: Welch-James is liberal in very small cells, and Rademacher sign flips in a cell of
+    # 2-3 observations can only swap its spread and mean deviation; both say so when a cell has n <= 3
+    from audit.methods.bootstrap import wild_bootstrap
+
+    fit = _fit(_unbalanced_4x3(2))                       # cell a1 x b1 has n = 3
+    for r in (welch_james(fit), welch_james_trimmed(fit), wild_bootstrap(fit, resamples=19, seed=1)):
+        note = [n for n in r.notes if "n = 3" in n]
+        assert len(note) == 1 and "a1 x b1" in note[0]
+    assert "runs liberal in very small cells" in [n for n in welch_james(fit).notes if "n = 3" in n][0]
+    assert "sign flips swap" in [n for n in wild_bootstrap(fit, resamples=19, seed=1).notes if "n = 3" in n][0]
+    big = _fit(pd.concat([_unbalanced_4x3(2)] * 2))     # every cell doubled: n >= 6
+    assert not any("very small cells" in n for n in welch_james(big).notes)
+    assert not any("sign flips" in n for n in wild_bootstrap(big, resamples=19, seed=1).notes)

@@ -93,6 +93,7 @@ import math
 import numpy as np
 from scipy import stats
 
+from ..design import pow2_scale
 from ..fit import Fit
 from ..results import Diagnostic, json_float
 
@@ -155,6 +156,7 @@ def skew_kurtosis(x: np.ndarray) -> dict:
         return {"n": n, "skewness": None, "skewness_se": None, "excess_kurtosis": None, "excess_kurtosis_se": None}
     d = x - x.mean()
     d = d - d.mean()
+    d = d / pow2_scale(d)              # exact power of two: no overflow / underflow in d^4
     m2 = float(np.mean(d * d))
     if m2 == 0.0:
         return {"n": n, "skewness": None, "skewness_se": None, "excess_kurtosis": None, "excess_kurtosis_se": None}
@@ -214,6 +216,7 @@ def normality(fit: Fit) -> Diagnostic:
                           summary=f"Normality of residuals {NEEDS_DATA}; it cannot be checked from cell "
                                   "means and SDs.", values={"reason": NEEDS_DATA})
     r, cell, singles = _residuals_used(fit)
+    r = r / pow2_scale(r)              # every statistic below is scale-free; divide exactly by 2^e
     n = int(r.size)
     base = {"n": n, "excluded_single_cells": singles}
     if n < 4 or not np.any(r != 0):
@@ -284,8 +287,9 @@ def normality(fit: Fit) -> Diagnostic:
     if clt and sev in ("warning", "serious"):
         sev = _step(sev, -1)
     v["clt_downgrade"] = clt
-    desc = (f"skewness {sk['skewness']:.2f} (SE {sk['skewness_se']:.2f}), excess kurtosis "
-            f"{sk['excess_kurtosis']:.2f} (SE {sk['excess_kurtosis_se']:.2f})")
+    f2 = lambda x: "not available" if x is None or not math.isfinite(x) else f"{x:.2f}"  # noqa: E731
+    desc = (f"skewness {f2(sk['skewness'])} (SE {f2(sk['skewness_se'])}), excess kurtosis "
+            f"{f2(sk['excess_kurtosis'])} (SE {f2(sk['excess_kurtosis_se'])})")
     if band == "small":
         what = ("residuals look close to normal" if not rejects else
                 "a test detects non-normality but it is small in size (large N makes trivial departures significant)")

@@ -63,7 +63,7 @@ import numpy as np
 from scipy import stats
 
 from ..core import additive_design, weighted_ls_residual
-from ..design import cell_moments
+from ..design import cell_moments, pow2_scale
 from ..results import Diagnostic, json_float
 
 __all__ = [
@@ -165,6 +165,7 @@ def loo_interaction(y: np.ndarray, cell: np.ndarray, J: int, K: int, *, chunk: i
     per filled cell; no model is refitted per observation (see module notes).
     """
     y = np.asarray(y, dtype=float)
+    y = y / pow2_scale(y)              # exact power of two: F and p are scale-free, squares stay in range
     cell = np.asarray(cell, dtype=np.int64)
     JK = J * K
     N = y.size
@@ -267,11 +268,12 @@ def outliers(fit) -> Diagnostic:
     obs, cells = fit.obs, fit.cells
     N, m = cells.N, cells.m
     df_e = N - m
-    sse = cells.sse_within
+    unit = cells.standardised().unit   # t and Cook's D are scale-free: work in units of 2^e
+    sse = cells.standardised().sse_within
     alpha = fit.alpha
     cell = obs.cell
     n_i = cells.counts.ravel()[cell].astype(float)
-    e = np.asarray(fit.resid_full, dtype=float)
+    e = np.asarray(fit.resid_full, dtype=float) / unit
     rows = np.asarray(obs.rows)
     single = n_i == 1
     rows_single = [int(r) for r in rows[single]]

@@ -17,6 +17,7 @@ permutation-ter-braak      permutation.py                raw data
 permutation-studentized    permutation.py                raw data
 wild-bootstrap             bootstrap.py                  raw data
 tukey-one-df               tukey.py                      one observation per cell
+additive-f                 classical.py                  one observation per cell
 ========================== ============================= ==========================
 
 :func:`run_methods` runs them all in this order; a method that cannot run on
@@ -37,6 +38,7 @@ METHOD_IDS = (
     "classical-f", "welch-james", "welch-james-trimmed", "hc3-wald", "hc4-wald",
     "rank-transform", "aligned-rank-transform", "permutation-freedman-lane",
     "permutation-ter-braak", "permutation-studentized", "wild-bootstrap", "tukey-one-df",
+    "additive-f",
 )
 RESAMPLING_IDS = ("permutation-freedman-lane", "permutation-ter-braak", "permutation-studentized",
                   "wild-bootstrap")
@@ -62,7 +64,7 @@ def run_methods(fit: Fit, *, resamples: int = 9999, seed: int | None = None, pro
         Passed to the resampling engine (a terminal bar when True).
     """
     from .bootstrap import wild_bootstrap_all
-    from .classical import classical_f_all
+    from .classical import additive_f_all, classical_f_all
     from .hc import hc_wald_all
     from .permutation import freedman_lane_all, studentized_permutation_all, ter_braak_all
     from .ranks import aligned_rank_transform_all, rank_transform_all
@@ -85,4 +87,5 @@ def run_methods(fit: Fit, *, resamples: int = 9999, seed: int | None = None, pro
             out += run(fit, resamples=resamples, seed=seed, progress=progress)
     if fit.anova.df_error == 0:
         out.append(tukey_one_df(fit, effect="AB"))
+        out += additive_f_all(fit)
     return tuple(out)

@@ -44,7 +44,7 @@ from .resampling import (
     seed_value,
     wald_statistic_maker,
 )
-from .welch import EFFECTS
+from .welch import EFFECTS, WILD_SMALL_CELL_NOTE, small_cell_note
 
 __all__ = ["wild_bootstrap", "wild_bootstrap_all"]
 
@@ -81,6 +81,8 @@ def _wild(fit, effects, resamples, seed, progress, budget=None):
                  "residuals scaled by 1 / sqrt(1 - h) (its leverage) and multiplied by Rademacher signs; "
                  "statistic: the HC3 Wald F in the cell-means model (V_jk = css_jk / (n_jk - 1)^2)",
                  "valid under unequal variances of unknown form (Davidson & Flachaire 2008)"]
+        if small_cell_note(fit.cells, template=WILD_SMALL_CELL_NOTE):
+            notes.append(small_cell_note(fit.cells, template=WILD_SMALL_CELL_NOTE))
         done += _results(mid, name, [e], [C], obs_all[i:i + 1], star, B, seed_rec,
                          chunk_size(layout.N, B, squares=True, **kw), fit.alpha, extra, notes, [C.shape[0]])
     return _merge(effects, done, skipped)

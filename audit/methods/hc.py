@@ -38,7 +38,7 @@ from scipy import stats
 from ..fit import Fit
 from ..results import MethodResult
 from .wald import wald_quadratic
-from .welch import EFFECTS, check_effect, effect_contrast
+from .welch import EFFECTS, _hyp_note, check_effect, estimable_contrast
 
 __all__ = ["hc_cell_variances", "hc_wald_cells", "hc_wald", "hc3_wald", "hc4_wald", "hc_wald_all"]
 
@@ -86,35 +86,38 @@ def hc_wald_cells(means, css, counts, C, *, kind: str = "hc3"):
 def hc_wald(fit: Fit, *, effect: str = "AB", kind: str = "hc3") -> MethodResult:
     """HC-robust Wald F of one effect (kind 'hc3', 'hc4' or 'hc2').
 
-    Needs every cell filled and n_jk >= 2 (a cell with one observation has
-    leverage 1 and no usable HC weight).  ``extra``: W (chi-square form),
-    kind, and for HC4 the range of exponents delta.
+    Needs n_jk >= 2 in every filled cell (a cell with one observation has
+    leverage 1 and no usable HC weight).  With empty cells the interaction is
+    tested on its estimable contrasts in the cell-means model of the filled
+    cells (p = m parameters, h_ii = 1 / n_jk); main effects then get a reason.
+    ``extra``: W (chi-square form), kind, and for HC4 the range of exponents delta.
     """
     check_effect(effect)
     if kind not in KINDS:
         raise ValueError(f"kind: expected one of {KINDS}, found {kind!r}")
     mid = f"{kind}-wald"
-    cells = fit.cells
+    cells = fit.cells.standardised()   # exact power-of-two scale: squares neither underflow nor overflow
     counts = cells.counts
 
     def none(reason):
         return MethodResult(id=mid, effect=effect, statistic=None, statistic_name="F", p=None,
                             notes=(reason,), extra={"kind": kind})
 
-    if (counts == 0).any():
-        return none("not computed: the sum-to-zero coded full model needs every cell filled "
-                    f"(found {int((counts == 0).sum())} empty cell(s))")
-    if (counts < 2).any():
-        lab = [cells.cell_label(j, k) for j, k in zip(*np.nonzero(counts < 2))]
+    C, filled, reason = estimable_contrast(cells, effect)
+    if reason:
+        return none(reason)
+    if (counts == 1).any():
+        lab = [cells.cell_label(j, k) for j, k in zip(*np.nonzero(counts == 1))]
         return none(f"not computed: {len(lab)} cell(s) with one observation ({', '.join(lab[:5])}) have "
-                    f"leverage h = 1, so the {kind.upper()} weight e^2 / (1 - h)^delta is 0/0")
-    C = effect_contrast(cells, effect)
+                    f"leverage h = 1, so the {kind.upper()} weight e^2 / (1 - h)^delta is 0/0; fix: collect "
+                    "more observations there, or use the classical F (pooled error)")
     q = C.shape[0]
-    n = counts.ravel()
-    css = cells.css.ravel()
+    n = counts.ravel()[filled]
+    css = cells.css.ravel()[filled]
+    means = cells.means.ravel()[filled]
     try:
         with np.errstate(all="ignore"):
-            W = float(hc_wald_cells(cells.means.ravel(), css, n, C, kind=kind))
+            W = float(hc_wald_cells(means, css, n, C, kind=kind))
     except np.linalg.LinAlgError:
         W = float("nan")
     if not np.isfinite(W):
@@ -125,7 +128,8 @@ def hc_wald(fit: Fit, *, effect: str = "AB", kind: str = "hc3") -> MethodResult:
     p = float(stats.f.sf(F, q, df2))
     notes = [{"A": "main effect A on unweighted marginal means (Type III hypothesis)",
               "B": "main effect B on unweighted marginal means (Type III hypothesis)",
-              "AB": "interaction on all (J-1)(K-1) interaction contrasts"}[effect],
+              "AB": "interaction on all (J-1)(K-1) interaction contrasts"}[effect]
+             if filled.all() else _hyp_note(effect, q, filled),
              f"{kind.upper()} sandwich covariance: allows unequal cell variances; F = W / q referred to "
              "F(q, N - p)"]
     extra = {"W": W, "kind": kind}

@@ -93,7 +93,7 @@ def _checks(fit: Fit, effects, resamples, mid: str, name: str, *, need_two: str 
         check_effect(e)
     B = check_resamples(resamples)
     reason = None
-    cells = fit.cells
+    cells = fit.cells.standardised()   # css in range (a tiny response's SS may underflow to 0 unscaled)
     if fit.obs is None:
         reason = "not computed: resampling needs the raw observations (only cell summaries were given)"
     elif cells.df_within == 0:
@@ -176,8 +176,9 @@ def _prepare(fit: Fit, effects, resamples, mid: str, name: str, *, need_two: str
     if not ok:
         return _merge(effects, [], skipped), None
     layout = layout_from_fit(fit)
-    y_sorted = np.asarray(fit.obs.y, dtype=float)[layout.order]
-    means = fit.cells.means.ravel()[layout.filled]
+    st = fit.cells.standardised()      # exact power-of-two scale: squares stay in range at every data scale
+    y_sorted = np.asarray(fit.obs.y, dtype=float)[layout.order] / st.unit
+    means = st.means.ravel()[layout.filled]
     return None, _Setup(B, Cs, ok, skipped, layout, y_sorted, means)
 
 
@@ -254,7 +255,7 @@ def _studentized(fit, effects, resamples, seed, progress, budget=None):
     obs = fn(S, SQ)[0]
     # the reported statistic: Welch-James T / c of the data, with T, A, c
     n = layout.counts
-    var = fit.cells.variances.ravel()[layout.filled]
+    var = fit.cells.standardised().variances.ravel()[layout.filled]   # same units as y_sorted
     shown, each = [], []
     for C in Cs:
         T, A, c, df2 = (float(x) for x in welch_james_cells(means, var, n, C))

@@ -7,13 +7,18 @@ inflated Type I error (Blair, Sawilowsky & Higgins 1987; Sawilowsky 1990).
 
 Aligned rank transform (ART; Higgins & Tashtoush 1994; Wobbrock, Findlater,
 Gergle & Higgins 2011): for each effect separately, aligned response = residual
-from the cell mean + that effect's estimate in the full model with sum-to-zero
-coding (unweighted marginal means of the cell means); mid-rank; run the full
-factorial ANOVA on the ranks (Type III) and read only the aligned effect.  The
-method's self-check, run every time: an ANOVA of the aligned (unranked)
-responses gives F = 0, to rounding, for every effect other than the aligned one.
-With the unweighted (sum-to-zero) estimates used here that holds under Type III
-in unbalanced designs too.
+from the cell mean + that effect's estimate; mid-rank; run the full factorial
+ANOVA on the ranks (Type III) and read only the aligned effect.  By default the
+effects are estimated as published, from marginal means of the observations
+(a_j = ybar_j. - ybar, ab_jk = ybar_jk - ybar_j. - ybar_.k + ybar); the option
+``alignment='cell-means'`` uses unweighted means of the cell means (the
+sum-to-zero estimates), which held size better in unbalanced designs in our
+simulation (DEVELOPERS.md).  The method's self-check, run every time: an ANOVA
+of the aligned (unranked) responses gives F = 0, to rounding, for every effect
+the alignment removes exactly (all of them in balanced designs and with the
+cell-means alignment; with the published alignment in unbalanced designs the
+interaction alignment keeps part of the main effects, and the check is that
+the interaction SS is preserved).
 
 Both need the raw observations (ranks are not in a summary table).  One
 O(N log N) ranking per effect plus bincounts; no model refit over observations.
@@ -43,6 +48,7 @@ from scipy import stats
 
 from ..core import additive_cell_fit, anova_two_way, type3_contrasts
 from ..design import CellStats, cells_from_observations
+from ..errors import OptionError
 from ..fit import Fit
 from ..results import MethodResult
 from .wald import wald_quadratic
@@ -102,11 +108,17 @@ def _cells_of(values, fit: Fit) -> CellStats:
                                    factors=o.factors, response=o.response)
 
 
+#: the core's wording for a test without within-cell variation (audit.core)
+NO_WITHIN_NOTE = ("no variation within cells (every observation equals its cell mean): the F ratio is undefined")
+
+
 def type3_f(cells: CellStats) -> dict:
     """Type III F, df and p of A, B and AB (every cell filled, N > m).
 
     SS_A, SS_B by the Wald form on cell means with D = diag(1/n); SS_AB from
     the additive model's between-cell residual SS (METHODS.md section 1).
+    Without within-cell variation (or df) F and p are None and ``note`` says
+    why, as in the core ANOVA (never an infinite F or a p of 0).
     """
     n = cells.counts.ravel().astype(float)
     ybar = cells.means.ravel()
@@ -115,13 +127,20 @@ def type3_f(cells: CellStats) -> dict:
     ss = {e: float(wald_quadratic(ybar, 1.0 / n, C[e])) for e in ("A", "B")}
     ss["AB"] = additive_cell_fit(cells)[1]
     df_e = cells.df_within
-    mse = cells.sse_within / df_e
+    mse = cells.sse_within / df_e if df_e > 0 else 0.0
+    # no variation: zero within-cell SS (the core's rule), or rounding next to the effects' SS
+    tiny = mse <= 0 or cells.sse_within <= 1e-14 * (cells.sse_within + sum(ss.values()))
     out = {}
     for e in EFFECTS:
         df1 = C[e].shape[0]
-        F = (ss[e] / df1) / mse if mse > 0 else (float("inf") if ss[e] > 0 else 0.0)
-        out[e] = {"ss": ss[e], "df1": df1, "df2": df_e, "F": float(F),
-                  "p": float(stats.f.sf(F, df1, df_e)) if np.isfinite(F) else 0.0}
+        if df_e <= 0 or tiny:
+            out[e] = {"ss": ss[e], "df1": df1, "df2": df_e, "F": None, "p": None,
+                      "note": NO_WITHIN_NOTE if df_e > 0 else
+                      "no within-cell error term (one observation per cell): F and p cannot be formed"}
+            continue
+        F = (ss[e] / df1) / mse
+        out[e] = {"ss": ss[e], "df1": df1, "df2": df_e, "F": float(F), "p": float(stats.f.sf(F, df1, df_e)),
+                  "note": None}
     return out
 
 
@@ -145,7 +164,7 @@ def rank_transform_all(fit: Fit) -> tuple[MethodResult, ...]:
     ss_type = "III" if full else "II"
     if full and cells.df_within > 0:
         # fast path: Type III F from the rank cell statistics, no effect-size intervals
-        rows = {e: (v["F"], v["p"], v["df1"], None) for e, v in type3_f(cells).items()}
+        rows = {e: (v["F"], v["p"], v["df1"], v["note"]) for e, v in type3_f(cells).items()}
         df_e = cells.df_within
     else:
         an = anova_two_way(cells)
@@ -158,7 +177,7 @@ def rank_transform_all(fit: Fit) -> tuple[MethodResult, ...]:
         notes = [RT_REASON, "classical ANOVA on the mid-ranks of the response (Conover & Iman 1981), "
                             f"Type {ss_type} sums of squares"]
         if note:
-            notes.append(note)
+            notes.insert(0, f"not computed: {note}") if F is None else notes.append(note)
         out.append(MethodResult(
             id="rank-transform", effect=e, statistic=F, statistic_name="F",
             df1=float(df1) if F is not None else None,
@@ -174,69 +193,150 @@ def rank_transform(fit: Fit, *, effect: str = "AB") -> MethodResult:
     return rank_transform_all(fit)[EFFECTS.index(effect)]
 
 
-def aligned_response(fit: Fit, effect: str) -> np.ndarray:
+#: cautions for the published alignment with unequal cell sizes [interaction, main effect]; figures
+#: from benchmarks/sim_art_alignment.py (seeded, unbalanced 3 x 3, normal equal-variance errors)
+UNBALANCED_ART_NOTE = (
+    "unequal cell sizes: the published alignment (marginal means of the observations) leaves part of the "
+    "main effects in the interaction-aligned responses; in our size simulation with main effects present "
+    "its interaction test rejected a true null somewhat more often than alpha (see DEVELOPERS.md); "
+    "alignment='cell-means' removes them exactly",
+    "unequal cell sizes: the published alignment estimates this main effect from marginal means of the "
+    "observations, which mix in the other factor's effect; in our size simulation (unbalanced 3 x 3, the "
+    "other factor with an effect) this test rejected 63-72% of true nulls at alpha = 0.05, against 5% with "
+    "alignment='cell-means' - do not rely on it here",
+)
+
+#: alignment estimates: the published one (marginal means of the observations) and the
+#: unweighted one (marginal means of the cell means, sum-to-zero coding)
+ALIGNMENTS = ("observation-means", "cell-means")
+
+
+def _check_alignment(alignment: str) -> str:
+    if alignment not in ALIGNMENTS:
+        raise OptionError(f"alignment: expected one of {ALIGNMENTS}, found {alignment!r}; "
+                          "use 'observation-means' (the published procedure)")
+    return alignment
+
+
+def aligned_response(fit: Fit, effect: str, *, alignment: str = "observation-means") -> np.ndarray:
     """Aligned responses for ``effect``: y - cell mean + the effect's estimate.
 
-    Estimates from the full model with sum-to-zero coding: mu = mean of the
-    cell means, a_j = row mean - mu, b_k = column mean - mu,
-    ab_jk = ybar_jk - a_j - b_k - mu.  Needs every cell filled.
+    ``alignment='observation-means'`` (default; Wobbrock, Findlater, Gergle &
+    Higgins 2011): with ybar the grand mean of the observations, ybar_j. and
+    ybar_.k the means of the observations at level j of A and level k of B,
+    a_j = ybar_j. - ybar, b_k = ybar_.k - ybar,
+    ab_jk = ybar_jk - ybar_j. - ybar_.k + ybar.
+
+    ``alignment='cell-means'``: the same with unweighted means of the cell means
+    (sum-to-zero coding), the estimates of the Type III hypotheses.  The two
+    agree in balanced designs.  Needs every cell filled.
     """
     check_effect(effect)
-    cm = fit.cells.means
-    mu = cm.mean()
-    a = cm.mean(axis=1) - mu
-    b = cm.mean(axis=0) - mu
+    _check_alignment(alignment)
+    cells = fit.cells
+    cm = cells.means
+    if alignment == "cell-means":
+        mu = cm.mean()
+        row = cm.mean(axis=1)
+        col = cm.mean(axis=0)
+    else:
+        n = cells.counts.astype(float)
+        mu = float(np.sum(n * cm) / n.sum())
+        row = np.sum(n * cm, axis=1) / n.sum(axis=1)
+        col = np.sum(n * cm, axis=0) / n.sum(axis=0)
+    a = row - mu
+    b = col - mu
     est = {"A": np.repeat(a[:, None], cm.shape[1], axis=1),
            "B": np.repeat(b[None, :], cm.shape[0], axis=0),
-           "AB": cm - a[:, None] - b[None, :] - mu}[effect]
+           "AB": cm - row[:, None] - col[None, :] + mu}[effect]
     return fit.resid_full + est.ravel()[fit.obs.cell]
 
 
-def aligned_rank_transform(fit: Fit, *, effect: str = "AB") -> MethodResult:
+def _none_art(effect, reason, extra=None):
+    return MethodResult(id="aligned-rank-transform", effect=effect, statistic=None, statistic_name="F", p=None,
+                        notes=(reason,), extra=extra or {})
+
+
+def aligned_rank_transform(fit: Fit, *, effect: str = "AB", alignment: str = "observation-means") -> MethodResult:
     """Aligned-rank-transform F of one effect, with the alignment self-check.
 
-    ``extra``: ss_type 'III', ``self_check`` = {'passed': bool,
+    Parameters
+    ----------
+    fit : Fit
+    effect : 'A', 'B' or 'AB'
+    alignment : 'observation-means' (default, the published procedure) or 'cell-means'
+        How the effects are estimated for the alignment (see :func:`aligned_response`).
+
+    ``extra``: ss_type 'III', alignment, ``self_check`` = {'passed': bool,
     'f_other': {effect: F on the aligned unranked responses},
-    'max_f_other': float, 'tolerance': float}.
+    'max_f_other': float, 'expected_zero': [effects whose F must be 0],
+    'tolerance': float}.  The self-check: the F of a non-aligned effect on the
+    aligned (unranked) responses is 0 to rounding where the alignment removes
+    it exactly - every effect in a balanced design; A and B under the A or B
+    alignment always; with unequal cell sizes the published interaction
+    alignment leaves part of the main effects (reported, not failed), and the
+    check is then that the interaction SS of the aligned responses equals that
+    of the data.
     """
     check_effect(effect)
+    _check_alignment(alignment)
     mid = "aligned-rank-transform"
     if fit.obs is None:
         return _no_data(mid, effect)
     cells = fit.cells
     if cells.m < cells.J * cells.K:
-        return MethodResult(id=mid, effect=effect, statistic=None, statistic_name="F", p=None,
-                            notes=("not computed: the alignment uses the full model's effect estimates, "
-                                   f"which need every cell filled (found {cells.J * cells.K - cells.m} "
-                                   "empty cell(s))",))
+        empty = [cells.cell_label(j, k) for j, k in zip(*np.nonzero(cells.counts == 0))]
+        return _none_art(effect, "not computed: the aligned rank transform here reads a full factorial ANOVA "
+                                 f"on the ranks, which needs every cell filled (empty: {', '.join(empty[:8])}); "
+                                 "fix: use the Welch-James, HC3 or permutation tests, which test the "
+                                 "estimable interaction contrasts")
     if cells.df_within == 0:
-        return MethodResult(id=mid, effect=effect, statistic=None, statistic_name="F", p=None,
-                            notes=("not computed: one observation per cell leaves no within-cell error "
-                                   "term for the ANOVA on ranks",))
-    al = aligned_response(fit, effect)
+        return _none_art(effect, "not computed: one observation per cell leaves no within-cell error "
+                                 "term for the ANOVA on ranks")
+    al = aligned_response(fit, effect, alignment=alignment)
     # self-check of the method's authors: ANOVA on the aligned, unranked responses
     chk = type3_f(_cells_of(al, fit))
+    if chk[effect]["F"] is None:
+        return _none_art(effect, f"not computed: {chk[effect]['note']}", {"alignment": alignment})
     others = {e: chk[e]["F"] for e in EFFECTS if e != effect}
-    # relative to the aligned effect's own F so that the check is scale-free
+    balanced = bool(np.all(cells.counts == cells.counts.flat[0]))
+    exact = [e for e in others if balanced or alignment == "cell-means" or effect != "AB"]
+    tol_f = SELF_CHECK_TOL * max(1.0, chk[effect]["F"])
     max_other = max(others.values())
-    passed = bool(max_other < SELF_CHECK_TOL * max(1.0, chk[effect]["F"]))
+    passed = all(others[e] < tol_f for e in exact)
+    if effect == "AB" and not exact:
+        # the alignment adds an additive term to every cell mean: the interaction SS is unchanged
+        ss_data = type3_f(cells)[effect]["ss"]
+        passed = bool(abs(chk["AB"]["ss"] - ss_data) <= 1e-8 * max(ss_data, chk["AB"]["ss"], 1e-300))
     res = type3_f(_cells_of(aligned_mid_ranks(al), fit))[effect]
     check_note = ("alignment self-check: ANOVA on the aligned (unranked) responses gives F = "
-                  + ", ".join(f"{v:.2g} for {k}" for k, v in others.items())
-                  + (" (zero to rounding, as it should)" if passed else
-                     " - NOT zero: the alignment failed, do not use this result"))
-    notes = [f"aligned for {effect}, mid-ranked, full factorial ANOVA on the ranks (Type III); "
-             f"only the {effect} row is read", check_note, *ART_CAUTIONS]
-    extra = {"ss_type": "III",
+                  + ", ".join(f"{v:.2g} for {k}" for k, v in others.items()))
+    if not passed:
+        check_note += " - NOT as it should be: the alignment failed, do not use this result"
+    elif len(exact) == len(others):
+        check_note += " (zero to rounding, as it should)"
+    else:
+        check_note += (" - with unequal cell sizes the published alignment (marginal means of the "
+                       "observations) leaves part of the main effects in the interaction-aligned responses; "
+                       "the interaction SS is preserved exactly, as it should")
+    notes = [f"aligned for {effect} ({'marginal means of the observations, as published' if alignment == 'observation-means' else 'unweighted marginal means of the cell means'}), "
+             f"mid-ranked, full factorial ANOVA on the ranks (Type III); only the {effect} row is read",
+             check_note, *ART_CAUTIONS]
+    if not balanced and alignment == "observation-means":
+        notes.append(UNBALANCED_ART_NOTE[effect != "AB"])
+    extra = {"ss_type": "III", "alignment": alignment,
              "self_check": {"passed": passed, "f_other": others, "max_f_other": max_other,
-                            "tolerance": SELF_CHECK_TOL}}
+                            "expected_zero": exact, "tolerance": SELF_CHECK_TOL}}
     if not passed:
         return MethodResult(id=mid, effect=effect, statistic=None, statistic_name="F", p=None,
                             notes=tuple(notes), extra=extra)
+    if res["F"] is None:
+        return MethodResult(id=mid, effect=effect, statistic=None, statistic_name="F", p=None,
+                            notes=(f"not computed: on the aligned ranks, {res['note']}", *notes), extra=extra)
     return MethodResult(id=mid, effect=effect, statistic=res["F"], statistic_name="F", df1=float(res["df1"]),
                         df2=float(res["df2"]), p=res["p"], notes=tuple(notes), extra=extra)
 
 
-def aligned_rank_transform_all(fit: Fit) -> tuple[MethodResult, ...]:
+def aligned_rank_transform_all(fit: Fit, *, alignment: str = "observation-means") -> tuple[MethodResult, ...]:
     """ART results for A, B and AB (one alignment and ranking each)."""
-    return tuple(aligned_rank_transform(fit, effect=e) for e in EFFECTS)
+    return tuple(aligned_rank_transform(fit, effect=e, alignment=alignment) for e in EFFECTS)

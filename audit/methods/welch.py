@@ -50,6 +50,7 @@ __all__ = [
     "welch_james_all",
     "welch_james_trimmed_all",
     "effect_contrast",
+    "estimable_contrast",
 ]
 
 EFFECTS = ("A", "B", "AB")
@@ -66,6 +67,49 @@ def effect_contrast(cells, effect: str) -> np.ndarray:
     """C_A, C_B or C_AB on the J*K cells (j-major), sum-to-zero hypotheses on
     unweighted marginal means (METHODS.md section 1)."""
     return type3_contrasts(cells.J, cells.K)[check_effect(effect)]
+
+
+def empty_cell_labels(cells) -> list[str]:
+    """Labels ('a2 x b1') of the empty cells, j-major."""
+    return [cells.cell_label(j, k) for j, k in zip(*np.nonzero(cells.counts == 0))]
+
+
+def estimable_contrast(cells, effect: str) -> tuple[np.ndarray | None, np.ndarray, str | None]:
+    """Hypothesis matrix of ``effect`` on the filled cells, the filled-cell mask, or a reason.
+
+    Every cell filled: the Type III contrasts C_A, C_B, C_AB.  With empty cells
+    the interaction is tested on its estimable part: the contrasts of the filled
+    cell means orthogonal to the additive model (the null space of the additive
+    design restricted to the filled cells, m - rank(A + B) rows), the same
+    hypothesis as the classical interaction F and the resampling methods
+    (:func:`audit.methods.resampling.effect_hypothesis`).  Main effects (Type III,
+    unweighted marginal means) need every cell: None and a reason naming the
+    empty cells and the fix.
+
+    Returns
+    -------
+    C : ndarray (r, m) or None
+        Rows on the filled cells (j-major order of the filled cells).
+    filled : ndarray of bool (J*K,)
+    reason : str or None
+    """
+    from .resampling import effect_hypothesis
+
+    check_effect(effect)
+    filled = cells.counts.ravel() > 0
+    C, reason = effect_hypothesis(cells, effect)
+    if C is not None:
+        return np.asarray(C, dtype=float), filled, None
+    empty = empty_cell_labels(cells)
+    where = f"{len(empty)} empty cell(s): {', '.join(empty[:8])}" + (" ..." if len(empty) > 8 else "")
+    if effect == "AB":
+        return None, filled, (f"not computed: with these empty cells no interaction contrast is estimable "
+                              f"(m - rank(A + B) = 0; {where}); fix: collect observations in some of these "
+                              "cells so that a filled 2 x 2 sub-table forms")
+    return None, filled, (f"not computed: the Type III hypothesis of main effect {effect} compares unweighted "
+                          f"marginal means, which need every cell filled ({where}); fix: read the interaction "
+                          "(tested on its estimable contrasts) and the classical Type II main effect, or collect "
+                          "observations in these cells (or drop a level so every cell is filled)")
 
 
 def welch_james_cells(means, variances, counts, C, *, dfs=None):
@@ -171,17 +215,37 @@ def _degenerate(method_id: str, effect: str, reason: str, name: str = "T/c", ext
 
 
 def _cells_problem(cells, need: int, what: str) -> str | None:
+    """Reason when a filled cell has fewer than ``need`` observations (empty cells
+    are handled by :func:`estimable_contrast`)."""
     counts = cells.counts
-    if (counts == 0).any():
-        empty = [cells.cell_label(j, k) for j, k in zip(*np.nonzero(counts == 0))]
-        return (f"not computed: this method needs every cell filled, found {len(empty)} empty cell(s) "
-                f"({', '.join(empty[:5])})")
-    small = counts < need
+    small = (counts > 0) & (counts < need)
     if small.any():
         lab = [f"{cells.cell_label(j, k)} (n = {counts[j, k]})" for j, k in zip(*np.nonzero(small))]
-        return (f"not computed: {what} needs n >= {need} in every cell, found {len(lab)} smaller cell(s): "
-                f"{', '.join(lab[:5])}")
+        return (f"not computed: {what} needs n >= {need} in every filled cell, found {len(lab)} smaller cell(s): "
+                f"{', '.join(lab[:5])}; fix: collect more observations there, or use the classical F "
+                "(pooled error) for these cells")
     return None
+
+
+#: note for welch-james (and the trimmed test) when a filled cell has n <= 3
+SMALL_CELL_NOTE = ("Welch-James runs liberal in very small cells: {cells} ha{s} n <= 3, where each cell "
+                   "variance rests on 1-2 df; read p with caution and compare the studentized permutation")
+
+
+#: note for the wild bootstrap when a filled cell has n <= 3
+WILD_SMALL_CELL_NOTE = ("wild bootstrap at its limits in cells of 2-3 observations: sign flips swap each "
+                        "cell's spread and mean deviation ({cells}); read p with caution")
+
+
+def small_cell_note(cells, limit: int = 3, template: str = SMALL_CELL_NOTE) -> str | None:
+    """A note naming the filled cells with n <= ``limit`` (None when there are none)."""
+    counts = cells.counts
+    small = (counts > 0) & (counts <= limit)
+    if not small.any():
+        return None
+    lab = [f"{cells.cell_label(j, k)} (n = {counts[j, k]})" for j, k in zip(*np.nonzero(small))]
+    more = f" and {len(lab) - 5} more" if len(lab) > 5 else ""
+    return template.format(cells=", ".join(lab[:5]) + more, s="ve" if len(lab) > 1 else "s")
 
 
 def _result_from_core(method_id, effect, T, A, c, df2, r, notes, extra) -> MethodResult:
@@ -212,37 +276,52 @@ _HYP_NOTE = {
 }
 
 
+def _hyp_note(effect: str, r: int, filled) -> str:
+    """What the hypothesis is; with empty cells, the estimable interaction contrasts."""
+    if effect == "AB" and not np.all(filled):
+        return (f"empty cells: interaction tested on its {r} estimable contrast(s) of the filled cell means "
+                "(those orthogonal to the additive model A + B over the filled cells), the hypothesis of the "
+                "classical interaction F")
+    return _HYP_NOTE[effect]
+
+
 def welch_james(fit: Fit, *, effect: str = "AB") -> MethodResult:
     """Welch-James (Johansen 1980) approximate-df test of one effect.
 
-    Needs every cell filled with n_jk >= 2; works from cell statistics only
-    (summary mode too).  ``extra`` holds T (the HC2 Wald chi-square), A, c.
+    Needs n_jk >= 2 in every filled cell; works from cell statistics only
+    (summary mode too).  With empty cells the interaction is tested on its
+    estimable contrasts (:func:`estimable_contrast`); main effects then get a
+    reason.  ``extra`` holds T (the HC2 Wald chi-square), A, c.
     """
     check_effect(effect)
-    cells = fit.cells
-    reason = _cells_problem(cells, 2, "the Welch-James test")
+    cells = fit.cells.standardised()   # exact power-of-two scale: same statistic at every data scale
+    C, filled, reason = estimable_contrast(cells, effect)
+    reason = reason or _cells_problem(cells, 2, "the Welch-James test")
     if reason:
         return _degenerate("welch-james", effect, reason)
-    C = effect_contrast(cells, effect)
-    var = cells.variances.ravel()
+    var = cells.variances.ravel()[filled]
     if not (var > 0).any():
         return _degenerate("welch-james", effect, "not computed: every cell has zero variance")
-    out = _solve_safely(lambda: welch_james_cells(cells.means.ravel(), var, cells.counts.ravel(), C))
+    out = _solve_safely(lambda: welch_james_cells(cells.means.ravel()[filled], var, cells.counts.ravel()[filled], C))
     if out is None:
         return _degenerate("welch-james", effect,
                            "not computed: the cell variances leave the contrast covariance singular "
                            "(zero variance in the cells this effect compares)")
-    notes = [_HYP_NOTE[effect],
+    notes = [_hyp_note(effect, C.shape[0], filled),
              "allows unequal cell variances; the df approximation can be liberal when cells are very "
              "small (n < 6 or so, common practice) - read it with the cell sizes in view"]
+    small = small_cell_note(cells)
+    if small:
+        notes.append(small)
     return _result_from_core("welch-james", effect, *out, C.shape[0], notes, {"gamma": 0.0})
 
 
 def welch_james_trimmed(fit: Fit, *, effect: str = "AB", gamma: float = 0.2) -> MethodResult:
     """Welch-James test on gamma-trimmed means with Winsorized variances.
 
-    Needs the raw data (trimmed means are not in a summary table), every cell
-    filled, and h_jk = n_jk - 2 floor(gamma n_jk) >= 2 in every cell.
+    Needs the raw data (trimmed means are not in a summary table) and
+    h_jk = n_jk - 2 floor(gamma n_jk) >= 2 in every filled cell; with empty
+    cells the interaction is tested on its estimable contrasts.
     ``extra`` holds T, A, c, gamma and the smallest h_jk.
     """
     check_effect(effect)
@@ -251,32 +330,42 @@ def welch_james_trimmed(fit: Fit, *, effect: str = "AB", gamma: float = 0.2) -> 
     if fit.obs is None:
         return _degenerate(mid, effect, "not computed: trimmed means need the raw observations "
                                         "(only cell summaries were given)", extra={"gamma": gamma})
-    reason = _cells_problem(cells, 2, "the trimmed Welch-James test")
+    C, filled, reason = estimable_contrast(cells, effect)
+    reason = reason or _cells_problem(cells, 2, "the trimmed Welch-James test")
     if reason:
         return _degenerate(mid, effect, reason, extra={"gamma": gamma})
     m = cells.J * cells.K
-    tmean, wvar, n, h = trimmed_cell_stats(fit.obs.y, fit.obs.cell, m, gamma=gamma)
-    if (h < 2).any():
+    unit = cells.standardised().unit   # exact power of two: squares stay in range at every data scale
+    tmean, wvar, n, h = trimmed_cell_stats(fit.obs.y / unit, fit.obs.cell, m, gamma=gamma)
+    bad_h = filled & (h < 2)
+    if bad_h.any():
         bad = [f"{cells.cell_label(i // cells.K, i % cells.K)} (n = {n[i]}, h = {h[i]})"
-               for i in np.nonzero(h < 2)[0]]
+               for i in np.nonzero(bad_h)[0]]
         return _degenerate(mid, effect,
                            f"not computed: after trimming {gamma:.0%} from each tail a cell keeps fewer than 2 "
-                           f"values (h_jk >= 2 needed): {', '.join(bad[:5])}", extra={"gamma": gamma})
+                           f"values (h_jk >= 2 needed): {', '.join(bad[:5])}; fix: a smaller gamma, or "
+                           "the untrimmed Welch-James test", extra={"gamma": gamma})
+    tmean, wvar, n, h = tmean[filled], wvar[filled], n[filled], h[filled]
     d = (n - 1) * wvar / (h * (h - 1.0))                  # squared standard error of the trimmed mean
     if not (d > 0).any():
         return _degenerate(mid, effect, "not computed: every cell has zero Winsorized variance",
                            extra={"gamma": gamma})
-    C = effect_contrast(cells, effect)
     out = _solve_safely(lambda: welch_james_cells(tmean, d * n, n, C, dfs=h - 1.0))
     if out is None:
         return _degenerate(mid, effect, "not computed: the Winsorized variances leave the contrast "
                                         "covariance singular", extra={"gamma": gamma})
-    notes = [_HYP_NOTE[effect].replace("marginal means", "marginal trimmed means").replace(
+    notes = [_hyp_note(effect, C.shape[0], filled).replace("marginal means", "marginal trimmed means").replace(
                  "of the cell means", "of the trimmed cell means"),
              f"{gamma:.0%} trimmed means with Winsorized variances: tests trimmed population means, "
              "not means; resistant to heavy tails and outliers, allows unequal variances"]
+    small = small_cell_note(cells)
+    if small:
+        notes.append(small)
+    tm_full = np.full(m, np.nan)
+    tm_full[filled] = tmean * unit + cells.offset
     extra = {"gamma": float(gamma), "min_h": int(h.min()),
-             "trimmed_means": [[float(x) for x in row] for row in (tmean + cells.offset).reshape(cells.J, cells.K)]}
+             "trimmed_means": [[None if not np.isfinite(x) else float(x) for x in row]
+                               for row in tm_full.reshape(cells.J, cells.K)]}
     return _result_from_core(mid, effect, *out, C.shape[0], notes, extra)
 
 
