@@ -97,6 +97,11 @@ TRUST_RULES: tuple[TrustRule, ...] = (
     TrustRule(id="art-unequal-variances", methods=("aligned-rank-transform",),
               when="variances differ beyond chance across cells",
               source="Leys & Schumann 2010; METHODS.md 10a (size .177 in a 2 x 2 with one cell SD x 4)"),
+    TrustRule(id="art-unbalanced", methods=("aligned-rank-transform",),
+              when="cell sizes differ: with the published alignment (marginal means of the observations) the "
+                   "aligned responses keep part of the other effects",
+              source="this project's simulation (benchmarks/sim_art_alignment.py: size .073-.080 for the "
+                     "interaction and .63-.72 for main effects in an unbalanced 3 x 3)"),
     TrustRule(id="hc4-warm", methods=("hc4-wald",),
               when="no size check was run: HC4 with the F(q, N - m) reference runs warm even on clean data",
               source="METHODS.md 10a (size .066, 99% CI .054-.080, pooled over clean conditions)"),
@@ -167,7 +172,7 @@ def _heteroscedastic_unequal(h) -> bool:
     return bool(h.unequal_variances and (unequal_n or big_ratio))
 
 
-def _one(m, *, min_n: int, min_kept: int, homog, indep, calib_row, alpha: float, self_check_ok) -> MethodTrust:
+def _one(m, *, min_n: int, min_kept: int, unequal_n: bool, homog, indep, calib_row, alpha: float, self_check_ok) -> MethodTrust:
     mid, eff = m.id, m.effect
 
     def no(rule: str, reason: str) -> MethodTrust:
@@ -207,6 +212,9 @@ def _one(m, *, min_n: int, min_kept: int, homog, indep, calib_row, alpha: float,
     if mid == "aligned-rank-transform" and homog is not None and homog.unequal_variances:
         return no("art-unequal-variances", "the aligned rank transform runs liberal when variances differ "
                                            "across cells, as they do here")
+    if mid == "aligned-rank-transform" and unequal_n:
+        return no("art-unbalanced", "with unequal cell sizes the aligned responses keep part of the other "
+                                    "effects, and the test runs liberal")
     if calib_row is not None and getattr(calib_row, "status", None) == "liberal":
         size = calib_row.size
         return no("size-check-liberal", f"on data shaped like yours it rejects a true null about {_pct(size)} "
@@ -255,12 +263,18 @@ def assess_trust(methods, *, counts, alpha: float, homogeneity=None, independenc
     filled = c[c > 0]
     min_n = int(filled.min()) if filled.size else 0
     min_kept = int(trimmed_kept(filled).min()) if filled.size else 0
+    unequal_n = bool(filled.size and filled.max() != filled.min())
     out = []
     for m in methods:
-        row = calibration.row(m.id, m.effect) if calibration is not None else None
+        row = None
+        if calibration is not None:
+            try:
+                row = calibration.row(m.id, m.effect)
+            except KeyError:
+                row = None
         if row is not None and getattr(row, "status", None) == "not-run":
             row = None
         sc = (self_checks or {}).get((m.id, m.effect))
-        out.append(_one(m, min_n=min_n, min_kept=min_kept, homog=homogeneity, indep=independence,
+        out.append(_one(m, min_n=min_n, min_kept=min_kept, unequal_n=unequal_n, homog=homogeneity, indep=independence,
                         calib_row=row, alpha=alpha, self_check_ok=sc))
     return tuple(out)
