@@ -337,11 +337,10 @@ def _read_text(path: str, suffix: str, sha: str, encoding: str | None):
     else:
         lines = np.arange(len(table), dtype=np.int64) + 1
     del text
-    table = table.fillna("")
-    filled = np.flatnonzero((table.apply(lambda s: s.str.strip()) != "").any(axis=1).to_numpy())
-    if filled.size == 0:
+    h = next((i for i in range(len(table))
+              if any(isinstance(v, str) and v.strip() for v in table.iloc[i].tolist())), None)
+    if h is None:
         raise DataFileError(f"{path}: the file is empty; expected a header line and data rows")
-    h = int(filled[0])
     names = _header_names(table.iloc[h].tolist(), path)
     frame = table.iloc[h + 1:].reset_index(drop=True)
     frame.columns = names
@@ -468,15 +467,21 @@ def _fmt_scalar(v) -> str | None:
     return s or None
 
 
+def _level_lookup(col) -> tuple[np.ndarray, np.ndarray]:
+    """(lookup, codes): distinct values as text with a trailing None, and each
+    row's index into it (-1, the trailing None, where natively missing)."""
+    import pandas as pd
+
+    codes, uniq = pd.factorize(col, sort=False, use_na_sentinel=True)
+    lookup = np.array([_fmt_scalar(v) for v in uniq] + [None], dtype=object)
+    return lookup, codes
+
+
 def _as_level_text(col) -> "np.ndarray":
     """Values as text, None where missing (a native missing value, or empty or
     whitespace text).  Whole numbers print without '.0'.  Converts each
     distinct value once, not each row."""
-    import pandas as pd
-
-    codes, uniq = pd.factorize(col, sort=False, use_na_sentinel=True)
-    texts = [_fmt_scalar(v) for v in uniq]
-    lookup = np.array(texts + [None], dtype=object)
+    lookup, codes = _level_lookup(col)
     return lookup[codes]  # code -1 (missing) picks the trailing None
 
 
@@ -622,7 +627,7 @@ def _frame_row_ids(frame) -> tuple[np.ndarray, str]:
     return np.arange(len(frame), dtype=np.int64), "position"
 
 
-def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.ndarray, hint: str = ""):
+def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.ndarray):
     """Return (y, offset, centring sentence) for the kept rows."""
     import pandas as pd
 
@@ -633,7 +638,7 @@ def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.nd
         if bad.any():
             i = int(np.argmax(bad))
             found = text.iloc[i]
-            extra = hint
+            extra = ""
             if _DEC_COMMA_RE.match(found):
                 extra = "; it uses a decimal comma: give --decimal , (API decimal=',')"
             raise ResponseError(
@@ -646,7 +651,7 @@ def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.nd
             i = int(np.argmax(keep))
             raise ResponseError(
                 f"response column {name!r} must be numeric; found {col.iloc[i]!r} "
-                f"(type {col.dtype}) at row {rows[i]}; choose a numeric column{hint}"
+                f"(type {col.dtype}) at row {rows[i]}; choose a numeric column"
             )
         vals = col.to_numpy(dtype=float, na_value=np.nan)
         text_kept = None
@@ -792,11 +797,12 @@ def prepare(
         miss_y = ycol.isna().to_numpy(dtype=bool) & nb
         ytxt = None
     else:
-        ytxt = texts[response]
-        lower = pd.Series(ytxt, dtype=object).str.lower()
-        miss_y = (np.equal(ytxt, None) | lower.isin(RESPONSE_NA_TOKENS).to_numpy(bool)) & nb
+        lookup, ycodes = _level_lookup(ycol)
+        ytxt = lookup[ycodes]
+        is_na = np.array([v is None or v.lower() in RESPONSE_NA_TOKENS for v in lookup], dtype=bool)
+        miss_y = is_na[ycodes] & nb
         if decimal is None:
-            vals = pd.unique(pd.Series(ytxt[~miss_y & nb], dtype=object))
+            vals = [v for v, m in zip(lookup, is_na) if not m]
             commas = [v for v in vals if "," in v]
             if commas and all(_DEC_COMMA_RE.match(v) or _NUMBER_RE.match(v) for v in vals):
                 i = int(np.flatnonzero(ytxt == commas[0])[0])
@@ -854,15 +860,6 @@ def prepare(
             "expected numbers; choose the measured column"
         )
 
-    def swap_hint(f_bad: str | None = None) -> str:
-        for f in ([f_bad] if f_bad else list(factors)):
-            lc = _looks_continuous(texts[f])
-            if lc:
-                other = factors[1] if f == factors[0] else factors[0]
-                return (f"; column {f!r} looks like a measurement ({lc[0]} distinct numbers, {lc[1]} seen once): "
-                        f"are the response and a factor swapped? try --response {f} --factors {other} {response}")
-        return ""
-
     codes = []
     level_sets = []
     for f in factors:
@@ -915,18 +912,40 @@ def prepare(
                 f"expected at least 2; choose a factor that varies{merged_hint(f)}"
             )
         few = [lv_ for lv_, c in zip(lv, counts) if c < 2]
+        lc = _looks_continuous(texts[f]) if few else None
+        if lc:
+            other = factors[1] if f == factors[0] else factors[0]
+            raise FactorError(
+                f"factor {f!r} looks like a measurement, not a factor ({lc[0]} distinct numbers, {lc[1]} seen "
+                f"once; level {few[0]!r} has {int(counts[lv.index(few[0])])} observation(s)); expected a few "
+                f"repeated levels; are the response and a factor swapped? try --response {f} --factors {other} "
+                f"{response}"
+            )
         if few:
             raise FactorError(
                 f"factor {f!r}: level {few[0]!r} has fewer than two observations in total "
                 f"({int(counts[lv.index(few[0])])}); expected at least 2 per level; "
-                f"merge or remove that level{swap_hint(f) or merged_hint(f)}"
+                f"merge or remove that level{merged_hint(f)}"
             )
     if native_y:
         ycol_parse, y_is_text = ycol, False
     else:
         ycol_parse = pd.Series(np.where(np.equal(ytxt, None), "", ytxt), dtype=object)
         y_is_text = True
-    y, offset, centring = _parse_response(ycol_parse, y_is_text, response, rows, keep, swap_hint())
+    try:
+        y, offset, centring = _parse_response(ycol_parse, y_is_text, response, rows, keep)
+    except ResponseError as exc:
+        if "must be numeric" not in str(exc):
+            raise
+        for c in (*factors, *(c for c in cols if c not in (response, *factors))):
+            lc = _looks_continuous(texts[c] if c in texts else _as_level_text(frame[c]))
+            if lc:
+                fac = [x for x in factors if x != c] + ([response] if c in factors else [])
+                raise ResponseError(
+                    f"{exc}; column {c!r} looks like the measurement ({lc[0]} distinct numbers): are the response "
+                    f"and a factor swapped? try --response {c} --factors {' '.join(fac)}"
+                ) from None
+        raise
     J, K = len(la), len(lb)
     miss_cells = np.zeros((J, K), dtype=np.int64)
     known = miss_y & ~miss_factor & ~blank

@@ -349,5 +349,12 @@ def test_swapped_response_and_factor_hint(tmp_path):
     rows = rows_of()
     p = tmp_path / "d.csv"
     p.write_text(text_of(rows))
-    msg = one_line_error(cli(p, response="strain", factors=("substrate", "mass_g")), "swapped", "--response mass_g")
-    assert "fewer than two" in msg or "must be numeric" in msg
+    msg = one_line_error(cli(p, response="strain", factors=("substrate", "mass_g")), "swapped",
+                         "--response mass_g", "'mass_g' looks like a measurement")
+    assert "fewer than two" not in msg
+
+
+def test_text_response_hint_names_the_numeric_column():
+    f = pd.DataFrame([r + [r[1]] for r in rows_of()], columns=["substrate", "strain", "mass_g", "batch"])
+    with pytest.raises(ResponseError, match="try --response mass_g --factors substrate batch"):
+        load(f, response="strain", factors=("substrate", "batch"))
