@@ -311,6 +311,11 @@ def _read_text(path: str, suffix: str, sha: str, encoding: str | None):
     text, enc = _decode(path, raw, encoding)
     del raw
     delim = _sniff_delimiter(path, text, suffix)
+    m = re.match(r"(?:[ \t]*(?:\r\n|\n|\r))+", text)  # blank lines above the header
+    lead = 0
+    if m:
+        lead = len(re.findall(r"\r\n|\n|\r", m.group(0)))
+        text = text[m.end():]
     try:
         table = pd.read_csv(
             io.StringIO(text), sep=delim, header=None, dtype=str, keep_default_na=False, na_filter=False,
@@ -337,6 +342,7 @@ def _read_text(path: str, suffix: str, sha: str, encoding: str | None):
     else:
         lines = np.arange(len(table), dtype=np.int64) + 1
     del text
+    lines = lines + lead
     h = next((i for i in range(len(table))
               if any(isinstance(v, str) and v.strip() for v in table.iloc[i].tolist())), None)
     if h is None:

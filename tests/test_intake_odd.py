@@ -358,3 +358,25 @@ def test_text_response_hint_names_the_numeric_column():
     f = pd.DataFrame([r + [r[1]] for r in rows_of()], columns=["substrate", "strain", "mass_g", "batch"])
     with pytest.raises(ResponseError, match="try --response mass_g --factors substrate batch"):
         load(f, response="strain", factors=("substrate", "batch"))
+
+
+def test_blank_lines_above_the_header_keep_true_line_numbers(tmp_path):
+    # reference: the file's own line count (str.splitlines)
+    text = "\n  \r\n" + text_of(rows_of())
+    p = tmp_path / "d.csv"
+    p.write_bytes(text.encode())
+    obs = load(str(p), response="mass_g", factors=("substrate", "strain"))
+    header_line = text.splitlines().index("substrate,strain,mass_g") + 1
+    assert header_line == 3
+    assert_array_equal(obs.rows, np.arange(len(rows_of())) + header_line + 1)
+
+
+def test_dataframe_repeated_column_and_file_only_options():
+    f = pd.DataFrame(rows_of(), columns=["substrate", "strain", "mass_g"])
+    g = pd.concat([f, f[["mass_g"]]], axis=1)
+    with pytest.raises(ColumnError, match="'mass_g' appears twice"):
+        load(g, response="mass_g", factors=("substrate", "strain"))
+    with pytest.raises(OptionError, match="encoding"):
+        load(f, response="mass_g", factors=("substrate", "strain"), encoding="latin-1")
+    with pytest.raises(OptionError, match="sheet"):
+        load(f, response="mass_g", factors=("substrate", "strain"), sheet="data")
