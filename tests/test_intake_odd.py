@@ -23,7 +23,7 @@ import pandas as pd
 import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 
-from audit.errors import ColumnError, DataFileError, FactorError, OptionError, ResponseError
+from audit.errors import ColumnError, OptionError, ResponseError
 from audit.intake import load
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
