@@ -362,12 +362,13 @@ def _expected_repeats(n: int, mean: float, sd: float, step: float, origin: float
     return max(float(n) - distinct, 0.0)
 
 
-def repeated_values(y: np.ndarray, cell: np.ndarray, counts: np.ndarray) -> dict:
+def repeated_values(y: np.ndarray, cell: np.ndarray, counts: np.ndarray, y_original: np.ndarray | None = None) -> dict:
     """Repeated response values within cells against what the recording
     resolution and the cell spreads make likely (module notes).
 
     Returns {duplicate_rows, expected, p, resolution, resolution_basis,
-    suspicious}.  ``p`` = P(Poisson(2 * expected) >= duplicate_rows).
+    suspicious}.  ``p`` = P(Poisson(2 * expected) >= duplicate_rows).  When
+    ``y`` (centred) shows no grid, the resolution is sought in ``y_original``.
     """
     y = np.asarray(y, dtype=float)
     cell = np.asarray(cell)
@@ -375,6 +376,9 @@ def repeated_values(y: np.ndarray, cell: np.ndarray, counts: np.ndarray) -> dict
     ys, cs = y[order], cell[order]
     dup = int(np.count_nonzero((cs[1:] == cs[:-1]) & (ys[1:] == ys[:-1]))) if y.size > 1 else 0
     step, basis = recording_resolution(y)
+    if step == 0.0 and y_original is not None:
+        # a response centred in floating point at intake loses its decimal grid; the original keeps it
+        step, basis = recording_resolution(y_original)
     JK = counts.size
     n, mean, css = cell_moments(y, cell, JK)
     origin = float(y.min()) if y.size else 0.0
@@ -499,7 +503,8 @@ def independence(fit: Fit) -> Diagnostic:
             passed.append(f"each of the {int(cnt.size)} units of '{obs.unit_name}' contributes exactly one row, "
                           "so the data show no pseudo-replication as labelled")
     n = len(obs)
-    rv = repeated_values(obs.y, obs.cell, fit.cells.counts.ravel())
+    rv = repeated_values(obs.y, obs.cell, fit.cells.counts.ravel(),
+                         obs.y_original if obs.offset else None)
     v["duplicate_rows"] = rv["duplicate_rows"]
     v["duplicates_expected"] = _num(rv["expected"])
     v["duplicates_p"] = _num(rv["p"])
