@@ -6,6 +6,7 @@ intake -> design -> core fit -> diagnostics and alternative methods -> (verdict)
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as _dt
 import platform
 import sys
@@ -46,6 +47,9 @@ def check(
     levels: dict | None = None,
     order: str | None = None,
     unit: str | None = None,
+    sheet: str | int | None = None,
+    encoding: str | None = None,
+    decimal: str | None = None,
     resamples: int = 9999,
     seed: int | None = None,
     diagnostics: bool = True,
@@ -67,11 +71,23 @@ def check(
     alpha : float, default 0.05
         Significance level for every decision.
     levels : dict, optional
-        {factor: [level, ...]} to fix a level order (default: first appearance).
+        {factor: [level, ...]} (or a sequence of (factor, [level, ...]) pairs)
+        to fix a level order (default: first appearance); every level must be
+        listed once.
     order : str, optional
         Run-order column (used by the independence checks).
     unit : str, optional
         Experimental-unit column (pseudo-replication check).
+    sheet : str or int, optional
+        Sheet of an .xlsx workbook, by name or number counting from 1;
+        required when the workbook has several sheets.
+    encoding : str, optional
+        Encoding of a text file (default: UTF-8, or UTF-16 with a byte-order
+        mark), e.g. 'latin-1'.
+    decimal : {'.', ','}, optional
+        Decimal mark of numbers in a text file (default '.'; a ';'-delimited
+        file whose response values all use decimal commas is read with ','
+        and a note).
     resamples : int, default 9999
         Resamples for each permutation / bootstrap method (0 skips them).
     seed : int, optional
@@ -96,11 +112,13 @@ def check(
         Bad input, with a message naming the column or option at fault.
     """
     alpha = check_alpha(alpha)
-    obs = load(data, response=response, factors=factors, levels=levels, order=order, unit=unit)
+    obs = load(data, response=response, factors=factors, levels=levels, order=order, unit=unit,
+               sheet=sheet, encoding=encoding, decimal=decimal)
     fit = fit_observations(obs, alpha=alpha)
     design = describe_design(
         fit.cells, dropped=obs.dropped.to_dict(obs.levels_a, obs.levels_b), centring=obs.centring
     )
+    design = dataclasses.replace(design, notes=(*obs.notes, *design.notes)) if obs.notes else design
     return _assemble(fit, design, mode="data", source=(obs.source.path, obs.source.sha256),
                      resamples=resamples, seed=seed, diagnostics=diagnostics, methods=methods,
                      figures=figures, progress=progress)

@@ -17,6 +17,8 @@ PROG = "twoway-audit"
 
 class _Parser(argparse.ArgumentParser):
     def error(self, message: str):  # one line, exit 2
+        if "--factors" in message and "expected 2 argument" in message:
+            message += "; give two names separated by a space: --factors COL_A COL_B"
         sys.stderr.write(f"{PROG}: error: {message} (see '{PROG} {self._sub or ''} --help')\n".replace("  ", " "))
         raise SystemExit(2)
 
@@ -51,6 +53,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="level order for a factor (repeatable; default: order of first appearance)")
     c.add_argument("--order", metavar="COL", help="run-order column (independence checks)")
     c.add_argument("--unit", metavar="COL", help="experimental-unit column (pseudo-replication check)")
+    c.add_argument("--sheet", metavar="NAME|NUMBER", help="sheet of an .xlsx workbook (needed when it has several)")
+    c.add_argument("--encoding", metavar="CODEC", help="text encoding, e.g. latin-1 (default: UTF-8 or UTF-16 with BOM)")
+    c.add_argument("--decimal", metavar="MARK", help="decimal mark of the numbers: . (default) or ,")
     c.add_argument("--resamples", type=int, default=9999, metavar="B",
                    help="resamples for each permutation/bootstrap method (default 9999; 0 skips them)")
     c.add_argument("--seed", type=int, default=None,
@@ -69,7 +74,8 @@ def _run_check(args) -> int:
 
     findings = check(
         args.data, response=args.response, factors=tuple(args.factors), alpha=args.alpha,
-        levels=dict(args.levels) or None, order=args.order, unit=args.unit,
+        levels=args.levels or None, order=args.order, unit=args.unit,
+        sheet=args.sheet, encoding=args.encoding, decimal=args.decimal,
         resamples=args.resamples, seed=args.seed, diagnostics=not args.no_diagnostics,
         methods=not args.no_methods, figures=bool(args.report), progress=sys.stderr.isatty(),
     )

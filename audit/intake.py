@@ -6,6 +6,27 @@ first appearance unless an order is given.  Rows with a missing response or
 factor are dropped and *counted* per cell; nothing is dropped silently.  The
 input file is only read, never written.
 
+Missing values (the rule, for every format):
+
+* a factor, ``order`` or ``unit`` value is missing only when it is empty or
+  whitespace (or a native missing value of a DataFrame, workbook or Parquet
+  file).  Text such as ``None``, ``NA``, ``nan`` or ``null`` is a level;
+* a response value is missing when it is empty or whitespace, a native missing
+  value, or one of the tokens ``NA``, ``N/A``, ``NaN`` and ``.`` (any case).
+
+Text files are decoded as UTF-8 (with or without a byte-order mark) or UTF-16
+(with a byte-order mark); anything else stops with a hint to give
+``encoding=``.  A workbook with several sheets needs ``sheet=``.  Numbers with a
+decimal comma are read with ``decimal=","``; a ``;``-delimited file whose
+response values all use decimal commas is read that way with a note.  Factor
+values that are all numbers and spell one number two ways ("15" and "15.0")
+are merged into one level with a note; mixed with non-numbers they stop with
+an error naming both spellings.
+
+Row numbers: for a file, the line of the file on which the record starts (the
+header is line 1; quoted fields spanning lines are counted); for a DataFrame,
+its index labels when the index is integer, else 0-based positions.
+
 When the response values share many leading digits (as in NIST StRD SmLs07-09)
 a common decimal offset is subtracted from the *text* before converting to
 binary floating point (exact, with :mod:`decimal`); centring afterwards in
@@ -14,10 +35,13 @@ floating point cannot recover the digits lost at parsing.
 
 from __future__ import annotations
 
+import codecs
 import csv
 import hashlib
+import io
 import math
 import os
+import re
 from dataclasses import dataclass
 from decimal import Decimal, InvalidOperation, localcontext
 
@@ -25,12 +49,16 @@ import numpy as np
 
 from .errors import AuditInputError, ColumnError, DataFileError, FactorError, OptionError, ResponseError
 
-__all__ = ["Observations", "DroppedRows", "read_table", "prepare", "load"]
+__all__ = ["Observations", "DroppedRows", "read_table", "prepare", "load", "RESPONSE_NA_TOKENS"]
 
 TEXT_SUFFIXES = {".csv", ".tsv", ".tab", ".txt", ".dat"}
 SUPPORTED = sorted(TEXT_SUFFIXES | {".xlsx", ".parquet"})
 #: centre exactly when max|y| / (max y - min y) exceeds this (about 6 shared digits)
 CENTRING_THRESHOLD = 1e6
+#: response text read as missing (compared case-insensitively, after stripping)
+RESPONSE_NA_TOKENS = frozenset({"na", "n/a", "nan", "."})
+_NUMBER_RE = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$")
+_DEC_COMMA_RE = re.compile(r"^[+-]?(\d+,\d*|,\d+)([eE][+-]?\d+)?$")
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -76,12 +104,15 @@ class DroppedRows:
 
 @dataclass(frozen=True, kw_only=True)
 class Source:
-    """Where the data came from: path (or '<DataFrame>'), SHA-256, format, delimiter."""
+    """Where the data came from: path (or '<DataFrame>'), SHA-256, format,
+    delimiter, text encoding and workbook sheet (None where they do not apply)."""
 
     path: str
     sha256: str | None
     format: str
     delimiter: str | None = None
+    encoding: str | None = None
+    sheet: str | None = None
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -101,16 +132,22 @@ class Observations:
         Level codes of factor A (0..J-1) and B (0..K-1).
     levels_a, levels_b : tuple of str
     rows : ndarray int
-        Row numbers for reports: for a file, its line number (the header is
-        line 1); for a DataFrame, the 0-based position in the frame.
+        Row identifiers for reports: for a file, the line on which the record
+        starts (the header is line 1; a quoted field spanning lines counts
+        every line); for a DataFrame, its index labels when the index is
+        integer (a default index gives 0-based positions), else the 0-based
+        position in the frame.
     row_kind : str
-        'line' or 'position'.
+        'line' (file), 'index' (DataFrame index labels) or 'position'.
     order : ndarray float or None
         Run order (from ``order=``), when given.
     unit : ndarray int or None
         Experimental-unit codes (from ``unit=``), when given.
     dropped : DroppedRows
     source : Source
+    notes : tuple of str
+        What intake decided on the user's behalf (merged spellings of one
+        number, decimal commas, blank workbook cells), for the design notes.
     """
 
     response: str
@@ -131,6 +168,7 @@ class Observations:
     dropped: DroppedRows
     source: Source
     duplicate_rows: int = 0
+    notes: tuple[str, ...] = ()
 
     @property
     def J(self) -> int:
@@ -162,12 +200,62 @@ def _sha256(path: str) -> str:
     return h.hexdigest()
 
 
-def _sniff_delimiter(path: str, suffix: str) -> str:
-    with open(path, "r", encoding="utf-8-sig", errors="replace", newline="") as fh:
-        sample = fh.read(65536)
+def _check_encoding(encoding):
+    if encoding is None:
+        return None
+    if not isinstance(encoding, str) or not encoding.strip():
+        raise OptionError(f"encoding: expected a codec name such as 'latin-1' or 'utf-16', found {encoding!r}")
+    try:
+        return codecs.lookup(encoding.strip()).name
+    except LookupError:
+        raise OptionError(
+            f"encoding: unknown text encoding {encoding!r}; expected a codec name such as "
+            "'utf-8', 'latin-1', 'cp1252' or 'utf-16'"
+        ) from None
+
+
+def _decode(path: str, raw: bytes, encoding: str | None) -> tuple[str, str]:
+    """Decode a text file: the given codec, else UTF-8 (BOM optional) or UTF-16/32 with a BOM."""
+    if encoding is not None:
+        try:
+            text = raw.decode(encoding)
+        except UnicodeDecodeError as exc:
+            raise DataFileError(
+                f"{path}: cannot be decoded as {encoding} (byte {raw[exc.start]:#04x} at offset {exc.start}); "
+                "expected text in that encoding; give the file's encoding with --encoding (API encoding=)"
+            ) from None
+        return text.lstrip("\ufeff"), encoding
+    for bom, name in ((codecs.BOM_UTF32_LE, "utf-32"), (codecs.BOM_UTF32_BE, "utf-32"),
+                      (codecs.BOM_UTF8, "utf-8-sig"), (codecs.BOM_UTF16_LE, "utf-16"),
+                      (codecs.BOM_UTF16_BE, "utf-16")):
+        if raw.startswith(bom):
+            try:
+                return raw.decode(name).lstrip("\ufeff"), name
+            except UnicodeDecodeError:
+                raise DataFileError(
+                    f"{path}: starts with a {name} byte-order mark but is not valid {name}; "
+                    "expected one text encoding throughout; re-save it as UTF-8 or give --encoding"
+                ) from None
+    try:
+        return raw.decode("utf-8"), "utf-8"
+    except UnicodeDecodeError as exc:
+        line = raw.count(b"\n", 0, exc.start) + 1
+        nul = raw[:4096].count(b"\x00")
+        guess = ("it looks like UTF-16 without a byte-order mark: give --encoding utf-16-le (or utf-16-be)"
+                 if nul > len(raw[:4096]) // 8 else
+                 "if it was saved as Latin-1 or Windows-1252, give --encoding latin-1 (or cp1252); "
+                 "the API takes encoding=")
+        raise DataFileError(
+            f"{path}: is not UTF-8 text (byte {raw[exc.start]:#04x} on line {line}); expected UTF-8 or "
+            f"UTF-16 with a byte-order mark; {guess}"
+        ) from None
+
+
+def _sniff_delimiter(path: str, text: str, suffix: str) -> str:
+    sample = text[:65536]
     if not sample.strip():
         raise DataFileError(f"{path}: the file is empty; expected a header line and data rows")
-    first = sample.splitlines()[0]
+    first = next(ln for ln in sample.splitlines() if ln.strip())
     try:
         return csv.Sniffer().sniff(sample, delimiters=",\t;|").delimiter
     except csv.Error:
@@ -183,47 +271,175 @@ def _sniff_delimiter(path: str, suffix: str) -> str:
     return ","
 
 
-def read_table(path: str | os.PathLike):
+def _record_start_lines(text: str) -> np.ndarray:
+    """1-based physical line on which each record starts, for RFC 4180 quoting
+    (a double quote opens/closes a quoted field; "" inside one is a quote)."""
+    b = np.frombuffer(text.encode("utf-32-le"), dtype=np.uint32)
+    nl = np.flatnonzero(b == 10)
+    q = np.cumsum(b == 34)
+    ends = nl[(q[nl] % 2) == 0] if nl.size else nl  # newlines outside quotes end records
+    line_of = np.searchsorted(nl, ends)  # 0-based line index of each record end
+    starts = np.concatenate([[0], line_of + 1]) + 1
+    if b.size and b[-1] == 10:
+        starts = starts[:-1]
+    return starts.astype(np.int64)
+
+
+def _header_names(values, path: str) -> list[str]:
+    names = []
+    for i, v in enumerate(values):
+        s = "" if v is None or (isinstance(v, float) and math.isnan(v)) else str(v).strip()
+        if isinstance(v, float) and v.is_integer():
+            s = str(int(v))
+        names.append(s if s else f"Unnamed: {i}")
+    seen: dict[str, int] = {}
+    for i, s in enumerate(names):
+        if s in seen:
+            raise ColumnError(
+                f"{path}: column name {s!r} appears twice in the header (columns {seen[s] + 1} and {i + 1}); "
+                "expected unique names; rename one of them"
+            )
+        seen[s] = i
+    return names
+
+
+def _read_text(path: str, suffix: str, sha: str, encoding: str | None):
+    import pandas as pd
+
+    with open(path, "rb") as fh:
+        raw = fh.read()
+    text, enc = _decode(path, raw, encoding)
+    del raw
+    delim = _sniff_delimiter(path, text, suffix)
+    m = re.match(r"(?:[ \t]*(?:\r\n|\n|\r))+", text)  # blank lines above the header
+    lead = 0
+    if m:
+        lead = len(re.findall(r"\r\n|\n|\r", m.group(0)))
+        text = text[m.end():]
+    try:
+        table = pd.read_csv(
+            io.StringIO(text), sep=delim, header=None, dtype=str, keep_default_na=False, na_filter=False,
+            skip_blank_lines=False, skipinitialspace=True, engine="c" if len(delim) == 1 else "python",
+        )
+    except (pd.errors.ParserError, ValueError) as exc:
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise DataFileError(
+            f"{path}: cannot be read as delimited text ({first}); expected one header line, "
+            "then one row per observation"
+        ) from None
+    if '"' in text:
+        lines = _record_start_lines(text)
+        if lines.size != len(table):  # a quote inside an unquoted field: count with the csv module
+            if len(delim) == 1:
+                reader = csv.reader(io.StringIO(text, newline=""), delimiter=delim, skipinitialspace=True)
+                starts, prev = [], 0
+                for _ in reader:
+                    starts.append(prev + 1)
+                    prev = reader.line_num
+                lines = np.asarray(starts, dtype=np.int64)
+            if lines.size != len(table):
+                lines = np.arange(len(table), dtype=np.int64) + 1
+    else:
+        lines = np.arange(len(table), dtype=np.int64) + 1
+    del text
+    lines = lines + lead
+    h = next((i for i in range(len(table))
+              if any(isinstance(v, str) and v.strip() for v in table.iloc[i].tolist())), None)
+    if h is None:
+        raise DataFileError(f"{path}: the file is empty; expected a header line and data rows")
+    names = _header_names(table.iloc[h].tolist(), path)
+    frame = table.iloc[h + 1:].reset_index(drop=True)
+    frame.columns = names
+    src = Source(path=path, sha256=sha, format="text", delimiter=delim, encoding=enc)
+    return frame, src, lines[h + 1:]
+
+
+def _pick_sheet(path: str, names: list[str], sheet) -> str:
+    listing = ", ".join(f"{i + 1} {n!r}" for i, n in enumerate(names))
+    if sheet is None:
+        if len(names) == 1:
+            return names[0]
+        raise DataFileError(
+            f"{path}: the workbook has {len(names)} sheets ({listing}); expected one sheet to read; "
+            "choose it with --sheet NAME or --sheet NUMBER (API sheet=), numbers counting from 1"
+        )
+    if isinstance(sheet, str) and sheet in names:
+        return sheet
+    s = str(sheet).strip()
+    if not isinstance(sheet, bool) and s.isdigit() and 1 <= int(s) <= len(names):
+        return names[int(s) - 1]
+    raise OptionError(
+        f"sheet: no sheet {sheet!r} in {path}; expected a name or a number from 1 to {len(names)}; "
+        f"the sheets are {listing}"
+    )
+
+
+def _read_xlsx(path: str, sha: str, sheet):
+    import pandas as pd
+
+    try:
+        import openpyxl  # noqa: F401
+    except ImportError:
+        raise DataFileError(
+            f"{path}: reading .xlsx needs openpyxl, which is not installed; "
+            "run: pip install 'twoway-audit[xlsx]'"
+        ) from None
+    try:
+        book = pd.ExcelFile(path, engine="openpyxl")
+        names = list(book.sheet_names)
+    except Exception as exc:  # openpyxl raises many types for corrupt files
+        raise DataFileError(f"{path}: cannot be read as an .xlsx workbook ({type(exc).__name__})") from None
+    chosen = _pick_sheet(path, names, sheet)
+    try:
+        table = pd.read_excel(book, sheet_name=chosen, header=None, keep_default_na=False)
+    except Exception as exc:
+        raise DataFileError(f"{path}: sheet {chosen!r} cannot be read ({type(exc).__name__})") from None
+    finally:
+        book.close()
+    if table.empty:
+        raise DataFileError(f"{path}: sheet {chosen!r} is empty; expected a header row and data rows")
+    names_row = _header_names(table.iloc[0].tolist(), path)
+    frame = table.iloc[1:].reset_index(drop=True)
+    frame.columns = names_row
+    frame = frame.infer_objects()
+    rows = np.arange(len(frame), dtype=np.int64) + 2
+    return frame, Source(path=path, sha256=sha, format="xlsx", sheet=chosen), rows
+
+
+def read_table(path: str | os.PathLike, *, sheet=None, encoding: str | None = None):
     """Read a CSV/TSV/xlsx/parquet file into a DataFrame of strings (text formats)
-    or native types (binary formats).  Returns (frame, Source, row_numbers)."""
+    or native types (binary formats).  Returns (frame, Source, row_numbers).
+
+    Parameters
+    ----------
+    path : str or path
+    sheet : str or int, optional
+        Workbook sheet, by name or number counting from 1 (needed when an
+        .xlsx file has several sheets).
+    encoding : str, optional
+        Text encoding of a text file (default: UTF-8 or UTF-16 with a BOM).
+    """
     import pandas as pd
 
     path = os.fspath(path)
+    encoding = _check_encoding(encoding)
     if not os.path.exists(path):
         raise DataFileError(f"data file {path!r} not found; check the path (the current folder is {os.getcwd()!r})")
     if os.path.isdir(path):
         raise DataFileError(f"{path!r} is a folder; expected a data file ({', '.join(SUPPORTED)})")
     suffix = os.path.splitext(path)[1].lower()
+    is_text = suffix in TEXT_SUFFIXES or suffix == ""
+    if sheet is not None and suffix != ".xlsx":
+        raise OptionError(f"sheet: {path} is not an .xlsx workbook, so it has no sheets; leave out --sheet")
+    if encoding is not None and not is_text:
+        raise OptionError(
+            f"encoding: {path} is a binary {suffix} file that stores its own encoding; leave out --encoding"
+        )
     sha = _sha256(path)
-    if suffix in TEXT_SUFFIXES or suffix == "":
-        delim = _sniff_delimiter(path, suffix)
-        try:
-            frame = pd.read_csv(
-                path, sep=delim, dtype=str, skip_blank_lines=False, skipinitialspace=True,
-                encoding="utf-8-sig", engine="c" if len(delim) == 1 else "python",
-            )
-        except (pd.errors.ParserError, UnicodeDecodeError, ValueError) as exc:
-            first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-            raise DataFileError(
-                f"{path}: cannot be read as delimited text ({first}); expected one header line, "
-                "then one row per observation"
-            ) from None
-        rows = np.arange(len(frame), dtype=np.int64) + 2
-        return frame, Source(path=path, sha256=sha, format="text", delimiter=delim), rows
+    if is_text:
+        return _read_text(path, suffix, sha, encoding)
     if suffix == ".xlsx":
-        try:
-            import openpyxl  # noqa: F401
-        except ImportError:
-            raise DataFileError(
-                f"{path}: reading .xlsx needs openpyxl, which is not installed; "
-                "run: pip install 'twoway-audit[xlsx]'"
-            ) from None
-        try:
-            frame = pd.read_excel(path, sheet_name=0)
-        except Exception as exc:  # openpyxl raises many types for corrupt files
-            raise DataFileError(f"{path}: cannot be read as an .xlsx workbook ({type(exc).__name__})") from None
-        rows = np.arange(len(frame), dtype=np.int64) + 2
-        return frame, Source(path=path, sha256=sha, format="xlsx"), rows
+        return _read_xlsx(path, sha, sheet)
     if suffix == ".parquet":
         try:
             import pyarrow  # noqa: F401
@@ -236,6 +452,7 @@ def read_table(path: str | os.PathLike):
             frame = pd.read_parquet(path)
         except Exception as exc:
             raise DataFileError(f"{path}: cannot be read as a Parquet file ({type(exc).__name__})") from None
+        _header_names(list(frame.columns), path)
         rows = np.arange(len(frame), dtype=np.int64) + 1
         return frame, Source(path=path, sha256=sha, format="parquet"), rows
     raise DataFileError(
@@ -243,28 +460,177 @@ def read_table(path: str | os.PathLike):
     )
 
 
-def _as_level_text(col) -> "np.ndarray":
-    """Factor values as text (None where missing): numbers that are whole print
-    without '.0'.  Converts each distinct value once, not each row."""
+def _fmt_scalar(v) -> str | None:
+    if v is None:
+        return None
+    if isinstance(v, (float, np.floating)):
+        if math.isnan(v):
+            return None
+        return str(int(v)) if float(v).is_integer() else repr(float(v))
+    if isinstance(v, (bool, np.bool_)):
+        return str(bool(v))
+    s = str(v).strip()
+    return s or None
+
+
+def _level_lookup(col) -> tuple[np.ndarray, np.ndarray]:
+    """(lookup, codes): distinct values as text with a trailing None, and each
+    row's index into it (-1, the trailing None, where natively missing)."""
     import pandas as pd
 
     codes, uniq = pd.factorize(col, sort=False, use_na_sentinel=True)
-    if pd.api.types.is_float_dtype(col):
-        texts = [str(int(v)) if float(v).is_integer() else repr(float(v)) for v in uniq]
-    else:
-        texts = [str(v).strip() for v in uniq]
-    lookup = np.array(texts + [None], dtype=object)
+    lookup = np.array([_fmt_scalar(v) for v in uniq] + [None], dtype=object)
+    return lookup, codes
+
+
+def _as_level_text(col) -> "np.ndarray":
+    """Values as text, None where missing (a native missing value, or empty or
+    whitespace text).  Whole numbers print without '.0'.  Converts each
+    distinct value once, not each row."""
+    lookup, codes = _level_lookup(col)
     return lookup[codes]  # code -1 (missing) picks the trailing None
 
 
-def _missing_mask(col) -> np.ndarray:
+def _comma_to_point(txt: np.ndarray) -> np.ndarray:
+    """Respell decimal-comma numbers ('14,54') with a point; other text unchanged."""
+    out = txt.copy()
+    for i, v in enumerate(out):
+        if v is not None and "," in v and _DEC_COMMA_RE.match(v):
+            out[i] = v.replace(",", ".")
+    return out
+
+
+def _respell(txt: np.ndarray, decimal: str | None) -> np.ndarray:
+    """Apply the decimal comma to distinct values (fast for long columns)."""
     import pandas as pd
 
-    m = pd.isna(col).to_numpy(dtype=bool, copy=True)
-    if col.dtype == object or pd.api.types.is_string_dtype(col):
-        s = col.astype(str).str.strip()
-        m |= (s == "").to_numpy(dtype=bool) & ~m
-    return m
+    if decimal != ",":
+        return txt
+    codes, uniq = pd.factorize(pd.Series(txt, dtype=object), sort=False, use_na_sentinel=True)
+    lookup = np.append(_comma_to_point(np.asarray(uniq, dtype=object)), None)
+    return lookup[codes]
+
+
+def _check_factors_option(factors) -> tuple[str, str]:
+    if isinstance(factors, str):
+        parts = [p.strip() for p in factors.replace(",", " ").split()]
+        hint = f"; give a pair such as factors=({parts[0]!r}, {parts[1]!r})" if len(parts) == 2 else ""
+        raise OptionError(
+            f"factors: expected a pair of two column names, found the single string {factors!r}{hint}"
+        )
+    try:
+        names = tuple(factors)
+    except TypeError:
+        raise OptionError(
+            f"factors: expected a pair of two column names, found {type(factors).__name__} {factors!r}"
+        ) from None
+    if len(names) != 2 or not all(isinstance(n, str) for n in names):
+        raise OptionError(
+            f"factors: expected exactly two column names, found {len(names)}: {list(names)!r}; "
+            "give two names (CLI: --factors COL_A COL_B, separated by a space)"
+        )
+    if names[0] == names[1]:
+        raise ColumnError(
+            f"factors: both factors are the same column {names[0]!r}; name two different columns"
+        )
+    return names[0], names[1]
+
+
+def _check_levels_option(levels) -> dict:
+    """{factor: [level, ...]} from a dict or a sequence of (factor, levels) pairs."""
+    if levels is None:
+        return {}
+    pairs = list(levels.items()) if isinstance(levels, dict) else None
+    if pairs is None:
+        try:
+            pairs = [(k, v) for k, v in levels]
+        except (TypeError, ValueError):
+            raise OptionError(
+                f"levels: expected a dict {{factor: [level, ...]}}, found {type(levels).__name__}"
+            ) from None
+    out: dict[str, list[str]] = {}
+    for name, given in pairs:
+        name = str(name)
+        if name in out:
+            raise OptionError(
+                f"--levels: column {name!r} is given twice; expected one level order per factor; "
+                "keep one --levels for it"
+            )
+        if isinstance(given, str) or not hasattr(given, "__iter__"):
+            raise OptionError(f"--levels {name}: expected a list of levels, found {given!r}")
+        lv = [str(x).strip() for x in given]
+        if any(x == "" for x in lv):
+            raise OptionError(f"--levels {name}: an empty level name in {lv}; expected names between the commas")
+        seen = set()
+        for x in lv:
+            if x in seen:
+                raise OptionError(
+                    f"--levels {name}: level {x!r} is listed twice; expected each level once; remove the repeat"
+                )
+            seen.add(x)
+        out[name] = lv
+    return out
+
+
+def _number_key(s: str):
+    return Decimal(s) if _NUMBER_RE.match(s) else None
+
+
+def _merge_numeric_spellings(f: str, txt: np.ndarray, given: list[str] | None, notes: list[str]) -> np.ndarray:
+    """Merge spellings of one number ('15', '15.0') when every value is numeric."""
+    import pandas as pd
+
+    codes, uniq = pd.factorize(pd.Series(txt, dtype=object), sort=False, use_na_sentinel=True)
+    uniq = [str(u) for u in uniq]
+    keys = [_number_key(u) for u in uniq]
+    groups: dict = {}
+    for u, k in zip(uniq, keys):
+        if k is not None:
+            groups.setdefault(k, []).append(u)
+    multi = [g for g in groups.values() if len(g) > 1]
+    if not multi:
+        return txt
+    if any(k is None for k in keys):
+        other = next(u for u, k in zip(uniq, keys) if k is None)
+        raise FactorError(
+            f"factor {f!r}: {multi[0][0]!r} and {multi[0][1]!r} spell the same number as two levels, and the "
+            f"column also holds text ({other!r}); expected one spelling per level; make the spellings the same"
+        )
+    canon = {}
+    for g in multi:
+        target = next((x for x in (given or []) if _number_key(x) == Decimal(g[0])), g[0])
+        for u in g:
+            canon[u] = target
+        notes.append(
+            f"factor {f!r}: the spellings {', '.join(repr(u) for u in g)} are the same number and were "
+            f"merged into level {target!r}"
+        )
+    lookup = np.array([canon.get(u, u) for u in uniq] + [None], dtype=object)
+    return lookup[codes]
+
+
+def _looks_continuous(txt: np.ndarray) -> tuple[int, int] | None:
+    """(distinct values, values seen once) when a column looks like a measurement."""
+    import pandas as pd
+
+    vals = pd.Series(txt[np.array([v is not None for v in txt], dtype=bool)], dtype=object)
+    if vals.empty:
+        return None
+    counts = vals.value_counts()
+    if len(counts) < 8 or len(counts) <= len(vals) / 3:
+        return None
+    if not all(_NUMBER_RE.match(str(u)) for u in counts.index):
+        return None
+    return len(counts), int((counts == 1).sum())
+
+
+def _frame_row_ids(frame) -> tuple[np.ndarray, str]:
+    import pandas as pd
+
+    idx = frame.index
+    if not isinstance(idx, pd.MultiIndex) and pd.api.types.is_integer_dtype(idx.dtype):
+        return idx.to_numpy(dtype=np.int64), "index"
+    return np.arange(len(frame), dtype=np.int64), "position"
 
 
 def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.ndarray):
@@ -277,9 +643,13 @@ def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.nd
         bad = np.isnan(vals) & keep
         if bad.any():
             i = int(np.argmax(bad))
+            found = text.iloc[i]
+            extra = ""
+            if _DEC_COMMA_RE.match(found):
+                extra = "; it uses a decimal comma: give --decimal , (API decimal=',')"
             raise ResponseError(
-                f"response column {name!r} must be numeric; found {text.iloc[i]!r} at row {rows[i]}; "
-                "fix or blank out non-numeric entries (blank cells are dropped and counted)"
+                f"response column {name!r} must be numeric; found {found!r} at row {rows[i]}; "
+                f"fix or blank out non-numeric entries (blank cells are dropped and counted){extra}"
             )
         text_kept = text[keep].to_numpy(dtype=object)
     else:
@@ -333,85 +703,199 @@ def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.nd
     )
 
 
+def _text_and_missing(col) -> tuple[np.ndarray, np.ndarray]:
+    """(values as text with None where missing, missing mask); see :func:`_as_level_text`."""
+    txt = _as_level_text(col)
+    return txt, np.equal(txt, None)
+
+
 def prepare(
     frame,
     *,
     response: str,
     factors: tuple[str, str],
-    levels: dict | None = None,
+    levels=None,
     order: str | None = None,
     unit: str | None = None,
+    decimal: str | None = None,
     source: Source | None = None,
     rows: np.ndarray | None = None,
 ) -> Observations:
-    """Validate a long-format DataFrame and turn it into :class:`Observations`."""
+    """Validate a long-format DataFrame and turn it into :class:`Observations`.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+    response : str
+    factors : (str, str)
+    levels : dict or sequence of (factor, [level, ...]) pairs, optional
+    order, unit : str, optional
+    decimal : {'.', ','}, optional
+        Decimal mark of numbers stored as text (default: '.', with ',' taken
+        for a ';'-delimited file whose response values all use decimal commas).
+    source : Source, optional
+    rows : ndarray of int, optional
+        Row numbers (default: the frame's integer index labels, else positions).
+    """
     import pandas as pd
 
     if not isinstance(frame, pd.DataFrame):
         raise AuditInputError(
             f"data: expected a pandas DataFrame or a file path, found {type(frame).__name__}"
         )
+    factors = _check_factors_option(factors)
+    levels = _check_levels_option(levels)
+    if decimal not in (None, ".", ","):
+        raise OptionError(f"decimal: expected '.' or ',', found {decimal!r}; give --decimal , for decimal commas")
     if source is None:
         source = Source(path="<DataFrame>", sha256=None, format="dataframe")
     if rows is None:
-        rows = np.arange(len(frame), dtype=np.int64)
-    row_kind = "position" if source.format == "dataframe" else "line"
-    factors = tuple(factors) if factors is not None else ()
-    if len(factors) != 2:
-        raise OptionError(f"factors: expected exactly two column names, found {len(factors)}: {list(factors)}")
-    if factors[0] == factors[1]:
-        raise ColumnError(
-            f"factors: both factors are the same column {factors[0]!r}; name two different columns"
-        )
+        rows, row_kind = _frame_row_ids(frame)
+    else:
+        row_kind = "line"
     cols = [str(c) for c in frame.columns]
+    seen: set[str] = set()
+    for c in cols:
+        if c in seen:
+            raise ColumnError(f"column name {c!r} appears twice; expected unique column names; rename one of them")
+        seen.add(c)
     for role, name in (("response", response), ("factor", factors[0]), ("factor", factors[1]),
                        ("order", order), ("unit", unit)):
         if name is None:
             continue
         if name not in cols:
+            hint = ""
+            parts = [p.strip() for p in str(name).split(",")]
+            if role == "factor" and len(parts) == 2 and all(p in cols for p in parts):
+                hint = f"; give two names separated by a space: --factors {parts[0]} {parts[1]}"
             raise ColumnError(
-                f"{role} column {name!r} not found; the columns are: {', '.join(cols)}"
+                f"{role} column {name!r} not found; the columns are: {', '.join(cols)}{hint}"
             )
     if response in factors:
         raise ColumnError(f"response {response!r} is also named as a factor; name a different column")
+    for key in levels:
+        if key not in factors:
+            what = "a column but not one of the factors" if key in cols else "not a column"
+            raise OptionError(
+                f"--levels: {key!r} is {what}; expected COLUMN=L1,L2,... with COLUMN one of the factors "
+                f"{factors[0]!r} and {factors[1]!r}; fix the name before '='"
+            )
     frame = frame.copy(deep=False)
     frame.columns = cols
+    notes: list[str] = []
+    n = len(frame)
 
-    blank = frame.isna().all(axis=1).to_numpy(dtype=bool)
-    miss_a = _missing_mask(frame[factors[0]]) & ~blank
-    miss_b = _missing_mask(frame[factors[1]]) & ~blank
-    miss_y = _missing_mask(frame[response]) & ~blank
-    miss_other = np.zeros(len(frame), bool)
-    for c in (order, unit):
+    blank = np.ones(n, dtype=bool)
+    texts: dict[str, np.ndarray] = {}
+    for c in cols:
+        t, m = _text_and_missing(frame[c])
+        blank &= m
+        if c in (response, *factors, order, unit):
+            texts[c] = t
+    nb = ~blank
+    if not nb.any():
+        raise DataFileError(f"{source.path}: no data rows below the header; expected one row per observation")
+
+    # response: native numbers, or text with missing tokens
+    ycol = frame[response]
+    native_y = pd.api.types.is_numeric_dtype(ycol) and not pd.api.types.is_bool_dtype(ycol)
+    if native_y:
+        miss_y = ycol.isna().to_numpy(dtype=bool) & nb
+        ytxt = None
+    else:
+        lookup, ycodes = _level_lookup(ycol)
+        ytxt = lookup[ycodes]
+        is_na = np.array([v is None or v.lower() in RESPONSE_NA_TOKENS for v in lookup], dtype=bool)
+        miss_y = is_na[ycodes] & nb
+        if decimal is None:
+            vals = [v for v, m in zip(lookup, is_na) if not m]
+            commas = [v for v in vals if "," in v]
+            if commas and all(_DEC_COMMA_RE.match(v) or _NUMBER_RE.match(v) for v in vals):
+                i = int(np.flatnonzero(ytxt == commas[0])[0])
+                if source.delimiter == ";":
+                    decimal = ","
+                    notes.append(
+                        f"decimal commas: the file is ';'-delimited and response values such as {commas[0]!r} "
+                        "were read with ',' as the decimal mark (give --decimal . to refuse)"
+                    )
+                else:
+                    raise ResponseError(
+                        f"response column {response!r} uses decimal commas (found {commas[0]!r} at row {rows[i]}); "
+                        "expected a decimal point; give --decimal , (API decimal=',')"
+                    )
+        ytxt = _respell(ytxt, decimal)
+
+    miss = {}
+    for f in factors:
+        texts[f] = _respell(texts[f], decimal)
+        miss[f] = np.equal(texts[f], None) & nb
+    miss_other = np.zeros(n, dtype=bool)
+    for role, c in (("order", order), ("unit", unit)):
         if c is not None:
-            miss_other |= _missing_mask(frame[c]) & ~blank
-    miss_factor = (miss_a | miss_b)
-    drop = blank | miss_factor | miss_y | miss_other
-    keep = ~drop
+            m = np.equal(texts[c], None) & nb
+            if m[nb].all():
+                raise ColumnError(
+                    f"{role} column {c!r} is empty (no value on any of the {int(nb.sum())} data rows); "
+                    f"expected a value on every row; fill it in or leave out --{role}"
+                )
+            miss_other |= m
+
+    def merged_hint(f: str) -> str:
+        if source.format != "xlsx":
+            return ""
+        m = miss[f]
+        below = m & ~miss_y & np.concatenate([[False], ~m[:-1] & nb[:-1]])
+        if not below.any():
+            return ""
+        return (f"; {int(below.sum())} row(s) have a blank {f!r} cell below a filled one (first: row "
+                f"{rows[int(np.argmax(below))]}): merged cells read as blanks below their first row; "
+                "unmerge them and fill every row")
+
+    for f in factors:
+        if miss[f][nb].all():
+            raise FactorError(
+                f"factor column {f!r} is empty (no value on any of the {int(nb.sum())} data rows); "
+                "expected a level on every row; fill it in or choose another column"
+            )
+        h = merged_hint(f)
+        if h:
+            notes.append(f"factor {f!r}: {h[2:]}")
+    if miss_y[nb].all():
+        raise ResponseError(
+            f"response column {response!r} is empty (no value on any of the {int(nb.sum())} data rows); "
+            "expected numbers; choose the measured column"
+        )
 
     codes = []
     level_sets = []
     for f in factors:
-        txt = _as_level_text(frame[f])
-        given = (levels or {}).get(f)
+        txt = _merge_numeric_spellings(f, texts[f], levels.get(f), notes)
+        present = pd.unique(pd.Series(txt[~miss[f]], dtype=object)).tolist()
+        given = levels.get(f)
         if given is not None:
-            given = [str(x) for x in given]
-            present = set(txt[~(miss_a if f == factors[0] else miss_b) & ~blank])
-            unknown = sorted(present - set(given))
-            if unknown:
+            absent = [lv for lv in present if lv not in given]
+            if absent:
                 raise FactorError(
-                    f"factor {f!r}: value {unknown[0]!r} is not in the given level order {given}; "
-                    "list every level"
+                    f"factor {f!r}: level(s) {', '.join(repr(x) for x in absent)} occur in the data but not in "
+                    f"--levels {f}={','.join(given)}; expected every level listed; add them"
+                )
+            unknown = [g for g in given if g not in present]
+            if unknown:
+                raise OptionError(
+                    f"--levels {f}: level {unknown[0]!r} does not occur in column {f!r} (its levels are "
+                    f"{', '.join(repr(x) for x in present)}); fix the spelling or remove it"
                 )
             lv = tuple(given)
-            lookup = {v: i for i, v in enumerate(lv)}
-            c = np.array([lookup.get(v, -1) if v is not None else -1 for v in txt], dtype=np.int64)
         else:
-            c, uniq = pd.factorize(pd.Series(txt, dtype=object), sort=False)
-            lv = tuple(str(u) for u in uniq)
-            c = c.astype(np.int64)
+            lv = tuple(present)
+        lookup = {v: i for i, v in enumerate(lv)}
+        c = pd.Series(txt, dtype=object).map(lookup).fillna(-1).to_numpy(dtype=np.int64)
         codes.append(c)
         level_sets.append(lv)
+        texts[f] = txt
+    miss_factor = miss[factors[0]] | miss[factors[1]]
+    drop = blank | miss_factor | miss_y | miss_other
+    keep = ~drop
     a_all, b_all = codes
     la, lb = level_sets
     # levels that survive after dropping rows; re-code to keep only observed levels in order
@@ -419,29 +903,55 @@ def prepare(
     J0, K0 = len(la), len(lb)
     obs_a = np.bincount(a_keep, minlength=J0)
     obs_b = np.bincount(b_keep, minlength=K0)
-    if (levels or {}).get(factors[0]) is None:
-        la = tuple(l for l, c in zip(la, obs_a) if c > 0)
-    if (levels or {}).get(factors[1]) is None:
-        lb = tuple(l for l, c in zip(lb, obs_b) if c > 0)
-    remap_a = np.cumsum(obs_a > 0) - 1 if (levels or {}).get(factors[0]) is None else np.arange(J0)
-    remap_b = np.cumsum(obs_b > 0) - 1 if (levels or {}).get(factors[1]) is None else np.arange(K0)
-    for f, lv, counts in ((factors[0], la, np.bincount(remap_a[a_keep], minlength=len(la))),
-                          (factors[1], lb, np.bincount(remap_b[b_keep], minlength=len(lb)))):
+    if levels.get(factors[0]) is None:
+        la = tuple(lv for lv, c in zip(la, obs_a) if c > 0)
+    if levels.get(factors[1]) is None:
+        lb = tuple(lv for lv, c in zip(lb, obs_b) if c > 0)
+    remap_a = np.cumsum(obs_a > 0) - 1 if levels.get(factors[0]) is None else np.arange(J0)
+    remap_b = np.cumsum(obs_b > 0) - 1 if levels.get(factors[1]) is None else np.arange(K0)
+    for f, lv, n_all, counts in ((factors[0], la, J0, np.bincount(remap_a[a_keep], minlength=len(la))),
+                                 (factors[1], lb, K0, np.bincount(remap_b[b_keep], minlength=len(lb)))):
         if len(lv) < 2:
+            why = (f" after dropping rows with missing values ({n_all} level(s) before)" if n_all > len(lv) else "")
             raise FactorError(
-                f"factor {f!r} has {len(lv)} level(s) with data ({', '.join(lv) or 'none'}); "
-                "expected at least 2; choose a factor that varies"
+                f"factor {f!r} has {len(lv)} level(s) with data ({', '.join(lv) or 'none'}){why}; "
+                f"expected at least 2; choose a factor that varies{merged_hint(f)}"
             )
-        few = [l for l, c in zip(lv, counts) if c < 2]
+        few = [lv_ for lv_, c in zip(lv, counts) if c < 2]
+        lc = _looks_continuous(texts[f]) if few else None
+        if lc:
+            other = factors[1] if f == factors[0] else factors[0]
+            raise FactorError(
+                f"factor {f!r} looks like a measurement, not a factor ({lc[0]} distinct numbers, {lc[1]} seen "
+                f"once; level {few[0]!r} has {int(counts[lv.index(few[0])])} observation(s)); expected a few "
+                f"repeated levels; are the response and a factor swapped? try --response {f} --factors {other} "
+                f"{response}"
+            )
         if few:
             raise FactorError(
                 f"factor {f!r}: level {few[0]!r} has fewer than two observations in total "
                 f"({int(counts[lv.index(few[0])])}); expected at least 2 per level; "
-                "merge or remove that level"
+                f"merge or remove that level{merged_hint(f)}"
             )
-    y, offset, centring = _parse_response(
-        frame[response], source.format == "text", response, rows, keep
-    )
+    if native_y:
+        ycol_parse, y_is_text = ycol, False
+    else:
+        ycol_parse = pd.Series(np.where(np.equal(ytxt, None), "", ytxt), dtype=object)
+        y_is_text = True
+    try:
+        y, offset, centring = _parse_response(ycol_parse, y_is_text, response, rows, keep)
+    except ResponseError as exc:
+        if "must be numeric" not in str(exc):
+            raise
+        for c in (*factors, *(c for c in cols if c not in (response, *factors))):
+            lc = _looks_continuous(texts[c] if c in texts else _as_level_text(frame[c]))
+            if lc:
+                fac = [x for x in factors if x != c] + ([response] if c in factors else [])
+                raise ResponseError(
+                    f"{exc}; column {c!r} looks like the measurement ({lc[0]} distinct numbers): are the response "
+                    f"and a factor swapped? try --response {c} --factors {' '.join(fac)}"
+                ) from None
+        raise
     J, K = len(la), len(lb)
     miss_cells = np.zeros((J, K), dtype=np.int64)
     known = miss_y & ~miss_factor & ~blank
@@ -459,25 +969,30 @@ def prepare(
     )
     order_v = unit_v = None
     if order is not None:
-        ov = pd.to_numeric(frame[order][keep], errors="coerce").to_numpy(dtype=float)
+        otxt = _respell(texts[order], decimal)[keep]
+        ov = pd.to_numeric(pd.Series(otxt, dtype=object), errors="coerce").to_numpy(dtype=float)
         if np.isnan(ov).any():
             i = int(np.flatnonzero(keep)[np.argmax(np.isnan(ov))])
             raise ColumnError(
-                f"order column {order!r} must be numeric (run order); found {frame[order].iloc[i]!r} at row {rows[i]}"
+                f"order column {order!r} must be numeric (run order); found {otxt[np.argmax(np.isnan(ov))]!r} "
+                f"at row {rows[i]}; expected a run number on every row"
             )
         order_v = ov
     if unit is not None:
-        unit_v = pd.factorize(pd.Series(_as_level_text(frame[unit])[keep], dtype=object))[0].astype(np.int64)
-    used = frame.loc[keep, [response, *factors]]
-    dup = int(used.duplicated().sum()) if len(used) < 5_000_000 else 0
+        unit_v = pd.factorize(pd.Series(texts[unit][keep], dtype=object))[0].astype(np.int64)
+    a_codes = remap_a[a_keep].astype(np.int64)
+    b_codes = remap_b[b_keep].astype(np.int64)
+    dup = 0
+    if y.size < 5_000_000:
+        dup = int(pd.DataFrame({"a": a_codes, "b": b_codes, "y": y}).duplicated().sum())
     return Observations(
         response=response,
         factors=(factors[0], factors[1]),
         y=y,
         offset=offset,
         centring=centring,
-        a=remap_a[a_keep].astype(np.int64),
-        b=remap_b[b_keep].astype(np.int64),
+        a=a_codes,
+        b=b_codes,
         levels_a=la,
         levels_b=lb,
         rows=rows[keep],
@@ -489,19 +1004,41 @@ def prepare(
         dropped=dropped,
         source=source,
         duplicate_rows=dup,
+        notes=tuple(notes),
     )
 
 
-def load(data, *, response: str, factors, levels=None, order=None, unit=None) -> Observations:
-    """Read (when ``data`` is a path) and validate a long-format dataset."""
+def load(data, *, response: str, factors, levels=None, order=None, unit=None, sheet=None, encoding=None,
+         decimal=None) -> Observations:
+    """Read (when ``data`` is a path) and validate a long-format dataset.
+
+    Parameters
+    ----------
+    data : str, path or pandas.DataFrame
+    response : str
+    factors : (str, str)
+    levels : dict or sequence of (factor, [level, ...]) pairs, optional
+    order, unit : str, optional
+    sheet : str or int, optional
+        Workbook sheet by name or number (from 1); required when an .xlsx
+        file has several sheets.
+    encoding : str, optional
+        Encoding of a text file (default: UTF-8, or UTF-16 with a BOM).
+    decimal : {'.', ','}, optional
+        Decimal mark of numbers stored as text.
+    """
     import pandas as pd
 
     if isinstance(data, (str, os.PathLike)):
-        frame, source, rows = read_table(data)
+        frame, source, rows = read_table(data, sheet=sheet, encoding=encoding)
         return prepare(frame, response=response, factors=factors, levels=levels, order=order, unit=unit,
-                       source=source, rows=rows)
+                       decimal=decimal, source=source, rows=rows)
     if isinstance(data, pd.DataFrame):
-        return prepare(data, response=response, factors=factors, levels=levels, order=order, unit=unit)
+        for opt, val in (("sheet", sheet), ("encoding", encoding)):
+            if val is not None:
+                raise OptionError(f"{opt}: applies to files only, but data is a DataFrame; leave out {opt}=")
+        return prepare(data, response=response, factors=factors, levels=levels, order=order, unit=unit,
+                       decimal=decimal)
     raise AuditInputError(
         f"data: expected a file path or a pandas DataFrame, found {type(data).__name__}"
     )

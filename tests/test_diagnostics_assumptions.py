@@ -411,3 +411,132 @@ def test_duplicate_rows_flagged():
     frame = pd.concat([frame, frame.iloc[:2]], ignore_index=True)
     d = independence(_fit(frame))
     assert d.values["duplicate_rows"] == 2 and d.severity == "warning" and "duplicate" in d.summary
+
+
+# --------------------------------------------------------------------------- homogeneity grading by size
+
+def _summary_fit(counts, sds):
+    counts, sds = np.asarray(counts), np.asarray(sds, float)
+    J, K = counts.shape
+    t = pd.DataFrame([(f"a{j}", f"b{k}", 0.0, sds[j, k], counts[j, k]) for j in range(J) for k in range(K)],
+                     columns=[FA, FB, "mean", "sd", "n"])
+    return fit_cells(cells_from_summary(t, factors=(FA, FB)))
+
+
+def _simulated_level(counts, sds, B=20000, seed=1):
+    """Rejection rate at 5% of the classical interaction F under H0 with these true cell SDs, in batch
+    from cell means and SS (SS_AB = (C m)' (C D C')^-1 (C m), common practice)."""
+    from audit.core import type3_contrasts
+
+    counts = np.asarray(counts)
+    J, K = counts.shape
+    n = counts.ravel().astype(float)
+    sd = np.asarray(sds, float).ravel()
+    C = type3_contrasts(J, K)["AB"]
+    Minv = np.linalg.inv((C / n) @ C.T)
+    df2 = n.sum() - n.size
+    rng = np.random.default_rng(seed)
+    means = rng.normal(0.0, sd / np.sqrt(n), (B, n.size))
+    css = sd**2 * rng.chisquare(n - 1, (B, n.size))
+    Cm = means @ C.T
+    F = np.einsum("bi,ij,bj->b", Cm, Minv, Cm) / C.shape[0] / (css.sum(1) / df2)
+    return float(np.mean(stats.f.sf(F, C.shape[0], df2) < 0.05))
+
+
+@pytest.mark.parametrize("counts,sds", [
+    ([[6, 30, 6], [30, 6, 30]], [[4, 1, 4], [1, 4, 1]]),    # large variances in small cells
+    ([[6, 30, 6], [30, 6, 30]], [[2, 1, 2], [1, 2, 1]]),
+    ([[10] * 4] * 3, [[1, 2, 3, 4], [1, 1, 1, 1], [4, 3, 2, 1]]),  # balanced, unequal variances
+    ([[3, 10], [10, 3]], [[3, 1], [1, 3]]),
+])
+def test_box_level_equals_simulated_level(counts, sds):
+    # reference: seeded Monte Carlo of the classical F under H0 (20,000 datasets), against the Box (1954)
+    # two-moment approximation with the true variances; agreement within 0.015
+    from audit.diagnostics.assumptions import _box_level
+
+    lv = _box_level(_summary_fit(counts, sds))["level"]
+    assert abs(lv - _simulated_level(counts, sds)) < 0.015
+
+
+def test_box_level_is_alpha_with_equal_variances():
+    # common practice: with equal variances the classical F is exact, so the approximation returns alpha
+    from audit.diagnostics.assumptions import _box_level
+
+    bl = _box_level(_summary_fit([[6, 30, 6], [30, 6, 30]], np.ones((2, 3))))
+    assert_allclose(bl["level"], 0.05, rtol=1e-10)
+    assert_allclose(bl["bias_ratio"], 1.0, rtol=1e-12)
+
+
+def test_large_variances_in_small_cells_2x3_not_ok():
+    # a 2 x 3 design whose two small cells hold the large variances (SD 2 vs 1, n 5 vs 25): the classical
+    # interaction F runs at about twice its level (simulated 0.11 here), so at least a warning
+    counts, sds = [[5, 25, 25], [25, 5, 25]], [[2, 1, 1], [1, 2, 1]]
+    sim = _simulated_level(counts, sds)  # reference: seeded Monte Carlo
+    d = homogeneity(_summary_fit(counts, sds))
+    assert sim > 0.08
+    assert d.severity in ("warning", "serious") and "liberal" in d.summary
+    assert "do not bias" not in d.summary and "unaffected" not in d.summary
+
+
+def test_homogeneity_sentence_never_contradicts_grade():
+    # property (invented data): the reassuring sentences appear only with an "ok" grade
+    rng = np.random.default_rng(21)
+    for _ in range(40):
+        counts = rng.integers(3, 30, (2, 3))
+        sds = np.exp(rng.normal(0, 0.6, (2, 3)))
+        d = homogeneity(_summary_fit(counts, sds))
+        if d.severity != "ok":
+            assert "do not bias" not in d.summary and "unaffected" not in d.summary
+            assert "no concern" not in d.summary
+        assert d.values["grade"]["basis"] in ("level", "sd_ratio", "zero_spread")
+
+
+def test_grade_is_separate_from_wording():
+    from audit.diagnostics.assumptions import HomogeneityGrade, grade_homogeneity
+
+    kw = dict(r_sd=1.2, r_n=1.0, pairing="not applicable", level_null=(0.049, 0.056), alpha=0.05, null95=2.0,
+              bf_p=0.5, bartlett_p=0.6, bartlett_kind="kurtosis-adjusted")
+    assert grade_homogeneity(level=0.05, **kw) == HomogeneityGrade(severity="ok", basis="level", band="nominal",
+                                                                   chance=True, tests=())
+    # a test detecting unequal variances lifts an otherwise clean grade to a note (supporting evidence)
+    g = grade_homogeneity(level=0.05, **{**kw, "bf_p": 0.01})
+    assert g.severity == "note" and g.tests == ("Brown-Forsythe",)
+    # size beyond what equal variances give: graded by Bradley's (1978) bounds on the estimated level
+    assert grade_homogeneity(level=0.11, **kw).severity == "serious"
+    assert grade_homogeneity(level=0.08, **kw).severity == "warning"
+    assert grade_homogeneity(level=0.02, **kw).severity == "warning"
+    assert grade_homogeneity(level=0.06, **kw).severity == "note"
+
+
+def test_bartlett_kurtosis_adjustment_by_simulation():
+    # reference: seeded Monte Carlo with scipy.stats.bartlett; equal variances, 6 cells of 20.  Laplace
+    # errors (excess kurtosis 3) make the plain test reject far above 5% (Box 1953); the adjusted
+    # statistic rejects markedly less, normal errors stay near 5% either way
+    from audit.diagnostics.assumptions import bartlett_kurtosis_adjusted
+
+    rng = np.random.default_rng(4)
+    R, k, n = 600, 6, 20
+    rates = {}
+    for dist in ("normal", "laplace"):
+        y = rng.normal(size=(R, k, n)) if dist == "normal" else rng.laplace(size=(R, k, n))
+        s2 = y.var(axis=2, ddof=1)
+        sp = s2.mean(axis=1)
+        # Bartlett (1937) in batch, equal n; replicate 0 checked against scipy.stats.bartlett
+        T = ((k * (n - 1)) * np.log(sp) - (n - 1) * np.log(s2).sum(axis=1)) / (1 + (k / (n - 1) - 1 / (k * (n - 1)))
+                                                                            / (3 * (k - 1)))
+        assert_allclose(T[0], stats.bartlett(*y[0]).statistic, rtol=1e-12)
+        e = (y - y.mean(axis=2, keepdims=True)).reshape(R, -1)
+        s2_obs = np.repeat(s2, n, axis=1)
+        n_obs = np.full(k * n, float(n))
+        p_adj = np.array([bartlett_kurtosis_adjusted(T[i], k - 1, e[i], n_obs, s2_obs[i])["p"] for i in range(R)])
+        rates[dist] = (float(np.mean(stats.chi2.sf(T, k - 1) < 0.05)), float(np.mean(p_adj < 0.05)))
+    assert rates["laplace"][0] > 0.25 and rates["laplace"][1] < 0.6 * rates["laplace"][0], rates
+    assert 0.02 < rates["normal"][1] < 0.09, rates
+
+
+def test_summary_mode_bartlett_is_supporting_evidence_only():
+    # equal n, SDs 1.0-1.3 (size small): Bartlett cannot lift the grade beyond a note
+    fit = _summary_fit([[40, 40], [40, 40]], [[1.0, 1.3], [1.3, 1.0]])
+    d = homogeneity(fit)
+    assert d.values["bartlett_adjusted"] is None and d.severity in ("ok", "note")
+    assert "assumes normal cells" in d.summary

@@ -273,3 +273,58 @@ def test_tiny_design_reports_none_not_nan():
     assert outliers(fit).severity == "note"
     for x in (d, f, outliers(fit)):
         _json_ok(x)
+
+
+# ------------------------------------------------- outliers judged within their own cell
+
+def _wide_cell_frame(shift_in_wide, shift_in_narrow=0.0, seed=4):
+    """Invented: fruit set (%) of a pollination trial, 2 x 2 cells of 20; one cell (open, hand) has an SD
+    of 6, the others 1.  A value 2.6 cell SDs out in the wide cell is genuine there but far out against
+    the pooled SD."""
+    rng = np.random.default_rng(seed)
+    recs = []
+    for a in ("bagged", "open"):
+        for b in ("none", "hand"):
+            sd = 6.0 if (a, b) == ("open", "hand") else 1.0
+            z = rng.normal(size=20)
+            z = (z - z.mean()) / z.std(ddof=1)
+            for v in 40.0 + sd * z:
+                recs.append((a, b, float(v)))
+    frame = pd.DataFrame(recs, columns=["bagging", "hand_pollination", "fruit_set"])
+    wide = int(np.flatnonzero((frame.bagging == "open") & (frame.hand_pollination == "hand"))[0])
+    narrow = int(np.flatnonzero((frame.bagging == "bagged") & (frame.hand_pollination == "none"))[0])
+    frame.loc[wide, "fruit_set"] = 40.0 + shift_in_wide
+    frame.loc[narrow, "fruit_set"] = frame.loc[narrow, "fruit_set"] + shift_in_narrow
+    return frame, wide, narrow
+
+
+def _within_cell_t(frame, row):
+    # reference: statsmodels OLSInfluence.resid_studentized_external of an intercept-only model on the
+    # row's own cell (its studentized deleted residual against the cell's SD without it)
+    a, b = frame.loc[row, "bagging"], frame.loc[row, "hand_pollination"]
+    sub = frame[(frame.bagging == a) & (frame.hand_pollination == b)]
+    model = smf.ols("fruit_set ~ 1", data=sub).fit()
+    return float(np.asarray(OLSInfluence(model).resid_studentized_external)[list(sub.index).index(row)])
+
+
+def test_outlier_of_a_wide_cell_is_explained_by_its_own_spread():
+    frame, wide, _ = _wide_cell_frame(shift_in_wide=16.0)
+    d = outliers(_fit(frame, response="fruit_set", factors=("bagging", "hand_pollination")))
+    fl = {f["row"]: f for f in d.values["flagged"]}
+    assert wide in fl and len(fl) == 1
+    f = fl[wide]
+    assert_allclose(f["within_cell_t"], _within_cell_t(frame, wide), rtol=1e-9)
+    # reference: scipy.stats.t.isf, Bonferroni over N on the cell's n - 2 df
+    assert_allclose(f["within_cell_cutoff"], stats.t.isf(0.05 / (2 * len(frame)), 20 - 2), rtol=1e-12)
+    assert f["explained_by_cell"] is True and f["cell_sd_ratio"] > 1.5
+    assert "its cell's own spread explains it" in d.summary and d.severity == "note"
+    _json_ok(d)
+
+
+def test_outlier_extreme_in_its_own_cell_still_warns():
+    frame, wide, narrow = _wide_cell_frame(shift_in_wide=0.0, shift_in_narrow=12.0)
+    d = outliers(_fit(frame, response="fruit_set", factors=("bagging", "hand_pollination")))
+    fl = {f["row"]: f for f in d.values["flagged"]}
+    assert narrow in fl and fl[narrow]["explained_by_cell"] is False
+    assert_allclose(fl[narrow]["within_cell_t"], _within_cell_t(frame, narrow), rtol=1e-9)
+    assert d.severity == "warning" and f"row {narrow} stands out within its own cell too" in d.summary

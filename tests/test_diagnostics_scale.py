@@ -220,3 +220,27 @@ def test_boxcox_without_interior_maximum_is_a_note():
     assert "not determined" in d.summary and d.values["removable"] is False
     assert_allclose(d.values["log_p"], _ref_ab_p(frame, np.log(frame.volume.to_numpy())), rtol=1e-9)
     _json_ok(d)
+
+
+def test_scale_sentence_names_each_lambda():
+    # log-normal data with multiplicative main effects (as above): the sentence must say which lambda is
+    # the maximum-likelihood lambda-hat, which are the interval ends, and at which lambda the decision
+    # changes, with that lambda's p equal to a statsmodels refit on the transformed response
+    means = np.log([[20.0, 40.0, 60.0], [40.0, 80.0, 120.0], [80.0, 160.0, 240.0]])
+    frame = _frame(means, 30, 0.15, seed=8, log_scale=True)
+    d = scale(_fit(frame))
+    v = d.values
+    lo, hi = v["lambda_ci"]
+    at = v["decision_changes_at"]
+    assert at is not None and lo - 1e-12 <= at <= hi + 1e-12
+    # it is the checked lambda nearest to 1 among those that change the decision
+    assert at == min(v["removable_at"], key=lambda t: abs(t - 1.0))
+    y = frame.volume.to_numpy()
+    # reference: statsmodels anova on scipy.special.boxcox(y, lambda)
+    assert_allclose(v["decision_changes_p"], _ref_ab_p(frame, special.boxcox(y, at)), rtol=1e-8)
+    s = d.summary
+    assert f"lambda-hat = {v['lambda_hat']:.2f}" in s
+    assert f"95% profile interval [{lo:.2f}, {hi:.2f}] around lambda-hat" in s
+    assert f"not at lambda = {at:.2f}" in s and "at which the decision changes" in s
+    assert "raw scale (lambda = 1, p = " in s and "log scale (lambda = 0): p = " in s
+    _json_ok(d)

@@ -187,8 +187,8 @@ def test_missing_values_in_a_dataframe_are_counted():
     obs = load(f, response="honey_kg", factors=("hive", "site"))
     assert obs.dropped.total == 2
     assert obs.dropped.missing_factor == 1
-    assert sorted(obs.dropped.rows) == [2, 5]  # positions in the frame
-    assert obs.row_kind == "position"
+    assert sorted(obs.dropped.rows) == [2, 5]  # index labels (a default index: positions)
+    assert obs.row_kind == "index"
 
 
 # --- the input file is never modified ---------------------------------------------------

@@ -28,38 +28,23 @@ Sanders 1972).
 missingness (rows dropped at intake for a missing response, per cell):
 
 ================================================================ ========= ===============
-condition                                                        severity  source
-================================================================ ========= ===============
-nothing dropped                                                  ok        -
-rows dropped, loss does not differ across cells (p >= 0.05) and  note      common practice
-overall loss <= 20%
-loss differs (p < 0.05), or overall loss > 20%, or rows with a   warning   common practice
-missing factor
-loss differs (p < 0.05) and the per-cell loss rates span more    serious   common practice
-than 20 percentage points
-================================================================ ========= ===============
-
-The loss test is Pearson's chi-square on the 2 x m table of kept vs dropped
-rows per cell, without continuity correction (scipy.stats.chi2_contingency,
-correction=False); Cochran's (1954) rule (every expected count >= 1 and at most
-20% below 5) is checked and reported.
-
-independence: cannot be verified from the data (design matter: randomisation,
-one observation per experimental unit).
-
-============================================================ ========= ===============
 condition                                                    severity  source
 ============================================================ ========= ===============
 a unit column with some unit observed more than once         serious   Hurlbert 1984
                                                                        (pseudo-
                                                                        replication)
-run order given: runs test p < 0.05 or |lag-1 r| >= 0.2      warning   common practice
-run order given: |lag-1 r| >= 0.5                            serious   common practice
-exact duplicate rows with a continuous-looking response      warning   common practice
-(distinct values >= half of N)
-exact duplicate rows otherwise (discrete scales repeat)      note      common practice
+run order: lag-1 r >= 0.5 (strong drift/clustering)          serious   common practice
+run order: lag-1 r >= 0.2, or runs test p < 0.05 with too    warning   common practice
+few runs (drift or clustering)
+run order: lag-1 r <= -0.5, or r <= -0.2 confirmed by the    warning   our choice
+runs test (too many runs) or by lag-1 p < 0.05 (alternation)
+run order: r <= -0.2 unconfirmed, or too many runs with      note      our choice
+|r| < 0.2 (possible alternation, not drift)
+repeated values within cells far beyond what the recording   warning   our choice
+resolution and the cell spreads give (rule below)
 no order and no unit column                                  note      -
-order/unit given and nothing found                           ok        -
+order/unit given and nothing found (said explicitly, e.g.    ok        -
+"each unit contributes exactly one row")
 ============================================================ ========= ===============
 
 Runs test: Wald & Wolfowitz (1940) on residuals above / below their median in
@@ -67,26 +52,59 @@ run order (values equal to the median left out), normal approximation without
 continuity correction.  Durbin-Watson (1950) d = sum (e_t - e_{t-1})^2 /
 sum e_t^2, reported with the lag-1 autocorrelation r1 = sum e_t e_{t-1} / sum
 e_t^2 and its approximate p from r1 sqrt(N) ~ N(0, 1) (Box & Jenkins, large
-sample; common practice).
+sample; common practice).  A positive r1 (neighbours alike) is called drift or
+clustering; a negative r1 (neighbours on opposite sides) is called alternation,
+never drift.  Alternation is graded one step milder unless the runs test or the
+lag-1 test confirms it (our choice): slow drift is the usual failure (instrument
+drift, fatigue, learning) and confounds with factors run in blocks, while a
+randomised run order averages a run-to-run alternation out of the cell means;
+alternation points to conditions used in turn (two instruments, operators).
+
+Repeated values (possible double entry).  Data recorded to whole units or to
+0.1 repeat values by chance, so repeats are judged against the recording
+resolution (common practice: the resolution is the unit the values were
+recorded in), found by :func:`recording_resolution`: the step of the decimal
+grid the values sit on (fewest decimals <= 6, times the gcd of the gaps), else
+the smallest gap between distinct values when fewer than half are distinct,
+else 0 (full-precision values: a repeat is never expected).  The expected
+number of repeats (n - distinct values, per cell, summed) is computed for
+normal cells with the cell's mean and SD (Sheppard's correction s^2 - step^2/12)
+recorded on that grid (exact bin probabilities; the continuous limit when
+SD / step > 500).  Repeats are suspicious when P(Poisson(2 x expected) >=
+observed) < 0.001 (our choice: the factor 2 covers skewed and peaked cells,
+which repeat more often than normal ones - an exponential cell about 1.8 times
+as often - and the small p leaves room for values heaped on round numbers).
+Repeats within the expectation are mentioned, not graded.  R's warpbreaks
+(integer counts) and ToothGrowth (lengths to 0.1) each hold 5 repeats against
+about 6.3 and 2.3 expected: no warning.
 """
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 from scipy import stats
 
-from ..design import balance_class, is_connected
+from ..design import balance_class, cell_moments, is_connected
 from ..fit import Fit
 from ..results import Diagnostic
-from .assumptions import NEEDS_DATA, _cell_labels, _num
+from .assumptions import NEEDS_DATA, _cell_labels, _num, _worse
 
-__all__ = ["balance", "missingness", "independence", "runs_test", "durbin_watson"]
+__all__ = ["balance", "missingness", "independence", "runs_test", "durbin_watson", "recording_resolution",
+           "repeated_values"]
 
 SMALL_CELL = 5
 RATIO_LIMIT = 4.0
 LOSS_SPAN = 0.20
 LOSS_OVERALL = 0.20
 LAG1_WARN, LAG1_SERIOUS = 0.2, 0.5
+#: repeated values are judged against DUP_SAFETY times the normal-model
+#: expectation (other shapes tie more often: our choice, see module notes)
+DUP_SAFETY = 2.0
+#: ... and called suspicious when P(Poisson(DUP_SAFETY * expected) >= observed) < DUP_P (our choice)
+DUP_P = 0.001
+RESOLUTION_MAX_DECIMALS = 6
 INDEPENDENCE_CAVEAT = ("Independence of observations cannot be verified from the data; it rests on the design "
                        "(randomisation, one observation per experimental unit).")
 
@@ -285,13 +303,154 @@ def durbin_watson(e: np.ndarray) -> dict:
     return {"statistic": d, "lag1_r": r1, "lag1_p": p}
 
 
+def recording_resolution(y: np.ndarray) -> tuple[float, str]:
+    """The step to which the response was recorded, and how it was found.
+
+    1. Decimal grid: the fewest decimals d <= 6 for which every value is
+       exactly a multiple of 10^-d (x == round(x 10^d) / 10^d in floating point,
+       which holds for every value parsed from text with d decimals); the step
+       is 10^-d times the greatest common divisor of the gaps between the
+       sorted distinct values (so counts in steps of 2, or halves, are found).
+    2. Otherwise the values carry more digits than recorded data do (computed
+       values): when fewer than half of them are distinct they still sit on a
+       few points (a transformed discrete scale) and the step is the smallest
+       positive gap between sorted distinct values; else 0 (continuous: exact
+       repeats are not expected).
+    Returns (step, basis sentence).  Common practice: a measurement's
+    resolution is the unit it was recorded in.
+    """
+    y = np.asarray(y, dtype=float)
+    u = np.unique(y)
+    if u.size < 2:
+        return 0.0, "the response is constant"
+    for d in range(0, RESOLUTION_MAX_DECIMALS + 1):
+        scale = 10.0 ** d
+        k = np.round(u * scale)
+        if np.max(np.abs(k)) >= 2.0 ** 52:
+            break
+        if np.array_equal(k / scale, u):
+            step = float(np.gcd.reduce(np.diff(k).astype(np.int64))) / scale
+            return step, f"values recorded in steps of {step:g}"
+    if u.size < 0.5 * y.size:
+        step = float(np.min(np.diff(u)))
+        return step, (f"values sit on {u.size} distinct points; smallest gap between them {step:.4g}")
+    return 0.0, "values carry full precision (no recording grid found): exact repeats are not expected"
+
+
+def _expected_repeats(n: int, mean: float, sd: float, step: float, origin: float) -> float:
+    """Expected number of repeated values (n - distinct values) among n draws
+    from a normal distribution (mean, sd) recorded on the grid origin + k step.
+
+    Exact bin probabilities while sd / step <= 500; beyond, the continuous
+    limit E[distinct] = (sd / step) * integral (1 - exp(-n (step / sd) phi(z))) dz.
+    """
+    if n < 2 or step <= 0.0:
+        return 0.0
+    if sd <= 0.0:
+        return float(n - 1)
+    ratio = sd / step
+    if ratio <= 500.0:
+        k0 = math.floor((mean - 8.0 * sd - origin) / step) - 1
+        k1 = math.ceil((mean + 8.0 * sd - origin) / step) + 1
+        edges = origin + (np.arange(k0, k1 + 2) - 0.5) * step
+        p = np.diff(stats.norm.cdf((edges - mean) / sd))
+        distinct = float(np.sum(-np.expm1(n * np.log1p(-np.minimum(p, 1.0 - 1e-16)))))
+    else:
+        z = np.linspace(-8.0, 8.0, 4001)
+        f = -np.expm1(-n * stats.norm.pdf(z) / ratio)
+        distinct = ratio * float(np.sum((f[1:] + f[:-1]) * 0.5) * (z[1] - z[0]))
+    return max(float(n) - distinct, 0.0)
+
+
+def repeated_values(y: np.ndarray, cell: np.ndarray, counts: np.ndarray, y_original: np.ndarray | None = None) -> dict:
+    """Repeated response values within cells against what the recording
+    resolution and the cell spreads make likely (module notes).
+
+    Returns {duplicate_rows, expected, p, resolution, resolution_basis,
+    suspicious}.  ``p`` = P(Poisson(2 * expected) >= duplicate_rows).  When
+    ``y`` (centred) shows no grid, the resolution is sought in ``y_original``.
+    """
+    y = np.asarray(y, dtype=float)
+    cell = np.asarray(cell)
+    order = np.lexsort((y, cell))
+    ys, cs = y[order], cell[order]
+    dup = int(np.count_nonzero((cs[1:] == cs[:-1]) & (ys[1:] == ys[:-1]))) if y.size > 1 else 0
+    step, basis = recording_resolution(y)
+    if step == 0.0 and y_original is not None:
+        # a response centred in floating point at intake loses its decimal grid; the original keeps it
+        step, basis = recording_resolution(y_original)
+    JK = counts.size
+    n, mean, css = cell_moments(y, cell, JK)
+    origin = float(y.min()) if y.size else 0.0
+    expected = 0.0
+    for c in np.flatnonzero(n >= 2):
+        s2 = css[c] / (n[c] - 1.0)
+        # Sheppard's correction: rounding to a step adds step^2 / 12 to the variance (common practice)
+        sd = math.sqrt(max(s2 - step * step / 12.0, (step / 4.0) ** 2)) if step > 0 else math.sqrt(s2)
+        if s2 <= 0.0:
+            sd = 0.0
+        expected += _expected_repeats(int(n[c]), float(mean[c]), sd, step, origin)
+    if dup == 0:
+        p = 1.0
+    elif expected <= 0.0:
+        p = 0.0
+    else:
+        p = float(stats.poisson.sf(dup - 1, DUP_SAFETY * expected))
+    return {"duplicate_rows": dup, "expected": expected, "p": p, "resolution": step,
+            "resolution_basis": basis, "suspicious": bool(dup > 0 and p < DUP_P)}
+
+
+def _serial(rt: dict, dw: dict) -> tuple[str, str | None, str | None]:
+    """Grade serial dependence in run order: (severity, kind, sentence).
+
+    kind: 'drift' (positive lag-1 correlation or too few runs: neighbouring
+    residuals alike), 'alternation' (negative lag-1 correlation or too many
+    runs: neighbours tend to lie on opposite sides), or None.
+    """
+    r1 = dw.get("lag1_r")
+    rp, rz = rt.get("p"), rt.get("z")
+    runs_sig = rp is not None and rp < 0.05
+    few_runs = runs_sig and rz is not None and rz < 0
+    many_runs = runs_sig and rz is not None and rz > 0
+    lag_sig = dw.get("lag1_p") is not None and dw["lag1_p"] < 0.05
+    dws = f", Durbin-Watson {dw['statistic']:.2f}" if dw.get("statistic") is not None else ""
+    rtxt = f"runs test p = {rp:.3g}" if rp is not None else "runs test not available"
+    r1txt = f"lag-1 r = {r1:.2f}" if r1 is not None else "lag-1 r not available"
+    if r1 is not None and r1 >= LAG1_SERIOUS:
+        return "serious", "drift", (f"strong positive serial correlation in run order: neighbouring residuals "
+                                    f"are alike, as with drift or clustering ({r1txt}{dws}, {rtxt})")
+    if (r1 is not None and r1 >= LAG1_WARN) or few_runs:
+        return "warning", "drift", (f"residuals drift or cluster in run order: neighbours are alike "
+                                    f"({rtxt}, {r1txt}{dws})")
+    if r1 is not None and r1 <= -LAG1_SERIOUS:
+        return "warning", "alternation", (f"strong negative serial correlation in run order: residuals "
+                                          f"alternate from run to run ({r1txt}{dws}, {rtxt}); look for "
+                                          "conditions used in turn (two instruments, operators or batches)")
+    if r1 is not None and r1 <= -LAG1_WARN and (many_runs or lag_sig):
+        return "warning", "alternation", (f"residuals alternate in run order (negative serial correlation: "
+                                          f"{r1txt}, lag-1 p = {dw['lag1_p']:.3g}{dws}, {rtxt}); look for "
+                                          "conditions used in turn")
+    if r1 is not None and r1 <= -LAG1_WARN:
+        return "note", "alternation", (f"negative serial correlation in run order ({r1txt}, lag-1 p = "
+                                       f"{dw['lag1_p']:.3g}{dws}) that the runs test does not confirm ({rtxt}): "
+                                       "residuals may alternate from run to run")
+    if many_runs:
+        return "note", "alternation", (f"more runs above/below the median than chance gives ({rtxt}, {r1txt}): "
+                                       "residuals may alternate from run to run")
+    return "ok", None, None
+
+
 def independence(fit: Fit) -> Diagnostic:
     """What can and cannot be said about independence of the observations.
 
     values keys: caveat, order_column, unit_column, runs {runs, n_above,
     n_below, expected, z, p} or None, durbin_watson {statistic, lag1_r,
-    lag1_p} or None, units, repeated_units, rows_in_repeated_units,
-    max_rows_per_unit, duplicate_rows, distinct_response_share.
+    lag1_p} or None, serial_pattern ('drift' | 'alternation' | None), units,
+    repeated_units, rows_in_repeated_units, max_rows_per_unit, units_passed
+    (True when a unit column was given and each unit has one row; None
+    without one), duplicate_rows (repeated response values within cells),
+    duplicates_expected, duplicates_p, duplicates_suspicious, resolution,
+    resolution_basis, distinct_response_share.
     """
     v: dict = {"caveat": INDEPENDENCE_CAVEAT}
     if fit.obs is None:
@@ -304,8 +463,12 @@ def independence(fit: Fit) -> Diagnostic:
     v["unit_column"] = obs.unit_name
     sev = "ok"
     findings: list[str] = []
+    passed: list[str] = []
+    infos: list[str] = []
     checked: list[str] = []
     v["runs"] = v["durbin_watson"] = None
+    v["serial_pattern"] = None
+    v["units_passed"] = None
     if obs.order is not None:
         idx = np.argsort(obs.order, kind="stable")
         e = fit.resid_full[idx]
@@ -315,16 +478,13 @@ def independence(fit: Fit) -> Diagnostic:
         dw = durbin_watson(e)
         v["runs"], v["durbin_watson"] = rt, dw
         checked.append(f"run order ({obs.order_name})")
-        r1 = dw.get("lag1_r")
-        if r1 is not None and abs(r1) >= LAG1_SERIOUS:
-            sev = "serious"
-            findings.append(f"strong serial correlation in run order (lag-1 r = {r1:.2f}, Durbin-Watson "
-                            f"{dw['statistic']:.2f})")
-        elif (rt.get("p") is not None and rt["p"] < 0.05) or (r1 is not None and abs(r1) >= LAG1_WARN):
-            sev = "warning"
-            findings.append(f"residuals drift with run order (runs test p = {rt['p']:.3g}, lag-1 r = "
-                            f"{r1:.2f}, Durbin-Watson {dw['statistic']:.2f})" if rt.get("p") is not None and
-                            r1 is not None else "residuals drift with run order")
+        s_sev, kind, sentence = _serial(rt, dw)
+        v["serial_pattern"] = kind
+        if sentence:
+            sev = _worse(sev, s_sev)
+            findings.append(sentence)
+        else:
+            passed.append(f"no drift or alternation in run order ({obs.order_name})")
     if obs.unit is not None:
         cnt = np.bincount(obs.unit)
         rep = cnt > 1
@@ -332,32 +492,44 @@ def independence(fit: Fit) -> Diagnostic:
         v["repeated_units"] = int(rep.sum())
         v["rows_in_repeated_units"] = int(cnt[rep].sum())
         v["max_rows_per_unit"] = int(cnt.max())
+        v["units_passed"] = not bool(rep.any())
         checked.append(f"units ({obs.unit_name})")
         if rep.any():
             sev = "serious"
             findings.append(f"{int(rep.sum())} unit(s) of '{obs.unit_name}' contribute more than one row "
                             f"(up to {int(cnt.max())}): pseudo-replication, the interaction F treats "
                             "correlated rows as independent and its p-value is too small")
-    dup = int(obs.duplicate_rows)
-    v["duplicate_rows"] = dup
-    n = len(obs)
-    distinct = float(np.unique(obs.y).size / n) if n else 0.0
-    v["distinct_response_share"] = distinct
-    if dup:
-        if distinct >= 0.5:
-            sev = "warning" if sev in ("ok", "note") else sev
-            findings.append(f"{dup} exact duplicate row(s) with a continuous response: check for double entry")
         else:
-            sev = "note" if sev == "ok" else sev
-            findings.append(f"{dup} exact duplicate row(s) (common on a discrete response scale; check for "
-                            "double entry)")
+            passed.append(f"each of the {int(cnt.size)} units of '{obs.unit_name}' contributes exactly one row, "
+                          "so the data show no pseudo-replication as labelled")
+    n = len(obs)
+    rv = repeated_values(obs.y, obs.cell, fit.cells.counts.ravel(),
+                         obs.y_original if obs.offset else None)
+    v["duplicate_rows"] = rv["duplicate_rows"]
+    v["duplicates_expected"] = _num(rv["expected"])
+    v["duplicates_p"] = _num(rv["p"])
+    v["duplicates_suspicious"] = rv["suspicious"]
+    v["resolution"] = _num(rv["resolution"])
+    v["resolution_basis"] = rv["resolution_basis"]
+    v["distinct_response_share"] = float(np.unique(obs.y).size / n) if n else 0.0
+    dup = rv["duplicate_rows"]
+    if rv["suspicious"]:
+        sev = _worse(sev, "warning")
+        if rv["expected"] > 0:
+            findings.append(f"{dup} repeated value(s) within cells where about {rv['expected']:.1f} are expected "
+                            f"from the recording resolution and the cell spreads ({rv['resolution_basis']}; "
+                            f"p = {rv['p']:.2g}): check for rows entered twice or values heaped on round numbers")
+        else:
+            findings.append(f"{dup} exact duplicate row(s) although the {rv['resolution_basis']}: check for "
+                            "rows entered twice")
+    elif dup:
+        infos.append(f"{dup} repeated value(s) within cells are what the recording resolution gives "
+                     f"({rv['resolution_basis']}; about {rv['expected']:.1f} expected), not a sign of double entry")
     if not checked:
-        sev = "note" if sev == "ok" else sev
+        sev = _worse(sev, "note")
         head = "no run-order or unit column was given, so nothing about independence was tested"
-    elif not findings:
-        head = "no sign of dependence in " + " or ".join(checked)
     else:
         head = ""
-    body = "; ".join(x for x in (head, *findings) if x)
+    body = "; ".join(x for x in (head, *findings, *passed, *infos) if x)
     summary = f"Independence: {body}. {INDEPENDENCE_CAVEAT}"
     return Diagnostic(id="independence", severity=sev, summary=summary, values=v)

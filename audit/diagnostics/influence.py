@@ -35,7 +35,14 @@ outliers
     Residuals and Influence in Regression, sec. 2.2.3).  "warning": one or more
     beyond it (our choice: whether an outlier matters for the interaction is
     judged by ``influence`` and ``fragility``, so an outlier alone is never
-    "serious").  Cook's distance above 4/N is listed as common practice and does
+    "serious").  The pooled SD understates the spread of a high-variance cell,
+    so each flagged value is also judged within its own cell: its studentized
+    deleted residual against the cell's SD without it (n_c - 2 df), with the
+    same Bonferroni cut-off over N (the same test with the cell's own
+    variance; our choice).  When every flagged value is within that cut-off
+    ("its cell's own spread explains it") the severity is "note": the flags
+    point to unequal variances (see homogeneity), not to wrong values.  Cells
+    with n < 4 are too small to judge this way and keep the warning.  Cook's distance above 4/N is listed as common practice and does
     not change the severity (about 5% of any sample exceeds it).
 influence
     "serious": deleting a single observation flips the interaction decision at
@@ -249,6 +256,17 @@ def _ab_full(fit):
 # outliers
 # --------------------------------------------------------------------------
 
+#: a flagged value is judged against its own cell's spread only when the cell
+#: has at least this many observations (n - 2 >= 2 df for the SD without it)
+WITHIN_CELL_MIN_N = 4
+
+
+def _rows_txt(fl: list) -> str:
+    rows = [str(f["row"]) for f in fl[:5]]
+    more = ", ..." if len(fl) > 5 else ""
+    return ("row " if len(fl) == 1 else "rows ") + ", ".join(rows) + more
+
+
 def outliers(fit) -> Diagnostic:
     """Studentized deleted residuals (Bonferroni cut-off) and Cook's distance
     of the full cell-means model.
@@ -258,7 +276,10 @@ def outliers(fit) -> Diagnostic:
 
     values keys: ``available``, ``alpha``, ``N``, ``df``, ``cutoff`` (the
     Bonferroni critical |t|), ``n_flagged``, ``flagged`` (list of {row, cell, y,
-    t, p_bonferroni}, largest |t| first), ``max_abs_t``, ``max_abs_t_row``,
+    t, p_bonferroni, cell_n, cell_sd_ratio (cell SD / pooled SD), within_cell_t
+    (against the cell's own SD without the value, n_c - 2 df), within_cell_cutoff
+    (Bonferroni over N on those df), explained_by_cell (None when n_c < 4)},
+    largest |t| first), ``max_abs_t``, ``max_abs_t_row``,
     ``cooks_threshold`` (4/N), ``n_cooks_flagged``, ``cooks_flagged`` (up to
     100 rows, largest first), ``max_cooks``, ``max_cooks_row``,
     ``rows_without_residual`` (rows alone in their cell).
@@ -304,11 +325,32 @@ def outliers(fit) -> Diagnostic:
     p_bonf = np.minimum(1.0, N * p_two)
     fl_idx = np.flatnonzero(flag)
     fl_idx = fl_idx[np.argsort(-abs_t[fl_idx], kind="stable")]
-    flagged = [
-        {"row": int(rows[i]), "cell": _cell_names(fit, int(cell[i])), "y": float(obs.y_original[i]),
-         "t": _num(t[i]), "p_bonferroni": _num(p_bonf[i])}
-        for i in fl_idx[:_LIST_CAP]
-    ]
+    # within-cell view of each flagged value: its studentized deleted residual against its own cell's
+    # SD without it, t_c = d n / (n - 1) / (s_(-i) sqrt(n / (n - 1))), on n_c - 2 df, with the same
+    # Bonferroni cut-off over N (so it is "explained" when the cell's own spread makes it unremarkable)
+    n_c = cells.counts.ravel()[cell].astype(float)
+    css_c = cells.css.ravel()[cell]
+    flagged = []
+    for i in fl_idx[:_LIST_CAP]:
+        nc = int(n_c[i])
+        entry = {"row": int(rows[i]), "cell": _cell_names(fit, int(cell[i])), "y": float(obs.y_original[i]),
+                 "t": _num(t[i]), "p_bonferroni": _num(p_bonf[i]), "cell_n": nc,
+                 "cell_sd_ratio": None, "within_cell_t": None, "within_cell_cutoff": None,
+                 "explained_by_cell": None}
+        if nc >= WITHIN_CELL_MIN_N:
+            css_del = max(float(css_c[i]) - nc * e[i] ** 2 / (nc - 1.0), 0.0)
+            s_del = math.sqrt(css_del / (nc - 2.0))
+            dfc = nc - 2
+            cut_c = float(stats.t.isf(alpha / (2.0 * N), dfc))
+            if s_del > 0:
+                tc = e[i] * nc / (nc - 1.0) / (s_del * math.sqrt(nc / (nc - 1.0)))
+                entry["within_cell_t"] = _num(tc)
+                entry["explained_by_cell"] = bool(abs(tc) <= cut_c)
+            else:
+                entry["explained_by_cell"] = False
+            entry["within_cell_cutoff"] = cut_c
+            entry["cell_sd_ratio"] = _num(math.sqrt(float(css_c[i]) / (nc - 1.0)) / math.sqrt(mse))
+        flagged.append(entry)
     thr = 4.0 / N
     cflag = ok & (cook > thr)
     c_idx = np.flatnonzero(cflag)
@@ -322,11 +364,32 @@ def outliers(fit) -> Diagnostic:
         summ = (f"Outliers: no studentized deleted residual beyond the Bonferroni cut-off |t| > {cutoff:.2f} "
                 f"(alpha {alpha:g} over N = {N}); no single extreme value stands out from the cell-means model.")
     else:
-        sev = "warning"
+        explained = [f for f in flagged if f["explained_by_cell"]]
+        extreme = [f for f in flagged if f["explained_by_cell"] is False]
+        unjudged = [f for f in flagged if f["explained_by_cell"] is None]
+        all_explained = len(explained) == len(flagged) and nf <= _LIST_CAP
+        sev = "note" if all_explained else "warning"
         shown = ", ".join(str(f["row"]) for f in flagged[:5])
-        summ = (f"Outliers: {nf} observation(s) beyond the Bonferroni cut-off |t| > {cutoff:.2f} "
-                f"(row(s) {shown}{', ...' if nf > 5 else ''}); check them for entry errors and see the "
-                "influence and fragility checks for whether they carry the interaction result.")
+        summ = (f"Outliers: {nf} observation(s) beyond the Bonferroni cut-off |t| > {cutoff:.2f} against the "
+                f"pooled SD (row(s) {shown}{', ...' if nf > 5 else ''})")
+        parts = []
+        if explained:
+            f0 = explained[0]
+            parts.append(
+                f"{_rows_txt(explained)} {'is' if len(explained) == 1 else 'are'} not extreme within "
+                f"{'its' if len(explained) == 1 else 'their'} own cell: "
+                f"{'its cell' + chr(39) + 's own spread explains it' if len(explained) == 1 else 'their cells' + chr(39) + ' own spread explains them'} "
+                f"({'e.g. row ' + str(f0['row']) + ': ' if len(explained) > 1 else ''}within-cell t = {f0['within_cell_t']:.2f} against cut-off "
+                f"{f0['within_cell_cutoff']:.2f}; that cell's SD is {f0['cell_sd_ratio']:.1f} times the pooled "
+                "SD), which points to unequal variances (see homogeneity) rather than a wrong value")
+        if extreme:
+            parts.append(f"{_rows_txt(extreme)} {'stands' if len(extreme) == 1 else 'stand'} out within "
+                         f"{'its' if len(extreme) == 1 else 'their'} own cell too: check for entry errors")
+        if unjudged:
+            parts.append(f"{_rows_txt(unjudged)} {'sits' if len(unjudged) == 1 else 'sit'} in a cell too small "
+                         f"(n < {WITHIN_CELL_MIN_N}) to judge by its own spread: check for entry errors")
+        summ += "; " + "; ".join(parts) if parts else ""
+        summ += "; see the influence and fragility checks for whether they carry the interaction result."
     if rows_single:
         summ += (f" {len(rows_single)} observation(s) alone in their cell have leverage 1 and no residual, "
                  "so they cannot be checked this way.")

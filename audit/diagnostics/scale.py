@@ -301,7 +301,12 @@ def scale(fit) -> Diagnostic:
     on a grid, for the figure), ``loglik_max``, ``survives_log``,
     ``survives_boxcox`` (the raw decision at alpha is unchanged), ``removable``,
     ``removable_at`` (lambdas inside the interval where a raw-significant
-    interaction is not significant), ``checked_lambdas``.
+    interaction is not significant), ``checked_lambdas``, ``decision_changes_at``
+    (the checked lambda inside the interval nearest to 1 at which the decision
+    at alpha differs from the raw one; None if none) and ``decision_changes_p``.
+    The summary names each lambda: lambda = 1 (raw), lambda = 0 (log), the
+    maximum-likelihood lambda-hat, the interval ends, and the lambda at which
+    the decision changes.
     """
     alpha = fit.alpha
     ab = fit.anova.tables["II"].row("AB")
@@ -309,7 +314,8 @@ def scale(fit) -> Diagnostic:
     base = {"available": False, "alpha": alpha, "raw_p": raw_p, "log_p": None, "boxcox_p": None,
             "lambda_hat": None, "lambda_ci": [None, None], "lambda1_inside": None, "lambda0_inside": None,
             "profile_lambda": [], "profile_loglik": [], "loglik_max": None, "survives_log": None,
-            "survives_boxcox": None, "removable": False, "removable_at": [], "checked_lambdas": []}
+            "survives_boxcox": None, "removable": False, "removable_at": [], "checked_lambdas": [],
+            "decision_changes_at": None, "decision_changes_p": None}
     if fit.obs is None:
         r = "needs the raw observations (only cell summaries were given)"
         return Diagnostic(id="scale", severity="note",
@@ -378,32 +384,42 @@ def scale(fit) -> Diagnostic:
     pgrid = np.linspace(max(g_lo, -_LAMBDA_LIMIT), min(g_hi, _LAMBDA_LIMIT), 121)
     pll = prof.loglik(pgrid)
     ci_txt = f"[{_fmt_l(lo)}, {_fmt_l(hi)}]"
+    # the lambda inside the interval nearest to 1 (the least transformation) at which the decision changes
+    changes = [(t, p) for t, p in zip(checked, checked_p) if np.isfinite(p) and (p < alpha) != sig_raw]
+    change_at, change_p = min(changes, key=lambda tp: abs(tp[0] - 1.0)) if changes else (None, None)
+    hat = f"maximum-likelihood Box-Cox lambda-hat = {lam:.2f} (p = {_fmt_p(box_p)} there)"
+    interval = f"the 95% profile interval {ci_txt} around lambda-hat"
+    log = f"log scale (lambda = 0): p = {_fmt_p(log_p)}"
+    raw = f"raw scale (lambda = 1, p = {_fmt_p(raw_p)})"
     if removable:
         sev = "warning"
-        summ = (f"Scale: the interaction is significant on the raw scale (p {_fmt_p(raw_p)}) but not at "
-                f"lambda = {removable_at[0]:.2f}, inside the Box-Cox 95% interval {ci_txt} "
-                f"(log p {_fmt_p(log_p)}, Box-Cox lambda {lam:.2f} p {_fmt_p(box_p)}): it may be an "
-                "artefact of the measurement scale (removable), not a substantive interaction.")
+        summ = (f"Scale: the interaction is significant on the {raw} but not at lambda = {change_at:.2f} "
+                f"(p = {_fmt_p(change_p)}), the power nearest to 1 inside {interval} at which the decision "
+                f"changes; {hat}; {log}.  It may be an artefact of the measurement scale (removable), not a "
+                "substantive interaction.")
     elif not sig_raw and not lam1_in and masked_at:
         sev = "note"
-        summ = (f"Scale: not significant on the raw scale (p {_fmt_p(raw_p)}), but significant at "
-                f"lambda = {masked_at[0]:.2f} inside the Box-Cox interval {ci_txt}, which excludes 1: "
-                "the raw scale may be masking an interaction.")
+        summ = (f"Scale: the interaction is not significant on the {raw}, but significant at lambda = "
+                f"{change_at:.2f} (p = {_fmt_p(change_p)}), the power nearest to 1 inside {interval} at which the "
+                f"decision changes; that interval excludes lambda = 1; {hat}; {log}: the raw scale may be "
+                "masking an interaction.")
     elif not lam1_in:
         sev = "note"
-        summ = (f"Scale: the data favour a transformation (Box-Cox lambda {lam:.2f}, 95% interval {ci_txt} "
-                f"excludes 1), but the interaction decision at alpha {alpha:g} is the same on the raw scale "
-                f"(p {_fmt_p(raw_p)}), the log scale (p {_fmt_p(log_p)}) and at lambda-hat (p {_fmt_p(box_p)}).")
+        summ = (f"Scale: the data favour a transformation ({interval} excludes lambda = 1; {hat}), but the "
+                f"interaction decision at alpha {alpha:g} is the same on the {raw}, the {log} and at lambda-hat.")
     else:
         sev = "ok"
-        summ = (f"Scale: no transformation is needed (lambda = 1 lies inside the Box-Cox interval {ci_txt}) "
-                f"and the interaction decision holds on the log scale (p {_fmt_p(log_p)}) and at "
-                f"lambda-hat {lam:.2f} (p {_fmt_p(box_p)}).")
+        summ = (f"Scale: no transformation is needed (lambda = 1 lies inside {interval}; {hat}) and the "
+                f"interaction decision of the {raw} holds on the {log} and at lambda-hat.")
         if (log_p < alpha) != sig_raw or (box_p < alpha) != sig_raw:
             sev = "note"
-            summ = (f"Scale: lambda = 1 lies inside the Box-Cox interval {ci_txt}, but the interaction decision "
-                    f"changes under log (p {_fmt_p(log_p)}) or at lambda-hat {lam:.2f} (p {_fmt_p(box_p)}) "
-                    f"against raw p {_fmt_p(raw_p)}.")
+            which = []
+            if (log_p < alpha) != sig_raw:
+                which.append(f"on the {log}")
+            if (box_p < alpha) != sig_raw:
+                which.append(f"at the {hat}")
+            summ = (f"Scale: lambda = 1 lies inside {interval}, but the interaction decision of the {raw} "
+                    f"changes {' and '.join(which)}.")
     return Diagnostic(id="scale", severity=sev, summary=summ, values={
         "available": True,
         "alpha": alpha,
@@ -422,6 +438,8 @@ def scale(fit) -> Diagnostic:
         "removable": removable,
         "removable_at": removable_at,
         "checked_lambdas": [float(t) for t in checked],
+        "decision_changes_at": _num(change_at),
+        "decision_changes_p": _num(change_p),
     })
 
 

@@ -206,7 +206,8 @@ def _loo(fd: dict, outdir: str) -> str | None:
         ax.text(0.01, 0.93, "p-values below 1e-16 are drawn at 1e-16", transform=ax.transAxes, fontsize=8)
     ax.set_yscale("log")
     row_kind = d.get("row_kind") or fd["row_kind"]
-    kind = "line number in the input file" if row_kind == "line" else "0-based row position in the data frame"
+    kind = {"line": "line number in the input file", "index": "index label in the data frame"}.get(
+        row_kind, "0-based row position in the data frame")
     ax.set_xlabel(f"row left out ({kind})")
     ax.set_ylabel("interaction p-value without that row (log scale)")
     ax.set_title("Does any single observation decide the interaction test?\n"
