@@ -42,12 +42,17 @@ class HomogeneityFacts:
         'negative' (large variances in small cells: the classical F is
         liberal), 'positive' (large variances in large cells: conservative)
         or 'none'.
+    distorts_classical : bool
+        The unequal variances are large enough, given how they pair with the
+        cell sizes, to move the classical F's level well away from alpha
+        (graded warning or serious).
     """
 
     sd_ratio: float | None
     n_ratio: float | None
     unequal_variances: bool
     pairing: str
+    distorts_classical: bool
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -39,12 +39,16 @@ class Diagnostic:
         One plain sentence naming the consequence for the interaction test.
     values : dict
         The numbers behind it (JSON-serialisable; None, never NaN).
+    facts : object or None
+        The typed payload later stages read (a type from :mod:`audit.facts`);
+        not part of the JSON.
     """
 
     id: str
     severity: str
     summary: str
     values: dict = field(default_factory=dict)
+    facts: object = field(default=None, compare=False, repr=False)
 
     def __post_init__(self) -> None:
         if self.severity not in SEVERITIES:

@@ -129,6 +129,7 @@ from scipy import stats
 
 from ..design import pow2_scale
 from ..fit import Fit
+from ..facts import HomogeneityFacts, NormalityFacts
 from ..results import Diagnostic, json_float
 
 __all__ = [
@@ -342,7 +343,8 @@ def normality(fit: Fit) -> Diagnostic:
                 if clt else "the interaction F p-value may be off; compare with the robust and resampling methods of this audit")
     tail = "; with fewer than 20 residuals the tests have little power" if low_power else ""
     summary = f"Normality: {what} ({desc}): {cons}{tail}."
-    return Diagnostic(id="normality", severity=sev, summary=summary, values=v)
+    return Diagnostic(id="normality", severity=sev, summary=summary, values=v,
+                      facts=NormalityFacts(size_band=v.get("size_band")))
 
 
 # ---------------------------------------------------------------------------
@@ -797,5 +799,9 @@ def homogeneity(fit: Fit) -> Diagnostic:
                               alpha=fit.alpha, null95=null95, bf_p=bf_p, bartlett_p=bart_p, bartlett_kind=bart_kind)
     v["within_chance"] = grade.chance
     v["grade"] = {"basis": grade.basis, "band": grade.band, "chance": grade.chance, "tests": list(grade.tests)}
+    facts = HomogeneityFacts(
+        sd_ratio=r_sd, n_ratio=r_n, unequal_variances=bool((not grade.chance) or grade.tests),
+        pairing=pairing if pairing in ("negative", "positive") else "none",
+        distorts_classical=grade.severity in ("warning", "serious") and grade.basis != "zero_spread")
     return Diagnostic(id="homogeneity", severity=grade.severity, summary=word_homogeneity(grade, v, fit.alpha),
-                      values=v)
+                      values=v, facts=facts)

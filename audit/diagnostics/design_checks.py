@@ -88,6 +88,7 @@ from scipy import stats
 
 from ..design import balance_class, cell_moments, is_connected
 from ..fit import Fit
+from ..facts import BalanceFacts, IndependenceFacts
 from ..results import Diagnostic
 from .assumptions import NEEDS_DATA, _cell_labels, _num, _worse
 
@@ -175,7 +176,10 @@ def balance(fit: Fit) -> Diagnostic:
         sev = "ok"
         cons = ss
     summary = f"Balance ({cls}, {c.N} observations in {c.m} of {c.J * c.K} cells): {cons}."
-    return Diagnostic(id="balance", severity=sev, summary=summary, values=v)
+    filled = c.counts[c.counts > 0]
+    facts = BalanceFacts(min_n=int(filled.min()) if filled.size else 0, empty_cells=len(empty),
+                         single_cells=len(single))
+    return Diagnostic(id="balance", severity=sev, summary=summary, values=v, facts=facts)
 
 
 # ---------------------------------------------------------------------------
@@ -457,7 +461,8 @@ def independence(fit: Fit) -> Diagnostic:
         v["reason"] = NEEDS_DATA
         return Diagnostic(id="independence", severity="note",
                           summary=f"Independence: run order and units {NEEDS_DATA}. " + INDEPENDENCE_CAVEAT,
-                          values=v)
+                          values=v, facts=IndependenceFacts(checked=False, pseudo_replication=False,
+                                                            serial_dependence=False))
     obs = fit.obs
     v["order_column"] = obs.order_name
     v["unit_column"] = obs.unit_name
@@ -532,4 +537,6 @@ def independence(fit: Fit) -> Diagnostic:
         head = ""
     body = "; ".join(x for x in (head, *findings, *passed, *infos) if x)
     summary = f"Independence: {body}. {INDEPENDENCE_CAVEAT}"
-    return Diagnostic(id="independence", severity=sev, summary=summary, values=v)
+    facts = IndependenceFacts(checked=bool(checked), pseudo_replication=v["units_passed"] is False,
+                              serial_dependence=v["serial_pattern"] is not None)
+    return Diagnostic(id="independence", severity=sev, summary=summary, values=v, facts=facts)

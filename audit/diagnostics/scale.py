@@ -52,6 +52,7 @@ import math
 import numpy as np
 from scipy import optimize, stats
 
+from ..facts import ScaleFacts, ShapeFacts
 from ..results import Diagnostic
 from ..core import additive_design
 from .influence import _fmt_p, _num, cell_sums, interaction_test
@@ -180,7 +181,7 @@ def shape(fit) -> Diagnostic:
     if p is None:
         summ += " The interaction test itself could not be formed, so the shape is descriptive."
     disp = cells.display_means
-    return Diagnostic(id="shape", severity=sev, summary=summ, values={
+    return Diagnostic(id="shape", severity=sev, summary=summ, facts=ShapeFacts(shape=kind if sig else "none"), values={
         "shape": kind,
         "a_lines_across_b": o_ab,
         "b_lines_across_a": o_ba,
@@ -420,7 +421,8 @@ def scale(fit) -> Diagnostic:
                 which.append(f"at the {hat}")
             summ = (f"Scale: lambda = 1 lies inside {interval}, but the interaction decision of the {raw} "
                     f"changes {' and '.join(which)}.")
-    return Diagnostic(id="scale", severity=sev, summary=summ, values={
+    facts = ScaleFacts(removable=bool(removable), lambda_hat=_num(lam), log_p=_num(log_p), boxcox_p=_num(box_p))
+    return Diagnostic(id="scale", severity=sev, summary=summ, facts=facts, values={
         "available": True,
         "alpha": alpha,
         "raw_p": float(raw_p),

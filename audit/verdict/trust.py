@@ -89,9 +89,9 @@ TRUST_RULES: tuple[TrustRule, ...] = (
               source="Long & Ervin 2000; Cribari-Neto 2004"),
     TrustRule(id="equal-variance-unequal-n", methods=("classical-f", "permutation-freedman-lane",
                                                       "permutation-ter-braak"),
-              when="variances differ beyond chance and cell sizes differ (ratio >= 1.5), or the SD ratio "
-                   "exceeds 3: the test is liberal when large variances sit in small cells and "
-                   "conservative in the reverse",
+              when="the homogeneity check grades the unequal variances warning or serious: given how they "
+                   "pair with the cell sizes they move the classical F's level well away from alpha (liberal "
+                   "when large variances sit in small cells, conservative in the reverse)",
               source="Box 1954; Glass, Peckham & Sanders 1972; Anderson & ter Braak 2003; METHODS.md 10a "
                      "(sizes .13-.29)"),
     TrustRule(id="art-unequal-variances", methods=("aligned-rank-transform",),
@@ -164,12 +164,8 @@ def _pct(x: float) -> str:
     return f"{100 * x:.0f}%" if x >= 0.1 else f"{100 * x:.1f}%"
 
 
-def _heteroscedastic_unequal(h) -> bool:
-    if h is None:
-        return False
-    big_ratio = h.sd_ratio is not None and math.isfinite(h.sd_ratio) and h.sd_ratio > 3.0
-    unequal_n = h.n_ratio is not None and h.n_ratio >= 1.5
-    return bool(h.unequal_variances and (unequal_n or big_ratio))
+def _distorts_classical(h) -> bool:
+    return bool(h is not None and h.distorts_classical)
 
 
 def _one(m, *, min_n: int, min_kept: int, unequal_n: bool, homog, indep, calib_row, alpha: float, self_check_ok) -> MethodTrust:
@@ -204,7 +200,7 @@ def _one(m, *, min_n: int, min_kept: int, unequal_n: bool, homog, indep, calib_r
                                       "each cell's spread and mean deviation")
     if mid in ("hc3-wald", "hc4-wald") and min_n <= 1:
         return no("hc-single", "a cell has a single observation, whose leverage is 1")
-    if mid in ("classical-f", "permutation-freedman-lane", "permutation-ter-braak") and _heteroscedastic_unequal(homog):
+    if mid in ("classical-f", "permutation-freedman-lane", "permutation-ter-braak") and _distorts_classical(homog):
         side = {"negative": "large variances sit in small cells (liberal)",
                 "positive": "large variances sit in large cells (conservative)"}.get(
             homog.pairing, "variances differ across cells of unequal size")
