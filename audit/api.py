@@ -18,7 +18,10 @@ from .fit import check_alpha, fit_cells, fit_observations
 from .intake import load
 from .results import Diagnostic
 
-__all__ = ["check", "check_summary"]
+__all__ = ["check", "check_summary", "MAX_CALIBRATION"]
+
+#: largest number of size-check replications accepted
+MAX_CALIBRATION = 100_000
 
 
 def _provenance(source_path: str | None, sha256: str | None) -> dict:
@@ -56,6 +59,10 @@ def check(
     methods: bool = True,
     figures: bool = False,
     progress=None,
+    claim=None,
+    calibration: int | None = None,
+    equivalence=None,
+    timestamp: bool = True,
 ) -> Findings:
     """Audit the two-way ANOVA of a long-format dataset.
 
@@ -101,6 +108,22 @@ def check(
     progress : bool or callable, optional
         Progress display for the resampling methods (True: a bar on a
         terminal's stderr).
+    claim : str or sequence of str, optional
+        The reported result(s) to judge: a test line such as
+        ``"F(2, 54) = 4.11, p = .022"`` (optionally labelled ``"A: ..."``,
+        ``"B: ..."``, ``"AB: ..."`` or with a factor name; unlabelled means
+        the interaction), or ``"present"`` / ``"absent"``.  Without one the
+        claim is the classical F's decision at alpha.
+    calibration : int, optional
+        Replications of the size check on null datasets shaped like this one
+        (default :data:`audit.verdict.calibration.DEFAULT_REPLICATIONS`;
+        0 turns it off).
+    equivalence : float or str, optional
+        A bound for an equivalence test of the interaction: the largest
+        negligible RMS interaction term in response units, or ``"eta2=X"``.
+    timestamp : bool, default True
+        Record the time of the run in ``provenance`` (False for byte-identical
+        reruns).
 
     Returns
     -------
@@ -112,6 +135,7 @@ def check(
         Bad input, with a message naming the column or option at fault.
     """
     alpha = check_alpha(alpha)
+    claim, calibration, equivalence = _verdict_options(claim, calibration, equivalence, factors)
     obs = load(data, response=response, factors=factors, levels=levels, order=order, unit=unit,
                sheet=sheet, encoding=encoding, decimal=decimal)
     fit = fit_observations(obs, alpha=alpha)
@@ -120,6 +144,7 @@ def check(
     )
     design = dataclasses.replace(design, notes=(*obs.notes, *design.notes)) if obs.notes else design
     return _assemble(fit, design, mode="data", source=(obs.source.path, obs.source.sha256),
+                     claim=claim, calibration=calibration, equivalence=equivalence, timestamp=timestamp,
                      resamples=resamples, seed=seed, diagnostics=diagnostics, methods=methods,
                      figures=figures, progress=progress)
 
@@ -133,7 +158,23 @@ def _fragility_block(diags: tuple[Diagnostic, ...]) -> dict | None:
     return None
 
 
-def _assemble(fit, design, *, mode, source, resamples, seed, diagnostics, methods, figures, progress) -> Findings:
+def _verdict_options(claim, calibration, equivalence, factors):
+    """Check the verdict's options at the edge, before any data is read."""
+    from .errors import OptionError
+    from .verdict.calibration import DEFAULT_REPLICATIONS
+    from .verdict.judge import parse_claims, parse_equivalence
+
+    if calibration is None:
+        calibration = DEFAULT_REPLICATIONS
+    if isinstance(calibration, bool) or not isinstance(calibration, int) or not 0 <= calibration <= MAX_CALIBRATION:
+        raise OptionError(f"calibration: expected a whole number from 0 to {MAX_CALIBRATION:,}, found "
+                          f"{calibration!r}; try {DEFAULT_REPLICATIONS} (0 turns the size check off)")
+    names = tuple(factors) if isinstance(factors, (tuple, list)) and len(factors) == 2 else ("A", "B")
+    return parse_claims(claim, factors=names), calibration, parse_equivalence(equivalence)
+
+
+def _assemble(fit, design, *, mode, source, resamples, seed, diagnostics, methods, figures, progress,
+              claim=None, calibration=None, equivalence=None, timestamp=True) -> Findings:
     """Run the later stages on a fit and collect everything into Findings."""
     from .methods import new_seed, run_methods
 
@@ -144,12 +185,25 @@ def _assemble(fit, design, *, mode, source, resamples, seed, diagnostics, method
 
         diags = run_diagnostics(fit)
     prov = _provenance(*source)
+    if not timestamp:
+        prov.pop("timestamp", None)
+    if seed is None and ((methods and resamples and fit.has_data) or (methods and calibration)):
+        seed = new_seed()
     if methods:
-        if seed is None and resamples and fit.has_data:
-            seed = new_seed()
         meths = run_methods(fit, resamples=resamples, seed=seed, progress=progress)
         prov["resamples"] = resamples
-        prov["seed"] = seed
+    prov["seed"] = seed
+    calib = None
+    judgement = None
+    if methods:
+        from .verdict.calibration import size_check
+        from .verdict.judge import judge
+
+        if calibration:
+            calib = size_check(fit, alpha=fit.alpha, replications=calibration, seed=seed)
+        prov["calibration_replications"] = calibration
+        judgement = judge(fit, diagnostics=diags, methods=meths, claims=claim or (), calibration=calib,
+                          equivalence=equivalence)
     fig = None
     if figures:
         from .diagnostics.plotdata import figure_data
@@ -168,6 +222,8 @@ def _assemble(fit, design, *, mode, source, resamples, seed, diagnostics, method
         fragility=_fragility_block(diags),
         provenance=prov,
         figure_data=fig,
+        judgement=judgement,
+        calibration=calib,
     )
 
 
@@ -183,6 +239,11 @@ def check_summary(
     diagnostics: bool = True,
     methods: bool = True,
     figures: bool = False,
+    claim=None,
+    calibration: int | None = None,
+    equivalence=None,
+    seed: int | None = None,
+    timestamp: bool = True,
 ) -> Findings:
     """Audit from a table of cell means, SDs and sizes (one row per cell).
 
@@ -202,14 +263,18 @@ def check_summary(
     diagnostics, methods, figures : bool
         As in :func:`check`; only what cell statistics support is computed
         (the others say they need the raw data).
+    claim, calibration, equivalence, seed, timestamp
+        As in :func:`check` (the size check uses normal errors here).
 
     Returns
     -------
     Findings
     """
     alpha = check_alpha(alpha)
+    claim, calibration, equivalence = _verdict_options(claim, calibration, equivalence, factors)
     cells = cells_from_summary(table, factors=tuple(factors), mean=mean, sd=sd, n=n, response=response)
     fit = fit_cells(cells, alpha=alpha)
     design = describe_design(cells, dropped={"total": 0, "note": "summary table: rows dropped are unknown"})
-    return _assemble(fit, design, mode="summary", source=(None, None), resamples=0, seed=None,
-                     diagnostics=diagnostics, methods=methods, figures=figures, progress=None)
+    return _assemble(fit, design, mode="summary", source=(None, None), resamples=0, seed=seed,
+                     diagnostics=diagnostics, methods=methods, figures=figures, progress=None,
+                     claim=claim, calibration=calibration, equivalence=equivalence, timestamp=timestamp)

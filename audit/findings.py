@@ -18,7 +18,10 @@ from .core import AnovaResult
 from .design import CellStats, DesignSummary
 from .results import Diagnostic, MethodResult
 
-__all__ = ["Findings", "CAUTIONS", "to_jsonable"]
+__all__ = ["Findings", "CAUTIONS", "to_jsonable", "SCHEMA_VERSION"]
+
+#: version of the findings JSON layout (raised whenever a key changes meaning or is removed)
+SCHEMA_VERSION = "2.0"
 
 #: shown with every report (an automated audit can mislead if read alone)
 CAUTIONS = (
@@ -91,18 +94,71 @@ class Findings:
     cautions: tuple[str, ...] = CAUTIONS
     provenance: dict = field(default_factory=dict)
     figure_data: dict | None = field(default=None, repr=False, compare=False)
+    judgement: object = None
+    calibration: object = None
+
+    @property
+    def verdict(self) -> str | None:
+        """The overall verdict ('holds', ..., 'cannot-judge'), or None when not judged."""
+        return self.judgement.verdict.verdict if self.judgement is not None else None
+
+    @property
+    def reasons(self) -> tuple:
+        """The verdict's reasons, most important first."""
+        return self.judgement.verdict.reasons if self.judgement is not None else ()
+
+    def exit_status(self, *, strict: bool = False) -> int:
+        """The command's exit status for this verdict (0 holds, 1 does not, 3 cannot judge).
+
+        Parameters
+        ----------
+        strict : bool
+            Caveats exit 1 too.
+        """
+        from .verdict.conclude import exit_status
+
+        return exit_status(self.verdict, strict=strict) if self.judgement is not None else 0
 
     def diagnostic(self, id: str) -> Diagnostic:
+        """The diagnostic with this id (a KeyError lists the valid ids)."""
         for d in self.diagnostics:
             if d.id == id:
                 return d
-        raise KeyError(id)
+        raise KeyError(f"no diagnostic {id!r}; the diagnostics are: {', '.join(d.id for d in self.diagnostics)}")
 
     def method(self, id: str, effect: str = "AB") -> MethodResult:
+        """The result of method ``id`` for ``effect`` (a KeyError lists the valid ids)."""
         for m in self.methods:
             if m.id == id and m.effect == effect:
                 return m
-        raise KeyError((id, effect))
+        ids = list(dict.fromkeys(m.id for m in self.methods))
+        raise KeyError(f"no method {id!r} for effect {effect!r}; the methods are: {', '.join(ids)}; "
+                       "effects: A, B, AB")
+
+    def _method_dicts(self) -> list[dict]:
+        out = []
+        j = self.judgement
+        for i, m in enumerate(self.methods):
+            d = m.to_dict()
+            if j is not None:
+                t = j.trust[i]
+                d["trusted"] = t.trusted
+                d["trust_reason"] = t.reason
+                d["trust_rule"] = t.rule
+                d["agrees_with_claim"] = j.agrees[i]
+            else:
+                d["trusted"] = None
+                d["trust_reason"] = None
+                d["trust_rule"] = None
+                d["agrees_with_claim"] = None
+            out.append(d)
+        return out
+
+    def _claim_dict(self) -> dict | None:
+        j = self.judgement
+        if j is None:
+            return None
+        return {"interaction": j.claims[0].to_dict(), "effects": [c.to_dict() for c in j.claims]}
 
     def cell_table(self) -> list[dict]:
         c = self.cells
@@ -134,7 +190,16 @@ class Findings:
         return out
 
     def to_dict(self) -> dict:
+        j = self.judgement
         d = {
+            "schema_version": SCHEMA_VERSION,
+            "verdict": self.verdict,
+            "reasons": [r.to_dict() for r in self.reasons],
+            "effect_verdicts": [e.to_dict() for e in j.verdict.effects] if j is not None else [],
+            "claim": self._claim_dict(),
+            "sensitivity": j.sensitivity.to_dict() if j is not None and j.sensitivity is not None else None,
+            "equivalence": j.equivalence.to_dict() if j is not None and j.equivalence is not None else None,
+            "calibration": self.calibration.to_dict() if self.calibration is not None else None,
             "mode": self.mode,
             "alpha": self.alpha,
             "response": self.response,
@@ -144,7 +209,7 @@ class Findings:
             "anova": self.anova.to_dict(),
             "interaction_terms": self.interaction_table(),
             "diagnostics": [x.to_dict() for x in self.diagnostics],
-            "methods": [x.to_dict() for x in self.methods],
+            "methods": self._method_dicts(),
             "fragility": self.fragility,
             "cautions": list(self.cautions),
             "provenance": self.provenance,
