@@ -1,0 +1,1 @@
+from .calibration import Calibration, CalibrationRow, Shrinkage, size_check  # noqa: F401
