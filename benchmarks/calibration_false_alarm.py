@@ -79,10 +79,13 @@ def main():
     ap.add_argument("--datasets", type=int, default=400)
     ap.add_argument("--replications", type=int, default=2000)
     ap.add_argument("--seed", type=int, default=20261202)
+    ap.add_argument("--only", default="", help="run only conditions whose name contains this text")
     args = ap.parse_args()
     alpha = 0.05
     t0 = time.process_time()
     for ci, (name, counts, sd, dist, prior, truth) in enumerate(CONDITIONS):
+        if args.only not in name:
+            continue
         rng = np.random.default_rng([args.seed, ci])
         lo = {mth: [] for mth in METHODS}
         hi = {mth: [] for mth in METHODS}

@@ -4,6 +4,7 @@ pingouin and scipy) and against statsmodels directly; its estimated sizes
 against the binomial band and the published direction of the classical F's
 error under unequal variances.  Invented data only, as property checks."""
 
+import functools
 import math
 
 import numpy as np
@@ -61,9 +62,10 @@ def _stack(fits):
     return means, css, fits[0].cells.counts.ravel()[f], f
 
 
-def _hetero_fits(counts=UNBAL, empty=()):
+@functools.lru_cache(maxsize=None)
+def _hetero_fits(empty=()):
     sds = np.outer([1.0, 3.0, 0.5, 2.0], [1.0, 0.6, 1.7])
-    return [_fit(_frame(counts, sds, s, empty=empty, interaction=0.7)) for s in range(5)]
+    return [_fit(_frame(UNBAL, sds, s, empty=empty, interaction=0.7)) for s in range(5)]
 
 
 def test_batched_classical_f_equals_project_function():

@@ -147,9 +147,12 @@ CALIBRATED_METHODS = ("classical-f", "welch-james", "hc3-wald", "hc4-wald")
 #: 'liberal' when the lower end of the interval exceeds this multiple of alpha
 LIBERAL_MULTIPLE = 1.5
 #: 'conservative' when the upper end of the interval is below this fraction of alpha
-CONSERVATIVE_FRACTION = 0.5
+CONSERVATIVE_FRACTION = 0.6
 #: level of the Clopper-Pearson interval of each estimated size
 INTERVAL_LEVEL = 0.99
+#: pilot draws used to find the sampling spread of log cell variances under the
+#: residual shape (data mode)
+PILOT_REPLICATIONS = 500
 #: memory budget for one chunk of resampled errors (float64 elements)
 _CHUNK_ELEMENTS = 500_000
 EFFECTS = ("A", "B", "AB")
@@ -478,13 +481,24 @@ def hc_wald_batch(means, css, counts, C, *, kind: str = "hc3"):
 # ----------------------------------------------------------------------------- variances
 
 
-def _smyth_prior_df(s2: np.ndarray, d: np.ndarray) -> float:
-    """Smyth's (2004) moment estimate of the prior df d0 (inf when the log
-    variances vary no more than sampling error alone explains)."""
+def _prior_df(s2: np.ndarray, d: np.ndarray, sampling=None) -> float:
+    """Moment estimate of the prior df d0 (Smyth 2004; inf when the log variances
+    vary no more than sampling error alone explains).
+
+    ``sampling`` None: normal errors, so log s2 has mean log sigma2 + psi(d/2) -
+    log(d/2) and variance psi'(d/2).  Otherwise a pair (centre, var) of arrays
+    giving that mean offset and variance per cell for the error shape simulated
+    (from a pilot simulation of unit-variance errors).
+    """
     if s2.size < 2:
         return math.inf
-    e = np.log(s2) - special.digamma(d / 2.0) + np.log(d / 2.0)
-    excess = np.var(e, ddof=1) - np.mean(special.polygamma(1, d / 2.0))
+    if sampling is None:
+        centre = special.digamma(d / 2.0) - np.log(d / 2.0)
+        svar = special.polygamma(1, d / 2.0)
+    else:
+        centre, svar = sampling
+    e = np.log(s2) - centre
+    excess = np.var(e, ddof=1) - np.mean(svar)
     if not np.isfinite(excess) or excess <= 0:
         return math.inf
     # trigamma is decreasing: solve psi'(x) = excess for x = d0 / 2 by bracketing
@@ -499,7 +513,7 @@ def _smyth_prior_df(s2: np.ndarray, d: np.ndarray) -> float:
     return 2.0 * x
 
 
-def moderated_variances(variances, counts, *, prior_df="auto"):
+def moderated_variances(variances, counts, *, prior_df="auto", sampling=None):
     """Cell variances moderated toward the pooled variance (after Smyth 2004).
 
     Parameters
@@ -511,6 +525,10 @@ def moderated_variances(variances, counts, *, prior_df="auto"):
     prior_df : 'auto' or float
         'auto' estimates d0 by Smyth's moment method; a number fixes it
         (0: no moderation; ``math.inf``: every cell gets the pooled variance).
+    sampling : tuple of ndarray (J, K), optional
+        Mean and variance of log(s2 / sigma2) in each cell under the error
+        shape simulated (default: normal errors, psi(d/2) - log(d/2) and
+        psi'(d/2)).
 
     Returns
     -------
@@ -532,7 +550,8 @@ def moderated_variances(variances, counts, *, prior_df="auto"):
     if isinstance(prior_df, str):
         if prior_df != "auto":
             raise OptionError(f"prior_df: expected 'auto' or a number >= 0, found {prior_df!r}; try 'auto'")
-        d0 = _smyth_prior_df(v[use], d[use])
+        samp = None if sampling is None else (np.asarray(sampling[0])[use], np.asarray(sampling[1])[use])
+        d0 = _prior_df(v[use], d[use], samp)
     else:
         try:
             d0 = float(prior_df)
@@ -561,12 +580,12 @@ def clopper_pearson(k: int, n: int, level: float = INTERVAL_LEVEL) -> tuple[floa
     return lo, hi
 
 
-def _standardised_pool(fit) -> np.ndarray:
+def _standardised_pool(fit, sd=None) -> np.ndarray:
     """Pooled standardised residuals e_i / s_cell * sqrt(n / (n - 1)) from the
-    cells with n >= 2 and a positive SD."""
+    cells with n >= 2 and a positive SD (``sd``: the cells' own SDs by default)."""
     cells = fit.cells
     n = cells.counts.ravel()
-    sd = np.sqrt(cells.variances.ravel())
+    sd = np.sqrt(cells.variances.ravel()) if sd is None else np.asarray(sd, dtype=float).ravel()
     cell = np.asarray(fit.obs.cell)
     ok = (n >= 2) & np.isfinite(sd) & (sd > 0)
     keep = ok[cell]
@@ -612,6 +631,31 @@ def _simulate_cells(rng, counts, pool, R: int):
         means[lo:hi] = mu
         css[lo:hi] = np.add.reduceat(Z, starts, axis=1)
     return means, css
+
+
+def _pilot_log_variance(rng, counts, pool, reps: int = PILOT_REPLICATIONS):
+    """Mean and variance of log s2 per cell for unit-variance errors drawn from
+    ``pool`` (a pilot simulation), as (J, K) arrays; the normal-theory values
+    psi(d/2) - log(d/2) and psi'(d/2) where the pilot has too few positive s2."""
+    shape = counts.shape
+    nn = counts.ravel()
+    live = nn > 1
+    d = np.maximum(nn - 1.0, 1.0)
+    centre = special.digamma(d / 2.0) - np.log(d / 2.0)
+    svar = special.polygamma(1, d / 2.0)
+    _, css = _simulate_cells(rng, nn[live], pool, reps)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ls = np.log(css / (nn[live] - 1.0))
+    fin = np.isfinite(ls)
+    cnt = fin.sum(axis=0)
+    ok = cnt >= reps // 2
+    ls = np.where(fin, ls, 0.0)
+    mu = ls.sum(axis=0) / np.maximum(cnt, 1)
+    var = ((np.where(fin, ls - mu, 0.0)) ** 2).sum(axis=0) / np.maximum(cnt - 1, 1)
+    idx = np.nonzero(live)[0]
+    centre[idx[ok]] = mu[ok]
+    svar[idx[ok]] = var[ok]
+    return centre.reshape(shape), svar.reshape(shape)
 
 
 def _check_replications(R) -> int:
@@ -701,7 +745,25 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
         "independence of the observations is assumed by the simulation and cannot be checked from the data",
         "resampling and rank methods are not simulated here: their trust comes from the rule table",
     ]
-    post, d0, pooled = moderated_variances(cells.variances, counts, prior_df=prior_df)
+    rng = np.random.default_rng(seed)
+    pool = None
+    extra_notes = []
+    if fit.obs is not None and R > 0:
+        pool = _standardised_pool(fit)
+        if pool.size < 2:
+            pool = None
+            extra_notes.append("no cell has two or more distinct values: normal errors simulated instead "
+                               "of resampled residuals")
+    sampling = None
+    if pool is not None and isinstance(prior_df, str) and (n > 1).any():
+        # the sampling spread of log s2 under this residual shape, from a pilot on residuals
+        # standardised by the normal-theory moderated SDs (standardising by each cell's own
+        # SD would clip the tails of small cells and understate that spread)
+        post1, _, _ = moderated_variances(cells.variances, counts, prior_df=math.inf)
+        pilot_pool = _standardised_pool(fit, np.sqrt(post1))
+        if pilot_pool.size >= 2:
+            sampling = _pilot_log_variance(rng, counts, pilot_pool)
+    post, d0, pooled = moderated_variances(cells.variances, counts, prior_df=prior_df, sampling=sampling)
     if isinstance(prior_df, str):
         smethod = "equal" if math.isinf(d0) else "moderated"
     else:
@@ -752,16 +814,8 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
             blocked[mth] = f"not run: {mth} cannot be formed with zero-variance cells"
     runnable = [mth for mth in methods if mth not in blocked]
 
-    pool = None
     source, enote = "none", "not simulated"
-    extra_notes = []
     if runnable:
-        if fit.obs is not None:
-            pool = _standardised_pool(fit)
-            if pool.size < 2:
-                pool = None
-                extra_notes.append("no cell has two or more distinct values: normal errors simulated instead "
-                                   "of resampled residuals")
         if pool is not None:
             source = "resampled-residuals"
             enote = (f"errors resampled from the {pool.size} pooled standardised residuals "
@@ -770,7 +824,6 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
             source = "normal"
             enote = ("normal errors (only cell summaries are known, so the residual shape cannot be kept)"
                      if fit.obs is None else "normal errors (no usable residuals)")
-    rng = np.random.default_rng(seed)
     sims = {}
     if runnable:
         zm, zc = _simulate_cells(rng, n, pool, R)
