@@ -1,0 +1,881 @@
+"""A size check on data shaped like this one: how often does each analytic
+method reject a true "no interaction" null on datasets that keep this
+dataset's cell sizes, cell variances and residual shape?
+
+No rule table can say whether the classical F is liberal *on this dataset*:
+that depends on how the variances pair with the cell sizes, how unequal they
+are, the shape of the errors and the design.  So we simulate it.
+
+Simulation (``size_check``)
+---------------------------
+* Cell sizes: those of the data.  Cell variances: the data's, moderated toward
+  the pooled within-cell variance (below).
+* Errors (data mode): resampled with replacement from the pooled standardised
+  residuals z_i = e_i / s_cell * sqrt(n_cell / (n_cell - 1)) (mean 0 and
+  variance 1 within every cell) and rescaled to each cell's moderated SD.
+  Summary mode (only cell means, SDs and sizes): normal errors, drawn exactly
+  as cell sufficient statistics (mean ~ N(0, sigma^2 / n), centred SS ~
+  sigma^2 chi2(n - 1)); the result says so.
+* Cell means: the additive (A + B) fit of the data, i.e. no interaction, main
+  effects kept.  Every statistic checked here is invariant to cell means that
+  satisfy its null (the interaction statistics to any additive pattern, the
+  Type III / Welch-James / HC main-effect statistics to any pattern with that
+  effect's unweighted marginal means equal), so the simulated statistics are
+  computed from the simulated errors' cell statistics alone; the rows for A and
+  B are sizes under "no A effect" and "no B effect" with the other effects as
+  in the data.
+* Statistics, vectorised over the R replications: cell counts, means and
+  centred SS of each replication (one ``np.add.reduceat`` per pass over a
+  cell-sorted (R, N) block, two passes), then each method's p from the
+  (R, m) cell statistics in one batched pass: the classical F (the interaction
+  SS by the n-weighted projection of the cell means off the additive model,
+  the same for SS Types I, II and III with every cell filled; Type III main
+  effects, Type II with empty cells, as the method reports), Welch-James
+  (Johansen 1980, METHODS.md section 2) and the HC3 / HC4 Wald F (METHODS.md
+  section 3) with the r x r contrast covariances inverted in one batched call.
+  A replication rejects when p < alpha.
+* No loop over replications and no model refit; the random stream depends only
+  on ``seed``, so the same seed gives the same result.
+
+Moderated cell variances (after Smyth 2004)
+--------------------------------------------
+Cell SDs from 4-5 observations are noisy: on truly homoscedastic data the
+plug-in SDs alone make the simulated nulls heteroscedastic and the classical F
+can look liberal (METHODS.md 10b).  Each cell variance is therefore replaced by
+the empirical-Bayes posterior
+
+    s2~_jk = (d0 s2_pooled + d_jk s2_jk) / (d0 + d_jk),   d_jk = n_jk - 1,
+
+with the prior centred on the pooled within-cell variance s2_pooled = MS_E
+and the prior df d0 estimated from the spread of the log cell variances by
+Smyth's (2004) moment method: with e_jk = log s2_jk - psi(d_jk / 2) +
+log(d_jk / 2), solve psi'(d0 / 2) = var(e) - mean psi'(d_jk / 2) (psi, psi'
+the digamma and trigamma functions).  When the log variances are no more
+spread than sampling error alone explains, d0 is infinite (complete
+shrinkage: equal variances are simulated).  d0 is estimated, not fixed,
+because the same data say how much real heteroscedasticity there is: a
+large spread gives a small d0 and keeps the cells' own variances (the
+liberal classical F under variances paired with cell sizes is still found),
+while homoscedastic data give a large or infinite d0.  ``prior_df`` can fix
+it instead (0: no shrinkage; ``inf``: equal variances).  Cells with n = 1 or a
+zero SD do not enter the estimate of d0; a cell with n = 1 takes the prior
+variance.
+
+Trust rule (:data:`LIBERAL_MULTIPLE`, :data:`CONSERVATIVE_FRACTION`)
+--------------------------------------------------------------------
+With R replications the estimated size k / R has a 99% Clopper-Pearson
+interval [lo, hi] (Clopper & Pearson 1934).
+
+* ``liberal``       when lo > 1.5 alpha (clearly above alpha even allowing for
+                    the Monte Carlo error and for the cell variances being
+                    estimates);
+* ``conservative``  when hi < alpha / 2;
+* ``ok``            otherwise;  ``not-run`` (with the reason) when the method
+                    cannot be computed on this design (n = 1 cells, empty
+                    cells for the cell-means methods, no error df).
+
+The multiple 1.5 was chosen from a seeded simulation of the rule's false
+alarms (``benchmarks/calibration_false_alarm.py``, 2026-12-02; R = 2,000,
+alpha = 0.05, 400 datasets per design, moderated variances): on truly
+homoscedastic normal data the classical F was flagged liberal in 0.0% of
+datasets on a balanced 3 x 3 (n = 5) design, 0.2% on the unbalanced 3 x 3 of
+METHODS.md 10a (n = 4-16) and 0.0% on a 2 x 2 with n = 4; with t(5) errors
+(heavier tails make the cell variances noisier) 0.5% on the unbalanced 3 x 3.
+Without moderation (``prior_df=0``) the same rule flagged 3.5% on the
+unbalanced design.  A multiple of 1.25 raised the moderated rate to 1.0%.
+Conservative false alarms were 0.0% throughout.  Sensitivity: with variance
+proportional to 1/n (SD ratio 2; true classical F size about 0.15) the
+classical F was flagged liberal in 87% of datasets of the unbalanced 3 x 3,
+and with SD proportional to 1/n (ratio 4, true size about 0.29) in 100%.
+Welch-James was flagged liberal in 0.0-0.5% of datasets throughout.
+
+Limits: the cell variances and the residual shape are estimates from this
+dataset, so the check shows how the methods behave on data *like* these, not
+on the unknown truth; with few observations per cell it is itself noisy.
+Independence of the observations is assumed, not checked.  The resampling
+methods are not simulated here (they would need a resampling loop inside each
+replication); their trust comes from the rule table.
+
+References
+----------
+.. [1] Smyth, G. K. (2004). Linear models and empirical Bayes methods for
+       assessing differential expression in microarray experiments.
+       Statistical Applications in Genetics and Molecular Biology 3(1), art. 3.
+.. [2] Box, G. E. P. (1954). Some theorems on quadratic forms applied in the
+       study of analysis of variance problems, I. Annals of Mathematical
+       Statistics 25, 290-302.
+.. [3] Glass, G. V., Peckham, P. D. & Sanders, J. R. (1972). Consequences of
+       failure to meet assumptions underlying the fixed effects analyses of
+       variance and covariance. Review of Educational Research 42, 237-288.
+.. [4] Johansen, S. (1980). Biometrika 67, 85-92.
+.. [5] Clopper, C. J. & Pearson, E. S. (1934). Biometrika 26, 404-413.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import special, stats
+
+from ..core import additive_design, contrast_matrix
+from ..errors import OptionError
+
+__all__ = [
+    "Calibration",
+    "CalibrationRow",
+    "Shrinkage",
+    "size_check",
+    "moderated_variances",
+    "classical_f_batch",
+    "welch_james_batch",
+    "hc_wald_batch",
+    "DEFAULT_REPLICATIONS",
+    "CALIBRATED_METHODS",
+    "LIBERAL_MULTIPLE",
+    "CONSERVATIVE_FRACTION",
+    "INTERVAL_LEVEL",
+]
+
+#: default number of simulated null datasets (99% interval half-width about
+#: +-0.013 at a size of 0.05; the whole check at N = 2,004 in a 4 x 3 design
+#: takes about 0.1-0.2 s)
+DEFAULT_REPLICATIONS = 2000
+#: methods with a cell-statistic form that the size check simulates
+CALIBRATED_METHODS = ("classical-f", "welch-james", "hc3-wald", "hc4-wald")
+#: 'liberal' when the lower end of the interval exceeds this multiple of alpha
+LIBERAL_MULTIPLE = 1.5
+#: 'conservative' when the upper end of the interval is below this fraction of alpha
+CONSERVATIVE_FRACTION = 0.6
+#: level of the Clopper-Pearson interval of each estimated size
+INTERVAL_LEVEL = 0.99
+#: pilot draws used to find the sampling spread of log cell variances under the
+#: residual shape (data mode)
+PILOT_REPLICATIONS = 500
+#: memory budget for one chunk of resampled errors (float64 elements)
+_CHUNK_ELEMENTS = 500_000
+EFFECTS = ("A", "B", "AB")
+STATUSES = ("liberal", "conservative", "ok", "not-run")
+
+
+# ----------------------------------------------------------------------------- results
+
+
+@dataclass(frozen=True, kw_only=True)
+class CalibrationRow:
+    """The estimated size of one method for one effect.
+
+    Attributes
+    ----------
+    method : str
+        Method id ('classical-f', 'welch-james', 'hc3-wald', 'hc4-wald', ...).
+    effect : str
+        'A', 'B' or 'AB'.
+    size : float or None
+        Share of simulated null datasets with p < alpha (None when not run).
+    interval : tuple of float or None
+        99% Clopper-Pearson interval of ``size``.
+    rejections : int or None
+        Number of simulated datasets with p < alpha.
+    replications : int
+        Number of simulated datasets on which the method gave a p-value (the
+        others, if any, are counted in ``undefined``).
+    undefined : int
+        Simulated datasets on which the method could not be computed.
+    status : str
+        'liberal', 'conservative', 'ok' or 'not-run'.
+    reason : str
+        One plain sentence saying why.
+    """
+
+    method: str
+    effect: str
+    size: float | None
+    interval: tuple[float, float] | None
+    rejections: int | None
+    replications: int
+    undefined: int
+    status: str
+    reason: str
+
+    def to_dict(self) -> dict:
+        return {
+            "method": self.method,
+            "effect": self.effect,
+            "size": self.size,
+            "interval": list(self.interval) if self.interval else None,
+            "rejections": self.rejections,
+            "replications": self.replications,
+            "undefined": self.undefined,
+            "status": self.status,
+            "reason": self.reason,
+        }
+
+
+@dataclass(frozen=True, kw_only=True)
+class Shrinkage:
+    """How the simulated cell variances were obtained.
+
+    Attributes
+    ----------
+    method : str
+        'moderated' (prior df estimated, Smyth 2004), 'fixed-prior' (prior df
+        given), 'none' (the cells' own variances) or 'equal' (the pooled
+        variance in every cell).
+    prior_df : float or None
+        d0; None when infinite (complete shrinkage: equal variances) or when
+        not applicable.
+    complete : bool
+        True when every cell was given the pooled variance.
+    target_variance : float or None
+        The pooled within-cell variance MS_E that variances are shrunk toward.
+    cell_sd : list of list of float or None
+        The SDs used in the simulation, (J, K), relative to the data's units
+        (None in empty cells).
+    note : str
+    """
+
+    method: str
+    prior_df: float | None
+    complete: bool
+    target_variance: float | None
+    cell_sd: list | None
+    note: str
+
+    def to_dict(self) -> dict:
+        return {"method": self.method, "prior_df": self.prior_df, "complete": self.complete,
+                "target_variance": self.target_variance, "cell_sd": self.cell_sd, "note": self.note}
+
+
+@dataclass(frozen=True, kw_only=True)
+class Calibration:
+    """The size check of the analytic methods on data shaped like this one.
+
+    Attributes
+    ----------
+    alpha : float
+    replications : int
+        R, the number of simulated null datasets (0: the check was turned off).
+    seed : int or None
+    error_source : str
+        'resampled-residuals' (data mode), 'normal' (summary mode, or no usable
+        residuals) or 'none' (not run).
+    error_note : str
+        One sentence on how the errors were simulated.
+    shrinkage : Shrinkage
+    liberal_multiple, conservative_fraction, interval_level : float
+        The trust rule (see the module docstring).
+    rows : tuple of CalibrationRow
+        One per method and effect, in the order of ``methods`` then A, B, AB.
+    notes : tuple of str
+        Limits of the check.
+    """
+
+    alpha: float
+    replications: int
+    seed: int | None
+    error_source: str
+    error_note: str
+    shrinkage: Shrinkage
+    liberal_multiple: float
+    conservative_fraction: float
+    interval_level: float
+    rows: tuple[CalibrationRow, ...]
+    notes: tuple[str, ...]
+
+    def row(self, method: str, effect: str = "AB") -> CalibrationRow:
+        for r in self.rows:
+            if r.method == method and r.effect == effect:
+                return r
+        raise KeyError((method, effect))
+
+    def to_dict(self) -> dict:
+        return {
+            "alpha": self.alpha,
+            "replications": self.replications,
+            "seed": self.seed,
+            "error_source": self.error_source,
+            "error_note": self.error_note,
+            "shrinkage": self.shrinkage.to_dict(),
+            "rule": {"liberal_multiple": self.liberal_multiple,
+                     "conservative_fraction": self.conservative_fraction,
+                     "interval_level": self.interval_level},
+            "rows": [r.to_dict() for r in self.rows],
+            "notes": list(self.notes),
+        }
+
+
+# ----------------------------------------------------------------------------- batched statistics
+
+
+def _type3(J: int, K: int) -> dict[str, np.ndarray]:
+    CJ, CK = contrast_matrix(J), contrast_matrix(K)
+    return {"A": np.kron(CJ, np.ones((1, K)) / K), "B": np.kron(np.ones((1, J)) / J, CK), "AB": np.kron(CJ, CK)}
+
+
+def _residual_maker(X: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, int]:
+    """P with r = P @ y the n-weighted LS residual of y on X (rows with w > 0)."""
+    sw = np.sqrt(w)
+    Xw = X * sw[:, None]
+    Q, s, _ = np.linalg.svd(Xw, full_matrices=False)
+    rank = int(np.sum(s > s.max() * max(Xw.shape) * np.finfo(float).eps))
+    Q = Q[:, :rank]
+    # r = y - X b with Xw b = Q Q' (sw y):  sw r = (I - Q Q') sw y
+    P = (np.eye(len(w)) - Q @ Q.T) * sw[None, :] / sw[:, None]
+    return P, rank
+
+
+def classical_f_batch(means, css, counts, J: int, K: int, *, filled=None):
+    """Classical F of A, B and AB for a batch of datasets sharing cell sizes.
+
+    Parameters
+    ----------
+    means, css : ndarray, shape (R, m)
+        Cell means and centred sums of squares of the m filled cells (j-major).
+    counts : ndarray, shape (m,)
+        Cell sizes (>= 1).
+    J, K : int
+        Levels of A and B.
+    filled : ndarray of bool (J*K,), optional
+        Which of the J*K cells are filled (default: all).
+
+    Returns
+    -------
+    dict effect -> (F (R,), df1, df2)
+        Interaction SS by the n-weighted projection off the additive model (the
+        same for SS Types I, II and III); main effects Type III when every cell
+        is filled, Type II otherwise (as ``audit.methods.classical`` reports).
+        F is NaN where the error MS is 0; df1 = 0 when an effect has no df.
+    """
+    means = np.atleast_2d(np.asarray(means, dtype=float))
+    css = np.atleast_2d(np.asarray(css, dtype=float))
+    n = np.asarray(counts, dtype=float)
+    filled = np.ones(J * K, dtype=bool) if filled is None else np.asarray(filled, dtype=bool).ravel()
+    m = int(filled.sum())
+    df2 = float(n.sum() - m)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mse = css.sum(axis=1) / df2 if df2 > 0 else np.full(means.shape[0], np.nan)
+    X = additive_design(J, K)[filled]
+    P_add, rank_add = _residual_maker(X, n)
+    out = {}
+    r = means @ P_add.T
+    ss_ab = np.sum(n * r * r, axis=1)
+    df_ab = m - rank_add
+    if m == J * K:
+        C = _type3(J, K)
+        Dinv = {e: np.linalg.inv((C[e] / n) @ C[e].T) for e in ("A", "B")}
+        ss = {e: np.einsum("ri,ij,rj->r", means @ C[e].T, Dinv[e], means @ C[e].T) for e in ("A", "B")}
+        dfs = {"A": J - 1, "B": K - 1}
+    else:
+        ss, dfs = {}, {}
+        for e, other in (("A", ("B",)), ("B", ("A",))):
+            P_o, rank_o = _residual_maker(additive_design(J, K, other)[filled], n)
+            r_o = means @ P_o.T
+            ss[e] = np.sum(n * r_o * r_o, axis=1) - ss_ab
+            dfs[e] = rank_add - rank_o
+    ss["AB"] = ss_ab
+    dfs["AB"] = df_ab
+    for e in EFFECTS:
+        d1 = dfs[e]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            F = (np.maximum(ss[e], 0.0) / d1) / mse if d1 > 0 else np.full(means.shape[0], np.nan)
+        F = np.where(mse > 0, F, np.nan)
+        out[e] = (F, float(d1), df2)
+    return out
+
+
+def _batched_wald(means, v, C, *, need_r=True):
+    """T = (C y)' (C V C')^-1 (C y), V = diag(v), and the diagonal of
+    R = V C' (C V C')^-1 C (for Johansen's A), batched over rows.
+
+    Returns T (R,), Rdiag (R, m) or None, and a boolean (R,) marking rows whose
+    r x r matrix is positive definite (the others hold NaN).
+    """
+    r = C.shape[0]
+    Cy = means @ C.T                                        # (R, r)
+    M = (C[None, :, :] * v[:, None, :]) @ C.T               # (R, r, r)
+    good = np.all(np.isfinite(v), axis=1)
+    # with C of full row rank and every v > 0, M is positive definite; rows with a
+    # zero (or negative) variance are checked one by one by a Cholesky factorisation
+    for i in np.nonzero(good & ~np.all(v > 0, axis=1))[0]:
+        try:
+            np.linalg.cholesky(M[i])
+        except np.linalg.LinAlgError:
+            good[i] = False
+    M[~good] = np.eye(r)
+    Mi = np.linalg.inv(M)
+    T = np.sum(Cy * (Mi @ Cy[:, :, None])[:, :, 0], axis=1)
+    T = np.where(good, T, np.nan)
+    Rdiag = v * np.sum(C[None, :, :] * (Mi @ C), axis=1) if need_r else None
+    return T, Rdiag, good
+
+
+def welch_james_batch(means, variances, counts, C):
+    """Johansen's Welch-James test of C mu = 0 for a batch of datasets.
+
+    Parameters
+    ----------
+    means, variances : ndarray, shape (R, m)
+        Cell means and variances (ddof 1).
+    counts : ndarray, shape (m,)
+        Cell sizes (every one >= 2).
+    C : ndarray, shape (r, m)
+
+    Returns
+    -------
+    stat, df2, p : ndarray (R,)
+        T / c, r (r + 2) / (3 A) and the p-value of F(r, df2); NaN where the
+        contrast covariance is singular.
+    """
+    means = np.atleast_2d(np.asarray(means, dtype=float))
+    n = np.asarray(counts, dtype=float)
+    v = np.atleast_2d(np.asarray(variances, dtype=float)) / n
+    C = np.asarray(C, dtype=float)
+    r = C.shape[0]
+    T, Rdiag, good = _batched_wald(means, v, C)
+    A = np.sum(Rdiag * Rdiag / (n - 1.0), axis=1)
+    c = r + 2.0 * A - 6.0 * A / (r + 2.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        df2 = r * (r + 2.0) / (3.0 * A)
+        stat = T / c
+    good = good & np.isfinite(stat) & np.isfinite(df2) & (c > 0) & (df2 > 0)
+    stat = np.where(good, stat, np.nan)
+    df2 = np.where(good, df2, np.nan)
+    p = np.full(stat.shape, np.nan)
+    p[good] = stats.f.sf(stat[good], r, df2[good])
+    return stat, df2, p
+
+
+def hc_wald_batch(means, css, counts, C, *, kind: str = "hc3"):
+    """HC3 / HC4 Wald F of C mu = 0 for a batch of datasets (saturated model,
+    h_ii = 1 / n_jk; METHODS.md section 3).
+
+    Returns
+    -------
+    F, p : ndarray (R,)
+        F = W / r on (r, N - m) df; NaN where the robust covariance is singular.
+    """
+    means = np.atleast_2d(np.asarray(means, dtype=float))
+    css = np.atleast_2d(np.asarray(css, dtype=float))
+    n = np.asarray(counts, dtype=float)
+    h = 1.0 / n
+    if kind == "hc3":
+        delta = np.full_like(n, 2.0)
+    elif kind == "hc4":
+        delta = np.minimum(4.0, h / (n.size / n.sum()))
+    else:
+        raise OptionError(f"kind: expected 'hc3' or 'hc4', found {kind!r}")
+    v = css / (n * n * (1.0 - h) ** delta)
+    C = np.asarray(C, dtype=float)
+    r = C.shape[0]
+    W, _, good = _batched_wald(means, v, C, need_r=False)
+    F = np.where(good, W / r, np.nan)
+    df2 = float(n.sum() - n.size)
+    p = np.full(F.shape, np.nan)
+    if df2 > 0:
+        p[good] = stats.f.sf(F[good], r, df2)
+    return F, p
+
+
+# ----------------------------------------------------------------------------- variances
+
+
+def _prior_df(s2: np.ndarray, d: np.ndarray, sampling=None) -> float:
+    """Moment estimate of the prior df d0 (Smyth 2004; inf when the log variances
+    vary no more than sampling error alone explains).
+
+    ``sampling`` None: normal errors, so log s2 has mean log sigma2 + psi(d/2) -
+    log(d/2) and variance psi'(d/2).  Otherwise a pair (centre, var) of arrays
+    giving that mean offset and variance per cell for the error shape simulated
+    (from a pilot simulation of unit-variance errors).
+    """
+    if s2.size < 2:
+        return math.inf
+    if sampling is None:
+        centre = special.digamma(d / 2.0) - np.log(d / 2.0)
+        svar = special.polygamma(1, d / 2.0)
+    else:
+        centre, svar = sampling
+    e = np.log(s2) - centre
+    excess = np.var(e, ddof=1) - np.mean(svar)
+    if not np.isfinite(excess) or excess <= 0:
+        return math.inf
+    # trigamma is decreasing: solve psi'(x) = excess for x = d0 / 2 by bracketing
+    lo, hi = 1e-8, 1.0
+    while special.polygamma(1, hi) > excess:
+        hi *= 2.0
+        if hi > 1e12:
+            return math.inf
+    from scipy.optimize import brentq
+
+    x = brentq(lambda t: float(special.polygamma(1, t)) - excess, lo, hi, xtol=1e-12, rtol=1e-12)
+    return 2.0 * x
+
+
+def moderated_variances(variances, counts, *, prior_df="auto", sampling=None):
+    """Cell variances moderated toward the pooled variance (after Smyth 2004).
+
+    Parameters
+    ----------
+    variances : ndarray (J, K)
+        Cell variances (ddof 1); NaN where n <= 1 or the cell is empty.
+    counts : ndarray (J, K)
+        Cell sizes.
+    prior_df : 'auto' or float
+        'auto' estimates d0 by Smyth's moment method; a number fixes it
+        (0: no moderation; ``math.inf``: every cell gets the pooled variance).
+    sampling : tuple of ndarray (J, K), optional
+        Mean and variance of log(s2 / sigma2) in each cell under the error
+        shape simulated (default: normal errors, psi(d/2) - log(d/2) and
+        psi'(d/2)).
+
+    Returns
+    -------
+    post : ndarray (J, K)
+        Moderated variances (NaN in empty cells; the pooled variance in n = 1
+        cells, or NaN there when prior_df is 0).
+    d0 : float
+        The prior df used (may be inf).
+    pooled : float
+        The pooled within-cell variance (NaN without within-cell df).
+    """
+    v = np.asarray(variances, dtype=float)
+    n = np.asarray(counts, dtype=float)
+    d = np.maximum(n - 1.0, 0.0)
+    dfe = d[n > 0].sum()
+    css = np.where(n > 1, np.nan_to_num(v) * d, 0.0)
+    pooled = float(css.sum() / dfe) if dfe > 0 else math.nan
+    use = (n > 1) & np.isfinite(v) & (v > 0)
+    if isinstance(prior_df, str):
+        if prior_df != "auto":
+            raise OptionError(f"prior_df: expected 'auto' or a number >= 0, found {prior_df!r}; try 'auto'")
+        samp = None if sampling is None else (np.asarray(sampling[0])[use], np.asarray(sampling[1])[use])
+        d0 = _prior_df(v[use], d[use], samp)
+    else:
+        try:
+            d0 = float(prior_df)
+        except (TypeError, ValueError):
+            raise OptionError(f"prior_df: expected 'auto' or a number >= 0, found {prior_df!r}; try 'auto'") from None
+        if not (d0 >= 0):
+            raise OptionError(f"prior_df: expected 'auto' or a number >= 0, found {prior_df!r}; try 'auto'")
+    vv = np.where(n > 1, np.nan_to_num(v), 0.0)
+    if math.isinf(d0):
+        post = np.where(n > 0, pooled, np.nan)
+    elif d0 == 0:
+        post = np.where(n > 1, vv, np.nan)
+    else:
+        post = np.where(n > 0, (d0 * pooled + d * vv) / (d0 + d), np.nan)
+    return post, d0, pooled
+
+
+# ----------------------------------------------------------------------------- simulation
+
+
+def clopper_pearson(k: int, n: int, level: float = INTERVAL_LEVEL) -> tuple[float, float]:
+    """Exact binomial interval for k successes in n trials (Clopper & Pearson 1934)."""
+    a = 1.0 - level
+    lo = 0.0 if k == 0 else float(stats.beta.ppf(a / 2, k, n - k + 1))
+    hi = 1.0 if k == n else float(stats.beta.ppf(1 - a / 2, k + 1, n - k))
+    return lo, hi
+
+
+def _standardised_pool(fit, sd=None) -> np.ndarray:
+    """Pooled standardised residuals e_i / s_cell * sqrt(n / (n - 1)) from the
+    cells with n >= 2 and a positive SD (``sd``: the cells' own SDs by default)."""
+    cells = fit.cells
+    n = cells.counts.ravel()
+    sd = np.sqrt(cells.variances.ravel()) if sd is None else np.asarray(sd, dtype=float).ravel()
+    cell = np.asarray(fit.obs.cell)
+    ok = (n >= 2) & np.isfinite(sd) & (sd > 0)
+    keep = ok[cell]
+    e = np.asarray(fit.resid_full, dtype=float)[keep]
+    c = cell[keep]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        scale = np.sqrt(n / np.maximum(n - 1.0, 1.0)) / sd
+    return e * scale[c]
+
+
+def _simulate_cells(rng, counts, pool, R: int):
+    """Cell means and centred SS of R datasets of standardised errors (unit
+    variance), cells of the given sizes (all >= 1).
+
+    ``pool`` None: normal errors, the sufficient statistics drawn exactly.
+    Otherwise errors resampled from ``pool``, cell-sorted layout, two passes of
+    ``np.add.reduceat`` per chunk of replications.
+    """
+    counts = np.asarray(counts, dtype=np.int64)
+    m = counts.size
+    if pool is None:
+        z = rng.standard_normal((R, m))
+        means = z / np.sqrt(counts)
+        shape = np.maximum(counts - 1, 0) / 2.0
+        g = rng.standard_gamma(np.where(shape > 0, shape, 1.0), size=(R, m))
+        css = np.where(shape > 0, 2.0 * g, 0.0)
+        return means, css
+    N = int(counts.sum())
+    starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    cidx = np.repeat(np.arange(m), counts)
+    rows = max(1, min(R, _CHUNK_ELEMENTS // max(N, 1)))
+    means = np.empty((R, m))
+    css = np.empty((R, m))
+    P = pool.size
+    for lo in range(0, R, rows):
+        hi = min(R, lo + rows)
+        Z = pool.take(rng.integers(0, P, size=(hi - lo, N)))
+        mu = np.add.reduceat(Z, starts, axis=1) / counts
+        # second pass around the cell means (the draws are standardised errors with
+        # pooled mean exactly 0, so no further correction of the mean is needed)
+        Z -= mu[:, cidx]
+        np.multiply(Z, Z, out=Z)
+        means[lo:hi] = mu
+        css[lo:hi] = np.add.reduceat(Z, starts, axis=1)
+    return means, css
+
+
+def _pilot_log_variance(rng, counts, pool, reps: int = PILOT_REPLICATIONS):
+    """Mean and variance of log s2 per cell for unit-variance errors drawn from
+    ``pool`` (a pilot simulation), as (J, K) arrays; the normal-theory values
+    psi(d/2) - log(d/2) and psi'(d/2) where the pilot has too few positive s2."""
+    shape = counts.shape
+    nn = counts.ravel()
+    live = nn > 1
+    d = np.maximum(nn - 1.0, 1.0)
+    centre = special.digamma(d / 2.0) - np.log(d / 2.0)
+    svar = special.polygamma(1, d / 2.0)
+    _, css = _simulate_cells(rng, nn[live], pool, reps)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ls = np.log(css / (nn[live] - 1.0))
+    fin = np.isfinite(ls)
+    cnt = fin.sum(axis=0)
+    ok = cnt >= reps // 2
+    ls = np.where(fin, ls, 0.0)
+    mu = ls.sum(axis=0) / np.maximum(cnt, 1)
+    var = ((np.where(fin, ls - mu, 0.0)) ** 2).sum(axis=0) / np.maximum(cnt - 1, 1)
+    idx = np.nonzero(live)[0]
+    centre[idx[ok]] = mu[ok]
+    svar[idx[ok]] = var[ok]
+    return centre.reshape(shape), svar.reshape(shape)
+
+
+def _check_replications(R) -> int:
+    if isinstance(R, bool) or not isinstance(R, (int, np.integer)) or R < 0:
+        raise OptionError(f"replications: expected a whole number >= 0, found {R!r}; "
+                          f"try {DEFAULT_REPLICATIONS} (0 turns the size check off)")
+    return int(R)
+
+
+def _check_seed(seed):
+    if seed is None:
+        return None
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise OptionError(f"seed: expected a whole number >= 0, found {seed!r}")
+    return int(seed)
+
+
+def _pct(x: float) -> str:
+    return f"{100 * x:.1f}%"
+
+
+def _status(k: int, R: int, alpha: float) -> tuple[str, tuple[float, float], str]:
+    lo, hi = clopper_pearson(k, R)
+    size = k / R
+    said = (f"rejects a true null in {_pct(size)} of {R} simulated datasets shaped like these "
+            f"(99% interval {_pct(lo)}-{_pct(hi)}) at alpha = {alpha:g}")
+    if lo > LIBERAL_MULTIPLE * alpha:
+        return "liberal", (lo, hi), f"liberal here: {said}; the interval lies above {LIBERAL_MULTIPLE:g} x alpha"
+    if hi < CONSERVATIVE_FRACTION * alpha:
+        return "conservative", (lo, hi), (f"conservative here: {said}; the interval lies below "
+                                          f"{CONSERVATIVE_FRACTION:g} x alpha (loss of power)")
+    return "ok", (lo, hi), f"size near alpha: {said}"
+
+
+def _not_run(method, effect, reason, R=0) -> CalibrationRow:
+    return CalibrationRow(method=method, effect=effect, size=None, interval=None, rejections=None,
+                          replications=0, undefined=0, status="not-run", reason=reason)
+
+
+def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_REPLICATIONS,
+               seed: int | None = None, methods=CALIBRATED_METHODS, effects=EFFECTS,
+               prior_df="auto") -> Calibration:
+    """Estimate each analytic method's Type I error on data shaped like this one.
+
+    Parameters
+    ----------
+    fit : Fit
+        The fitted design (data mode or summary mode).
+    alpha : float, optional
+        Significance level (default ``fit.alpha``).
+    replications : int, default 2000
+        R, the number of simulated null datasets; 0 turns the check off (every
+        row 'not-run').
+    seed : int, optional
+        Seed of the simulation (same seed, same result).
+    methods : sequence of str
+        Method ids; those without a cell-statistic form get a 'not-run' row.
+    effects : sequence of str
+        Effects to check ('A', 'B', 'AB').
+    prior_df : 'auto' or float
+        Prior df of the moderated cell variances ('auto': estimated, Smyth
+        2004; 0: the cells' own variances; inf: equal variances).
+
+    Returns
+    -------
+    Calibration
+    """
+    from ..fit import check_alpha
+
+    alpha = check_alpha(fit.alpha if alpha is None else alpha)
+    R = _check_replications(replications)
+    seed = _check_seed(seed)
+    methods = tuple(methods)
+    for e in effects:
+        if e not in EFFECTS:
+            raise OptionError(f"effects: expected effects among {EFFECTS}, found {e!r}")
+    effects = tuple(e for e in EFFECTS if e in effects)
+    cells = fit.cells
+    J, K = cells.J, cells.K
+    counts = cells.counts
+    filled = counts.ravel() > 0
+    n = counts.ravel()[filled]
+    notes = [
+        "the simulated datasets keep this dataset's cell sizes, its (moderated) cell variances and "
+        "its residual shape; those are estimates, so the check describes data like these, not the "
+        "unknown truth",
+        "independence of the observations is assumed by the simulation and cannot be checked from the data",
+        "resampling and rank methods are not simulated here: their trust comes from the rule table",
+    ]
+    rng = np.random.default_rng(seed)
+    pool = None
+    extra_notes = []
+    if fit.obs is not None and R > 0:
+        pool = _standardised_pool(fit)
+        if pool.size < 2:
+            pool = None
+            extra_notes.append("no cell has two or more distinct values: normal errors simulated instead "
+                               "of resampled residuals")
+    sampling = None
+    if pool is not None and isinstance(prior_df, str) and (n > 1).any():
+        # the sampling spread of log s2 under this residual shape, from a pilot on residuals
+        # standardised by the normal-theory moderated SDs (standardising by each cell's own
+        # SD would clip the tails of small cells and understate that spread)
+        post1, _, _ = moderated_variances(cells.variances, counts, prior_df=math.inf)
+        pilot_pool = _standardised_pool(fit, np.sqrt(post1))
+        if pilot_pool.size >= 2:
+            sampling = _pilot_log_variance(rng, counts, pilot_pool)
+    post, d0, pooled = moderated_variances(cells.variances, counts, prior_df=prior_df, sampling=sampling)
+    if isinstance(prior_df, str):
+        smethod = "equal" if math.isinf(d0) else "moderated"
+    else:
+        smethod = "equal" if math.isinf(d0) else ("none" if d0 == 0 else "fixed-prior")
+    sd_cells = np.sqrt(post)
+    snote = {
+        "moderated": f"cell variances moderated toward the pooled variance with prior df d0 = {d0:.3g} "
+                     "estimated from the spread of the log cell variances (Smyth 2004)",
+        "equal": "the log cell variances vary no more than sampling error explains (or equal variances were "
+                 "asked for): every cell simulated with the pooled variance (complete moderation)",
+        "none": "each cell simulated with its own variance (no moderation)",
+        "fixed-prior": f"cell variances moderated toward the pooled variance with a given prior df d0 = {d0:.3g}",
+    }[smethod]
+    zero_sd = (counts > 1) & (np.nan_to_num(cells.variances) == 0)
+    if zero_sd.any():
+        snote += (f"; {int(zero_sd.sum())} cell(s) with zero SD (ties or rounding?) "
+                  + ("keep zero variance" if smethod == "none" else "take the moderated variance"))
+    cell_sd_json = [[(float(x) if np.isfinite(x) else None) for x in row] for row in sd_cells]
+    shrink = Shrinkage(method=smethod, prior_df=None if math.isinf(d0) else float(d0),
+                       complete=bool(math.isinf(d0)),
+                       target_variance=float(pooled) if np.isfinite(pooled) else None,
+                       cell_sd=cell_sd_json, note=snote)
+
+    def result(rows, source, enote, extra_notes=()):
+        return Calibration(alpha=alpha, replications=R, seed=seed, error_source=source, error_note=enote,
+                           shrinkage=shrink, liberal_multiple=LIBERAL_MULTIPLE,
+                           conservative_fraction=CONSERVATIVE_FRACTION, interval_level=INTERVAL_LEVEL,
+                           rows=tuple(rows), notes=tuple(notes) + tuple(extra_notes))
+
+    # ---- reasons a method cannot run at all
+    all_filled = bool(filled.all())
+    df_e = int(n.sum() - n.size)
+    blocked: dict[str, str] = {}
+    for mth in methods:
+        if mth not in CALIBRATED_METHODS:
+            blocked[mth] = ("not simulated: this method has no cell-statistic form (it needs resampling or "
+                            "ranks inside every simulated dataset); its trust comes from the rule table")
+        elif R == 0:
+            blocked[mth] = "size check turned off (replications = 0)"
+        elif df_e <= 0:
+            blocked[mth] = "no within-cell degrees of freedom (one observation per cell): nothing to simulate"
+        elif mth != "classical-f" and not all_filled:
+            blocked[mth] = f"not run: {mth} needs every cell filled ({int((~filled).sum())} empty cell(s))"
+        elif mth != "classical-f" and (n < 2).any():
+            blocked[mth] = (f"not run: {mth} needs n >= 2 in every cell ({int((n < 2).sum())} cell(s) with "
+                            "one observation)")
+        elif mth != "classical-f" and not np.all(sd_cells.ravel()[filled] > 0):
+            blocked[mth] = f"not run: {mth} cannot be formed with zero-variance cells"
+    runnable = [mth for mth in methods if mth not in blocked]
+
+    source, enote = "none", "not simulated"
+    if runnable:
+        if pool is not None:
+            source = "resampled-residuals"
+            enote = (f"errors resampled from the {pool.size} pooled standardised residuals "
+                     "(e_i / s_cell * sqrt(n/(n-1))) and rescaled to each cell's SD")
+        else:
+            source = "normal"
+            enote = ("normal errors (only cell summaries are known, so the residual shape cannot be kept)"
+                     if fit.obs is None else "normal errors (no usable residuals)")
+    sims = {}
+    if runnable:
+        zm, zc = _simulate_cells(rng, n, pool, R)
+        sd = sd_cells.ravel()[filled]
+        means = zm * sd
+        css = zc * sd * sd
+        with np.errstate(divide="ignore", invalid="ignore"):
+            var = np.where(n > 1, css / np.maximum(n - 1, 1), np.nan)
+        C3 = _type3(J, K) if all_filled else None
+        for mth in runnable:
+            if mth == "classical-f":
+                fb = classical_f_batch(means, css, n, J, K, filled=filled)
+                for e in effects:
+                    F, d1, d2 = fb[e]
+                    if d1 <= 0:
+                        sims[(mth, e)] = f"not run: the {e} effect has no degrees of freedom in the filled cells"
+                        continue
+                    p = np.full(F.shape, np.nan)
+                    ok = np.isfinite(F)
+                    p[ok] = stats.f.sf(F[ok], d1, d2)
+                    sims[(mth, e)] = p
+            else:
+                for e in effects:
+                    with np.errstate(all="ignore"):
+                        if mth == "welch-james":
+                            p = welch_james_batch(means, var, n, C3[e])[2]
+                        else:
+                            p = hc_wald_batch(means, css, n, C3[e], kind=mth.split("-")[0])[1]
+                    sims[(mth, e)] = p
+
+    rows = []
+    for mth in methods:
+        for e in effects:
+            if mth in blocked:
+                rows.append(_not_run(mth, e, blocked[mth]))
+                continue
+            p = sims[(mth, e)]
+            if isinstance(p, str):
+                rows.append(_not_run(mth, e, p))
+                continue
+            ok = np.isfinite(p)
+            used = int(ok.sum())
+            und = int(R - used)
+            if used == 0:
+                rows.append(CalibrationRow(method=mth, effect=e, size=None, interval=None, rejections=None,
+                                           replications=0, undefined=und, status="not-run",
+                                           reason="not run: the method could not be computed on any simulated dataset"))
+                continue
+            k = int(np.sum(p[ok] < alpha))
+            status, ci, reason = _status(k, used, alpha)
+            if und:
+                reason += f"; {und} simulated dataset(s) where it could not be computed are left out"
+            rows.append(CalibrationRow(method=mth, effect=e, size=k / used, interval=ci, rejections=k,
+                                       replications=used, undefined=und, status=status, reason=reason))
+    return result(rows, source, enote, extra_notes)
