@@ -89,7 +89,7 @@ TRUST_RULES: tuple[TrustRule, ...] = (
               source="Long & Ervin 2000; Cribari-Neto 2004"),
     TrustRule(id="equal-variance-unequal-n", methods=("classical-f", "permutation-freedman-lane",
                                                       "permutation-ter-braak"),
-              when="the homogeneity check grades the unequal variances warning or serious: given how they "
+              when="without a size check: the homogeneity check grades the unequal variances warning or serious: given how they "
                    "pair with the cell sizes they move the classical F's level well away from alpha (liberal "
                    "when large variances sit in small cells, conservative in the reverse)",
               source="Box 1954; Glass, Peckham & Sanders 1972; Anderson & ter Braak 2003; METHODS.md 10a "
@@ -106,7 +106,10 @@ TRUST_RULES: tuple[TrustRule, ...] = (
               when="no size check was run: HC4 with the F(q, N - m) reference runs warm even on clean data",
               source="METHODS.md 10a (size .066, 99% CI .054-.080, pooled over clean conditions)"),
     TrustRule(id="size-check-liberal", methods=("*",),
-              when="the size check on null datasets shaped like this one finds the method liberal",
+              when="the size check on null datasets shaped like this one finds the method liberal (the "
+                   "classical F's row also speaks for the residual permutations, which lean on the same "
+                   "equal-variance assumption); when it finds the classical F's size acceptable, the "
+                   "equal-variance rule above is not applied",
               source="METHODS.md 10b; this dataset's size check"),
     TrustRule(id="tukey-only-form", methods=("tukey-one-df",),
               when="never withdrawn, but it detects only the multiplicative (a_j b_k) form of interaction",
@@ -114,6 +117,11 @@ TRUST_RULES: tuple[TrustRule, ...] = (
 )
 
 _RULES = {r.id: r for r in TRUST_RULES}
+
+#: methods whose validity rests on equal variances like the classical F's; the
+#: classical F's size-check row speaks for all three (METHODS.md 10a: their
+#: sizes move together under every condition measured)
+_EQUAL_VARIANCE_METHODS = ("classical-f", "permutation-freedman-lane", "permutation-ter-braak")
 
 #: the trimming proportion of the trimmed Welch-James test
 TRIM = 0.2
@@ -168,7 +176,8 @@ def _distorts_classical(h) -> bool:
     return bool(h is not None and h.distorts_classical)
 
 
-def _one(m, *, min_n: int, min_kept: int, unequal_n: bool, homog, indep, calib_row, alpha: float, self_check_ok) -> MethodTrust:
+def _one(m, *, min_n: int, min_kept: int, unequal_n: bool, homog, indep, calib_row, calib_f, alpha: float,
+         self_check_ok) -> MethodTrust:
     mid, eff = m.id, m.effect
 
     def no(rule: str, reason: str) -> MethodTrust:
@@ -200,11 +209,18 @@ def _one(m, *, min_n: int, min_kept: int, unequal_n: bool, homog, indep, calib_r
                                       "each cell's spread and mean deviation")
     if mid in ("hc3-wald", "hc4-wald") and min_n <= 1:
         return no("hc-single", "a cell has a single observation, whose leverage is 1")
-    if mid in ("classical-f", "permutation-freedman-lane", "permutation-ter-braak") and _distorts_classical(homog):
-        side = {"negative": "large variances sit in small cells (liberal)",
-                "positive": "large variances sit in large cells (conservative)"}.get(
-            homog.pairing, "variances differ across cells of unequal size")
-        return no("equal-variance-unequal-n", f"it assumes equal variances, and here {side}")
+    if mid in _EQUAL_VARIANCE_METHODS:
+        ref = calib_f if calib_f is not None else None
+        if ref is not None and ref.status == "liberal":
+            like = "" if mid == "classical-f" else "it leans on equal variances like the classical F, which "
+            return no("size-check-liberal", f"{like}on data shaped like yours "
+                                            f"{'it ' if not like else ''}rejects a true null about {_pct(ref.size)} "
+                                            f"of the time (alpha {alpha:g})")
+        if ref is None and _distorts_classical(homog):
+            side = {"negative": "large variances sit in small cells, which makes it liberal",
+                    "positive": "large variances sit in large cells, which makes it conservative"}.get(
+                homog.pairing, "the cell variances differ enough to move its level away from alpha")
+            return no("equal-variance-unequal-n", f"it assumes equal variances, and here {side}")
     if mid == "aligned-rank-transform" and homog is not None and homog.unequal_variances:
         return no("art-unequal-variances", "the aligned rank transform runs liberal when variances differ "
                                            "across cells, as they do here")
@@ -224,6 +240,8 @@ def _one(m, *, min_n: int, min_kept: int, unequal_n: bool, homog, indep, calib_r
                   f"{_pct(calib_row.size)} of the time")
     elif calib_row is not None and getattr(calib_row, "status", None) == "ok":
         reason = f"no rule applies, and its size on data shaped like yours is about {_pct(calib_row.size)}"
+        if calib_row.size > 1.2 * alpha:
+            reason += " (somewhat above alpha, not clearly so)"
     elif mid == "tukey-one-df":
         reason = "the only test of interaction with one observation per cell; it detects only the " \
                  "multiplicative form"
@@ -261,16 +279,20 @@ def assess_trust(methods, *, counts, alpha: float, homogeneity=None, independenc
     min_kept = int(trimmed_kept(filled).min()) if filled.size else 0
     unequal_n = bool(filled.size and filled.max() != filled.min())
     out = []
+
+    def crow(mid, eff):
+        if calibration is None:
+            return None
+        try:
+            r = calibration.row(mid, eff)
+        except KeyError:
+            return None
+        return None if getattr(r, "status", None) == "not-run" else r
+
     for m in methods:
-        row = None
-        if calibration is not None:
-            try:
-                row = calibration.row(m.id, m.effect)
-            except KeyError:
-                row = None
-        if row is not None and getattr(row, "status", None) == "not-run":
-            row = None
+        row = crow(m.id, m.effect)
         sc = (self_checks or {}).get((m.id, m.effect))
         out.append(_one(m, min_n=min_n, min_kept=min_kept, unequal_n=unequal_n, homog=homogeneity, indep=independence,
-                        calib_row=row, alpha=alpha, self_check_ok=sc))
+                        calib_row=row, calib_f=crow("classical-f", m.effect), alpha=alpha,
+                        self_check_ok=sc))
     return tuple(out)
