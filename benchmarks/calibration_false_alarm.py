@@ -29,7 +29,6 @@ sys.path.insert(0, ROOT)
 from audit.design import cells_from_observations  # noqa: E402
 from audit.fit import Fit  # noqa: E402
 from audit.core import anova_two_way  # noqa: E402
-from audit.intake import Observations  # noqa: E402,F401
 from audit.verdict.calibration import size_check  # noqa: E402
 
 U3 = np.array([[4, 12, 8], [16, 6, 10], [9, 14, 5]])

@@ -172,6 +172,11 @@ def test_same_seed_same_result_and_chunking_does_not_matter(monkeypatch):
     assert a == b and a.to_dict() == b.to_dict()
     c = size_check(fit, replications=500, seed=43)
     assert c.to_dict()["rows"] != a.to_dict()["rows"]
+    # the generator is consumed row by row, so the chunk size does not change the draws
+    import audit.verdict.calibration as cal
+
+    monkeypatch.setattr(cal, "_CHUNK_ELEMENTS", 3 * fit.cells.N)
+    assert size_check(fit, replications=500, seed=42) == a
 
 
 def test_summary_mode_uses_normal_errors_and_says_so():
