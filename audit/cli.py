@@ -111,9 +111,6 @@ def _fail(message: str) -> int:
 def _run_check(args, written: list) -> int:
     from ._io import (check_file_target, check_folder_target, refuse_folder_overlap, refuse_input_overlap,
                       replace_folder, write_file)
-    from .api import check
-    from .render.text import render_text
-
     inputs = [args.data]
     known = {REPORT_TEXT, REPORT_JSON}
     if args.json and args.json != "-":
@@ -126,6 +123,9 @@ def _run_check(args, written: list) -> int:
         refuse_input_overlap(args.report, inputs, option="--report")
         refuse_folder_overlap(args.report, inputs)
         check_folder_target(args.report, known=known)
+
+    from .api import check  # the heavy imports only after the output paths passed
+    from .render.text import render_text
 
     findings = check(
         args.data, response=args.response, factors=tuple(args.factors), alpha=args.alpha,
@@ -166,17 +166,18 @@ def main(argv: list[str] | None = None) -> int:
     output path, 130 interrupted by Ctrl-C, 143 stopped by SIGTERM)."""
     from .errors import AuditInputError
 
-    parser = build_parser()
-    args = parser.parse_args(argv)
-    if args.command is None:
-        parser.print_help(sys.stderr)
-        return 2
     previous = {}
     if threading.current_thread() is threading.main_thread():
         for s in _SIGNAL_EXIT:
             previous[s] = signal.signal(s, _on_signal)
     written: list[str] = []
+    args = None
     try:
+        parser = build_parser()
+        args = parser.parse_args(argv)
+        if args.command is None:
+            parser.print_help(sys.stderr)
+            return 2
         if args.command == "check":
             return _run_check(args, written)
     except AuditInputError as exc:
@@ -192,8 +193,8 @@ def main(argv: list[str] | None = None) -> int:
         sys.stderr.write(f"{PROG}: {what}{_clean(done)}\n")
         return code
     except MemoryError:
-        return _fail(f"out of memory (the data set or --resamples {args.resamples} is too large for this "
-                     "machine); try fewer resamples, e.g. --resamples 9999")
+        return _fail(f"out of memory (the data set or --resamples {getattr(args, 'resamples', '')} is too large "
+                     "for this machine); try fewer resamples, e.g. --resamples 9999")
     except OSError as exc:  # e.g. an output folder that cannot be written
         return _fail(f"{exc.strerror or exc}: {exc.filename or ''}")
     finally:

@@ -8,8 +8,10 @@ from __future__ import annotations
 
 import math
 import unicodedata
+from typing import TYPE_CHECKING
 
-from ..findings import Findings
+if TYPE_CHECKING:  # annotations only: keeps sanitize() importable without the numerical stack
+    from ..findings import Findings
 
 __all__ = ["render_text", "sanitize"]
 
