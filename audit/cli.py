@@ -16,6 +16,7 @@ import os
 import signal
 import sys
 import threading
+import warnings
 
 __all__ = ["main", "build_parser"]
 
@@ -127,12 +128,16 @@ def _run_check(args, written: list) -> int:
     from .api import check  # the heavy imports only after the output paths passed
     from .render.text import render_text
 
-    findings = check(
-        args.data, response=args.response, factors=tuple(args.factors), alpha=args.alpha,
-        levels=dict(args.levels) or None, order=args.order, unit=args.unit,
-        resamples=args.resamples, seed=args.seed, diagnostics=not args.no_diagnostics,
-        methods=not args.no_methods, figures=bool(args.report), progress=sys.stderr.isatty(),
-    )
+    with warnings.catch_warnings():
+        # floating-point RuntimeWarnings from numpy/scipy inside a run are not messages for the
+        # user (results carry their own notes); scoped to this run, library callers still see them
+        warnings.filterwarnings("ignore", category=RuntimeWarning)
+        findings = check(
+            args.data, response=args.response, factors=tuple(args.factors), alpha=args.alpha,
+            levels=dict(args.levels) or None, order=args.order, unit=args.unit,
+            resamples=args.resamples, seed=args.seed, diagnostics=not args.no_diagnostics,
+            methods=not args.no_methods, figures=bool(args.report), progress=sys.stderr.isatty(),
+        )
     text = render_text(findings)
     js = (findings.to_json() + "\n").encode("utf-8")
     if args.json == "-":
