@@ -238,7 +238,7 @@ def _write_through(path: str, data: bytes, shown) -> None:
         raise os_error(exc, shown) from None
 
 
-def _atomic(target: str, write: Callable[[str], None], shown, *, suffix: str = "") -> None:
+def _atomic(target: str, write: Callable[[str], None], shown, *, suffix: str = "", on_done=None) -> None:
     folder = os.path.dirname(os.path.abspath(target))
     try:
         os.makedirs(folder, exist_ok=True)
@@ -255,6 +255,8 @@ def _atomic(target: str, write: Callable[[str], None], shown, *, suffix: str = "
         os.chmod(tmp, mode)
         with signals_deferred():
             os.replace(tmp, target)
+            if on_done is not None:
+                on_done()
     except OSError as exc:
         _unlink_quiet(tmp)
         raise os_error(exc, shown) from None
@@ -270,15 +272,18 @@ def _write_bytes_to(tmp: str, data: bytes) -> None:
         os.fsync(fh.fileno())
 
 
-def write_file(path, data: bytes, *, shown=None) -> None:
-    """Write ``data`` to ``path`` by the rules in the module docstring."""
+def write_file(path, data: bytes, *, shown=None, on_done=None) -> None:
+    """Write ``data`` to ``path`` by the rules in the module docstring; ``on_done()``
+    is called once the file is in place (before a pending interrupt is delivered)."""
     path = os.fspath(path)
     shown = path if shown is None else shown
     how, target = check_file_target(path, shown=shown)
     if how == "through":
         _write_through(target, data, shown)
+        if on_done is not None:
+            on_done()
     else:
-        _atomic(target, lambda tmp: _write_bytes_to(tmp, data), shown)
+        _atomic(target, lambda tmp: _write_bytes_to(tmp, data), shown, on_done=on_done)
 
 
 def atomic_write_with(path, write: Callable[[str], None], *, suffix: str = "", shown=None) -> None:
@@ -396,11 +401,13 @@ def _swap_in(new: str, path: str) -> list[str]:
     raise OSError(errno.EBUSY, "the folder kept changing during the swap", path)
 
 
-def replace_folder(folder, build: Callable[[str], Iterable[str]], *, known: Iterable[str], shown=None) -> None:
+def replace_folder(folder, build: Callable[[str], Iterable[str]], *, known: Iterable[str], shown=None,
+                   on_done=None) -> None:
     """Build a report folder in a temporary sibling with ``build(tmp)`` (returns
     the file names written), add the manifest, then move it onto ``folder`` in
     one step.  On any failure or interrupt the temporary folder is removed and
-    the previous folder is left whole."""
+    the previous folder is left whole.  ``on_done()`` is called once the new
+    folder is in place (before a pending interrupt is delivered)."""
     shown = folder if shown is None else shown
     known = set(known)
     path = _folder_path(folder)
@@ -430,6 +437,8 @@ def replace_folder(folder, build: Callable[[str], Iterable[str]], *, known: Iter
             for p in pending:
                 shutil.rmtree(p, ignore_errors=True)
             pending = []
+            if on_done is not None:
+                on_done()
     finally:
         for p in pending:
             shutil.rmtree(p, ignore_errors=True)

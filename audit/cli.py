@@ -103,6 +103,9 @@ def _clean(text) -> str:
     return sanitize(str(text))
 
 
+from .errors import OutputError  # noqa: E402  (light: no numerical imports)
+
+
 def _fail(message: str) -> int:
     sys.stdout.flush()
     sys.stderr.write(f"{PROG}: error: {_clean(message)}\n")
@@ -110,11 +113,21 @@ def _fail(message: str) -> int:
 
 
 def _run_check(args, written: list) -> int:
-    from ._io import (check_file_target, check_folder_target, refuse_folder_overlap, refuse_input_overlap,
+    from ._io import (MANIFEST, check_file_target, check_folder_target, refuse_folder_overlap, refuse_input_overlap,
                       replace_folder, write_file)
     inputs = [args.data]
     known = {REPORT_TEXT, REPORT_JSON}
-    if args.json and args.json != "-":
+    json_name = None  # set when --json names a file directly inside the report folder: written with it
+    if args.json and args.json != "-" and args.report:
+        if os.path.realpath(os.path.dirname(os.path.abspath(args.json))) == os.path.realpath(args.report):
+            json_name = os.path.basename(args.json)
+            from .render.figures import FIGURE_FILES
+
+            if json_name in {REPORT_TEXT, MANIFEST, *FIGURE_FILES.values()}:
+                raise OutputError(f"--json {args.json!r} is a file the report folder itself holds; "
+                                  f"choose another name (the folder has its own {REPORT_JSON})")
+            known.add(json_name)
+    if args.json and args.json != "-" and json_name is None:
         refuse_input_overlap(args.json, inputs, option="--json")
         check_file_target(args.json)
     if args.report:
@@ -154,15 +167,18 @@ def _run_check(args, written: list) -> int:
             with open(os.path.join(tmp, REPORT_JSON), "wb") as fh:
                 fh.write(js)
             figs = write_figures(findings.figure_data, tmp)
-            return [REPORT_TEXT, REPORT_JSON, *(os.path.basename(p) for p in figs)]
+            names = [REPORT_TEXT, REPORT_JSON, *(os.path.basename(p) for p in figs)]
+            if json_name is not None and json_name not in names:
+                with open(os.path.join(tmp, json_name), "wb") as fh:
+                    fh.write(js)
+                names.append(json_name)
+            return names
 
-        replace_folder(args.report, build, known=known)
-        written.append(f"report folder {args.report!r}")
-    if args.json and args.json != "-":
-        # after the report folder, so a JSON path inside that folder is not swept away with the old one
+        replace_folder(args.report, build, known=known,
+                       on_done=lambda: written.append(f"report folder {args.report!r}"))
+    if args.json and args.json != "-" and json_name is None:
         refuse_input_overlap(args.json, inputs, option="--json")
-        write_file(args.json, js)
-        written.append(f"JSON {args.json!r}")
+        write_file(args.json, js, on_done=lambda: written.append(f"findings JSON {args.json!r}"))
     return 0
 
 
@@ -200,6 +216,10 @@ def main(argv: list[str] | None = None) -> int:
     except MemoryError:
         return _fail(f"out of memory (the data set or --resamples {getattr(args, 'resamples', '')} is too large "
                      "for this machine); try fewer resamples, e.g. --resamples 9999")
+    except BrokenPipeError:  # the reader of standard output went away (e.g. `| head`): stop quietly
+        with contextlib.suppress(OSError):
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 1
     except OSError as exc:  # e.g. an output folder that cannot be written
         return _fail(f"{exc.strerror or exc}: {exc.filename or ''}")
     finally:
