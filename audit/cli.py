@@ -18,6 +18,8 @@ import sys
 import threading
 import warnings
 
+from .errors import OutputError
+
 __all__ = ["main", "build_parser"]
 
 PROG = "twoway-audit"
@@ -102,8 +104,6 @@ def _clean(text) -> str:
 
     return sanitize(str(text))
 
-
-from .errors import OutputError  # noqa: E402  (light: no numerical imports)
 
 
 def _fail(message: str) -> int:

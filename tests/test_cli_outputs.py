@@ -137,7 +137,19 @@ def test_report_folder_holding_the_input_is_refused(tmp_path):
     # the input file itself given as the report folder
     one_line_error(run("check", "rdir/report.txt", *OPTS, *QUICK, "--report", "rdir/report.txt",
                        cwd=tmp_path), "input")
-    assert inp.unchanged()
+    # a folder holding a hard link to the input (under a name the report writes)
+    (tmp_path / "old").mkdir()
+    os.link(inp.path, tmp_path / "old" / "report.txt")
+    one_line_error(run("check", "rdir/report.txt", *OPTS, *QUICK, "--report", "old", cwd=tmp_path),
+                   "'old'", "hard link")
+    assert inp.unchanged() and os.listdir(tmp_path / "old") == ["report.txt"]
+
+
+def test_json_onto_a_report_file_is_refused(tmp_path):
+    inp = Input(tmp_path / "v.csv")
+    one_line_error(run("check", "v.csv", *OPTS, *QUICK, "--report", "rep", "--json", "rep/report.txt",
+                       cwd=tmp_path), "'rep/report.txt'")
+    assert not os.path.exists(tmp_path / "rep") and inp.unchanged()
 
 
 def test_report_folder_not_ours_is_refused(tmp_path):
@@ -295,12 +307,15 @@ def test_control_characters_are_escaped_and_markup_is_literal(tmp_path):
     odd = DATA.replace("a,", "\"a\x1b[2J\nz\",").replace("b,", "$\\undefinedmacro$,").replace("grp,trt", "grp,trt\tment")
     inp = Input(tmp_path / "v.csv", odd)
     r = run("check", "v.csv", "--response", "y", "--factors", "grp", "trt\tment", "--no-methods",
-            "--report", "rep", cwd=tmp_path)
+            "--report", "rep", "--json", "rep/extra.json", cwd=tmp_path)
     assert r.returncode == 0, r.stderr
     assert r.stderr == ""  # no warnings (missing glyphs, math text) on a successful run
     assert "\x1b" not in r.stdout and "a\\x1b[2J\\nz" in r.stdout and "trt\\tment" in r.stdout
     report = (tmp_path / "rep" / "report.txt").read_text()
     assert "\x1b" not in report and "\t" not in report and "$\\undefinedmacro$" in report
+    # a --json file inside the report folder is written with it and listed in its manifest
+    manifest = json.loads((tmp_path / "rep" / ".twoway-audit-report.json").read_text())
+    assert "extra.json" in manifest["files"] and (tmp_path / "rep" / "extra.json").read_text().startswith("{")
     assert inp.unchanged()
 
 
