@@ -13,20 +13,10 @@ import numpy as np
 
 from .core import AnovaResult, anova_two_way
 from .design import CellStats, cells_from_observations
-from .errors import OptionError
 from .intake import Observations
+from .options import check_alpha  # re-exported: the check lives in audit/options.py
 
 __all__ = ["Fit", "fit_observations", "fit_cells", "check_alpha"]
-
-
-def check_alpha(alpha) -> float:
-    try:
-        a = float(alpha)
-    except (TypeError, ValueError):
-        raise OptionError(f"alpha: expected a number between 0 and 1, found {alpha!r}") from None
-    if not (0.0 < a < 1.0):
-        raise OptionError(f"alpha: expected a number strictly between 0 and 1, found {alpha!r}; try 0.05")
-    return a
 
 
 @dataclass(frozen=True, kw_only=True)
