@@ -31,8 +31,7 @@ class _Parser(argparse.ArgumentParser):
 
         if "--factors" in message and "expected 2 argument" in message:
             message += "; give two names separated by a space: --factors COL_A COL_B"
-        sys.stderr.write(f"{PROG}: error: {sanitize(message)} (see '{PROG} {self._sub or ''} --help')
-"
+        sys.stderr.write(f"{PROG}: error: {sanitize(message)} (see '{PROG} {self._sub or ''} --help')\n"
                          .replace("  ", " "))
         raise SystemExit(2)
 
