@@ -329,7 +329,7 @@ def outliers(fit) -> Diagnostic:
     # SD without it, t_c = d n / (n - 1) / (s_(-i) sqrt(n / (n - 1))), on n_c - 2 df, with the same
     # Bonferroni cut-off over N (so it is "explained" when the cell's own spread makes it unremarkable)
     n_c = cells.counts.ravel()[cell].astype(float)
-    css_c = cells.css.ravel()[cell]
+    css_c = cells.standardised().css.ravel()[cell]   # same power-of-two units as e
     flagged = []
     for i in fl_idx[:_LIST_CAP]:
         nc = int(n_c[i])
