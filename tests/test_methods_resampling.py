@@ -173,15 +173,15 @@ def test_same_seed_same_numbers_and_chunk_independence():
     assert [r.to_dict() for r in a] == [r.to_dict() for r in b]
     # the generator is consumed row by row: tiny chunks give the same p-values
     small = _freedman_lane(fit, ("A", "B", "AB"), B_FAST, 5, None, budget=45 * 8 * 2 * 7)
-    assert [r.extra["chunk_size"] for r in small] == [7, 7, 7]
+    assert [r.extra["chunk_size"] for r in small] == [3, 3, 3]      # draws, index row, sums, statistic
     assert [r.p for r in small] == [r.p for r in a]
     s1 = _studentized(fit, ("AB",), B_FAST, 5, None)
     s2 = _studentized(fit, ("AB",), B_FAST, 5, None, budget=45 * 8 * 3 * 13)
-    assert s1[0].p == s2[0].p
+    assert s1[0].p == s2[0].p and s2[0].extra["chunk_size"] < 13
     w1 = wild_bootstrap(fit, resamples=B_FAST, seed=5)
     from audit.methods.bootstrap import _wild
     w2 = _wild(fit, ("AB",), B_FAST, 5, None, budget=45 * 8 * 3 * 10)[0]
-    assert w1.p == w2.p and w2.extra["chunk_size"] == 10
+    assert w1.p == w2.p and w2.extra["chunk_size"] < 10
 
 
 def test_seed_none_is_recorded_and_replayable():
