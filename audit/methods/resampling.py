@@ -269,6 +269,9 @@ def wald_statistic_maker(layout: Layout, Cs: list[np.ndarray], *, kind: str, sca
     # per hypothesis: the direct r x r form, or the null-space form when the
     # hypothesis has more rows than its complement (e.g. the interaction, r = (J-1)(K-1))
     bases = [null_space_basis(C) if C.shape[0] > m - C.shape[0] else None for C in Cs]
+    # row-wise outer products of each basis, kept when small beside the budget
+    outer = [None if Z is None or 8 * m * Z.shape[1] ** 2 > MEMORY_BUDGET // 8
+             else (Z[:, :, None] * Z[:, None, :]).reshape(m, -1) for Z in bases]
     need = 0
     for C, Z in zip(Cs, bases):
         r = C.shape[0]
@@ -276,19 +279,19 @@ def wald_statistic_maker(layout: Layout, Cs: list[np.ndarray], *, kind: str, sca
             need = max(need, 8 * (2 * r * r + (4 if kind == "wj" else 1) * r * m + 4 * r))
         else:
             q = Z.shape[1]
-            need = max(need, 8 * ((4 if kind == "wj" else 2) * m * q + 3 * q * q + 4 * m))
+            need = max(need, 8 * ((3 if kind == "wj" else 1) * m * q + 3 * q * q + 6 * m))
 
     def fn(S, SQ):
         means = S / n
         css = np.maximum(SQ - S * means, 0.0)
         v = np.maximum(css / denom, floor / n)
         out = np.empty((S.shape[0], len(Cs)))
-        for e, (C, Z) in enumerate(zip(Cs, bases)):
+        for e, (C, Z, ZZ) in enumerate(zip(Cs, bases, outer)):
             if Z is None:
                 T = wald_quadratic(means, v, C)
                 A = welch_james_a(v, n - 1.0, C) if kind == "wj" else None
             else:
-                T, A = wald_null_form(means, v, Z, n - 1.0 if kind == "wj" else None)
+                T, A = wald_null_form(means, v, Z, n - 1.0 if kind == "wj" else None, ZZ=ZZ)
             if kind == "wj":
                 r = C.shape[0]
                 c = r + 2.0 * A - 6.0 * A / (r + 2.0)
@@ -304,12 +307,13 @@ def wald_statistic_maker(layout: Layout, Cs: list[np.ndarray], *, kind: str, sca
 
 def null_space_basis(C: np.ndarray) -> np.ndarray:
     """Orthonormal basis (m x (m - r)) of the null space of C (r x m, full row rank)."""
-    _, s, vt = np.linalg.svd(C, full_matrices=True)
-    rank = int((s > s[0] * 1e-10).sum())
-    return vt[rank:].T
+    r = C.shape[0]
+    q, _ = np.linalg.qr(C.T, mode="complete")
+    return np.ascontiguousarray(q[:, r:])
 
 
-def wald_null_form(means: np.ndarray, v: np.ndarray, Z: np.ndarray, dfs: np.ndarray | None = None):
+def wald_null_form(means: np.ndarray, v: np.ndarray, Z: np.ndarray, dfs: np.ndarray | None = None,
+                   ZZ: np.ndarray | None = None):
     """The Wald form T = (C ybar)' (C V C')^-1 (C ybar), V = diag(v), and Johansen's A,
     through the null space of C instead of the r x r matrix C V C'.
 
@@ -326,25 +330,32 @@ def wald_null_form(means: np.ndarray, v: np.ndarray, Z: np.ndarray, dfs: np.ndar
         Basis of the null space of C (:func:`null_space_basis`).
     dfs : ndarray (m,), optional
         Degrees of freedom f_jk for Johansen's A = sum (1 - h)^2 / f; None skips A.
+    ZZ : ndarray (m, q * q), optional
+        Row-wise outer products of Z (precomputed once per hypothesis); turns
+        the b normal-equation matrices into one matrix product.
 
     Returns
     -------
     T : ndarray (b,)
     A : ndarray (b,) or None
     """
+    b, m = means.shape
+    q = Z.shape[1]
     w = 1.0 / v
-    Zw = Z[None, :, :] * w[:, :, None]                      # (b, m, q)
-    P = Z.T @ Zw                                            # (b, q, q)
-    rhs = np.einsum("bmq,bm->bq", Zw, means)
-    beta = np.linalg.solve(P, rhs[..., None])[..., 0]
+    if ZZ is not None:
+        P = (w @ ZZ).reshape(b, q, q)
+    else:
+        P = np.einsum("mq,bm,mr->bqr", Z, w, Z, optimize=True)
+    beta = np.linalg.solve(P, ((w * means) @ Z)[..., None])[..., 0]
     r = means - beta @ Z.T
-    beta2 = np.linalg.solve(P, np.einsum("bmq,bm->bq", Zw, r)[..., None])[..., 0]
+    beta2 = np.linalg.solve(P, ((w * r) @ Z)[..., None])[..., 0]
     r = r - beta2 @ Z.T                                     # one step of iterative refinement
     T = np.einsum("bm,bm->b", w * r, r)
     if dfs is None:
         return T, None
-    G = np.linalg.solve(P, np.swapaxes(Zw, 1, 2))           # (b, q, m) = P^-1 Z' W
-    h = np.einsum("mq,bqm->bm", Z, G)
+    Pinv = np.linalg.inv(P)                                 # (b, q, q)
+    ZP = (Z @ Pinv.transpose(1, 0, 2).reshape(q, b * q)).reshape(m, b, q)
+    h = w * np.einsum("mbq,mq->bm", ZP, Z)
     return T, np.sum((1.0 - h) ** 2 / dfs, axis=1)
 
 
