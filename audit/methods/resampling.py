@@ -196,9 +196,7 @@ def restricted_leverage(counts: np.ndarray, C: np.ndarray) -> np.ndarray:
     has rows b_c, so h_c = b_c' (B' W B)^-1 b_c, W = diag(n).  For the
     interaction this is the additive model's leverage.
     """
-    _, s, vt = np.linalg.svd(C, full_matrices=True)
-    rank = int((s > s[0] * 1e-10).sum())
-    Bn = vt[rank:].T                                    # (m, p_r)
+    Bn = null_space_basis(C)                            # (m, p_r)
     G = Bn.T @ (Bn * counts[:, None])
     return np.einsum("ij,jk,ik->i", Bn, np.linalg.inv(G), Bn)
 
