@@ -10,8 +10,24 @@ AuditInputError : base of the typed input errors
 
 __version__ = "0.1.0"
 
-from .api import check, check_summary  # noqa: E402
 from .errors import AuditInputError  # noqa: E402
-from .findings import Findings  # noqa: E402
 
 __all__ = ["check", "check_summary", "Findings", "AuditInputError", "__version__"]
+
+# The numerical modules load on first use, so the command line starts quickly
+# and installs its interrupt handling before any heavy import.
+_LAZY = {"check": "api", "check_summary": "api", "Findings": "findings"}
+
+
+def __getattr__(name):
+    if name in _LAZY:
+        import importlib
+
+        value = getattr(importlib.import_module(f".{_LAZY[name]}", __name__), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_LAZY))

@@ -14,8 +14,9 @@ import sys
 from . import __version__
 from .design import cells_from_summary, describe_design
 from .findings import Findings
-from .fit import check_alpha, fit_cells, fit_observations
+from .fit import fit_cells, fit_observations
 from .intake import load
+from .options import check_alpha, check_resamples, check_seed
 from .results import Diagnostic
 
 __all__ = ["check", "check_summary", "MAX_CALIBRATION"]
@@ -134,7 +135,9 @@ def check(
     audit.errors.AuditInputError
         Bad input, with a message naming the column or option at fault.
     """
-    alpha = check_alpha(alpha)
+    alpha = check_alpha(alpha)          # every option is checked before any data is read
+    resamples = check_resamples(resamples)
+    seed = check_seed(seed)
     claim, calibration, equivalence = _verdict_options(claim, calibration, equivalence, factors)
     obs = load(data, response=response, factors=factors, levels=levels, order=order, unit=unit,
                sheet=sheet, encoding=encoding, decimal=decimal)
@@ -271,6 +274,7 @@ def check_summary(
     Findings
     """
     alpha = check_alpha(alpha)
+    seed = check_seed(seed)
     claim, calibration, equivalence = _verdict_options(claim, calibration, equivalence, factors)
     cells = cells_from_summary(table, factors=tuple(factors), mean=mean, sd=sd, n=n, response=response)
     fit = fit_cells(cells, alpha=alpha)

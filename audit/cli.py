@@ -1,14 +1,24 @@
 """Command-line interface: parses arguments and calls the public API, nothing more.
 
-Bad input (a typed :class:`~audit.errors.AuditInputError`, a bad option) is
-printed as one line on stderr with exit status 2, never a traceback.
+Bad input (a typed :class:`~audit.errors.AuditInputError`, a bad option, an
+unsafe output path) is printed as one line on stderr with exit status 2, never a
+traceback; user strings in it are shown with control characters escaped.
+Ctrl-C (SIGINT) prints one line and exits 130, SIGTERM exits 143; temporary
+files are removed and the previous report folder is left whole.  Running out
+of memory prints one line and exits 2.
 """
 
 from __future__ import annotations
 
 import argparse
+import contextlib
 import os
+import signal
 import sys
+import threading
+import warnings
+
+from .errors import OutputError
 
 __all__ = ["main", "build_parser"]
 
@@ -17,9 +27,12 @@ PROG = "twoway-audit"
 
 class _Parser(argparse.ArgumentParser):
     def error(self, message: str):  # one line, exit 2
+        from .render.text import sanitize
+
         if "--factors" in message and "expected 2 argument" in message:
             message += "; give two names separated by a space: --factors COL_A COL_B"
-        sys.stderr.write(f"{PROG}: error: {message} (see '{PROG} {self._sub or ''} --help')\n".replace("  ", " "))
+        sys.stderr.write(f"{PROG}: error: {sanitize(message)} (see '{PROG} {self._sub or ''} --help')\n"
+                         .replace("  ", " "))
         raise SystemExit(2)
 
     _sub = ""
@@ -36,6 +49,7 @@ def _levels(spec: str):
 
 def build_parser() -> argparse.ArgumentParser:
     from . import __version__
+    from .options import MAX_RESAMPLES
 
     p = _Parser(prog=PROG, description="Audit the interaction test of a two-way factorial experiment.")
     p.add_argument("--version", action="version", version=f"{PROG} {__version__}")
@@ -57,61 +71,164 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--encoding", metavar="CODEC", help="text encoding, e.g. latin-1 (default: UTF-8 or UTF-16 with BOM)")
     c.add_argument("--decimal", metavar="MARK", help="decimal mark of the numbers: . (default) or ,")
     c.add_argument("--resamples", type=int, default=9999, metavar="B",
-                   help="resamples for each permutation/bootstrap method (default 9999; 0 skips them)")
-    c.add_argument("--seed", type=int, default=None,
-                   help="seed of the resampling methods (default: a fresh one, printed in the findings)")
+                   help="resamples for each permutation/bootstrap method (default 9999; 0 skips them; "
+                        f"at most {MAX_RESAMPLES:,})")
+    c.add_argument("--seed", type=int, metavar="N", default=None,
+                   help="seed of the resampling methods, 0 <= N < 2**63 (default: a fresh one, printed in "
+                        "the findings)")
     c.add_argument("--no-diagnostics", action="store_true", help="skip the assumption and design checks")
     c.add_argument("--no-methods", action="store_true", help="skip the alternative methods")
-    c.add_argument("--json", metavar="PATH", help="write the findings JSON to PATH ('-' for stdout only)")
-    c.add_argument("--report", metavar="DIR", help="write report.txt, findings.json and the figures into DIR")
+    c.add_argument("--json", metavar="PATH", help="write the findings JSON to PATH ('-' for stdout only); never onto the input file")
+    c.add_argument("--report", metavar="DIR", help="write report.txt, findings.json and the figures into DIR, replaced as a whole "
+                        "(DIR must be new, empty or an earlier report)")
     return p
 
 
-def _run_check(args) -> int:
-    from .api import check
-    from .render.text import render_text
-    from ._io import atomic_write_text
+REPORT_TEXT = "report.txt"
+REPORT_JSON = "findings.json"
 
-    findings = check(
-        args.data, response=args.response, factors=tuple(args.factors), alpha=args.alpha,
-        levels=args.levels or None, order=args.order, unit=args.unit,
-        sheet=args.sheet, encoding=args.encoding, decimal=args.decimal,
-        resamples=args.resamples, seed=args.seed, diagnostics=not args.no_diagnostics,
-        methods=not args.no_methods, figures=bool(args.report), progress=sys.stderr.isatty(),
-    )
+_SIGNAL_EXIT = {signal.SIGINT: 130, signal.SIGTERM: 143}
+
+
+class _Stopped(BaseException):
+    """Raised by the signal handler (SIGINT or SIGTERM) so that clean-up runs."""
+
+    def __init__(self, signum: int):
+        super().__init__(signum)
+        self.signum = signum
+
+
+def _on_signal(signum, frame):
+    for s in _SIGNAL_EXIT:  # a second signal must not cut the clean-up short
+        signal.signal(s, signal.SIG_IGN)
+    raise _Stopped(signum)
+
+
+def _clean(text) -> str:
+    from .render.text import sanitize
+
+    return sanitize(str(text))
+
+
+
+def _fail(message: str) -> int:
+    sys.stdout.flush()
+    sys.stderr.write(f"{PROG}: error: {_clean(message)}\n")
+    return 2
+
+
+def _run_check(args, written: list) -> int:
+    from ._io import (MANIFEST, check_file_target, check_folder_target, refuse_folder_overlap, refuse_input_overlap,
+                      replace_folder, write_file)
+    inputs = [args.data]
+    known = {REPORT_TEXT, REPORT_JSON}
+    json_name = None  # set when --json names a file directly inside the report folder: written with it
+    if args.json and args.json != "-" and args.report:
+        if os.path.realpath(os.path.dirname(os.path.abspath(args.json))) == os.path.realpath(args.report):
+            json_name = os.path.basename(args.json)
+            from .render.figures import FIGURE_FILES
+
+            if json_name in {REPORT_TEXT, MANIFEST, *FIGURE_FILES.values()}:
+                raise OutputError(f"--json {args.json!r} is a file the report folder itself holds; "
+                                  f"choose another name (the folder has its own {REPORT_JSON})")
+            known.add(json_name)
+    if args.json and args.json != "-" and json_name is None:
+        refuse_input_overlap(args.json, inputs, option="--json")
+        check_file_target(args.json)
+    if args.report:
+        from .render.figures import FIGURE_FILES
+
+        known |= set(FIGURE_FILES.values())
+        refuse_input_overlap(args.report, inputs, option="--report")
+        refuse_folder_overlap(args.report, inputs)
+        check_folder_target(args.report, known=known)
+
+    from .api import check  # the heavy imports only after the output paths passed
+    from .render.text import render_text
+
+    with warnings.catch_warnings():
+        # floating-point RuntimeWarnings from numpy/scipy inside a run are not messages for the
+        # user (results carry their own notes); scoped to this run, library callers still see them
+        warnings.filterwarnings("ignore", category=RuntimeWarning)
+        findings = check(
+            args.data, response=args.response, factors=tuple(args.factors), alpha=args.alpha,
+            levels=args.levels or None, order=args.order, unit=args.unit,
+            sheet=args.sheet, encoding=args.encoding, decimal=args.decimal,
+            resamples=args.resamples, seed=args.seed, diagnostics=not args.no_diagnostics,
+            methods=not args.no_methods, figures=bool(args.report), progress=sys.stderr.isatty(),
+        )
     text = render_text(findings)
-    js = findings.to_json()
+    js = (findings.to_json() + "\n").encode("utf-8")
     if args.json == "-":
-        sys.stdout.write(js + "\n")
+        sys.stdout.write(js.decode("utf-8"))
     else:
         sys.stdout.write(text)
-        if args.json:
-            atomic_write_text(args.json, js + "\n")
+    sys.stdout.flush()
     if args.report:
-        os.makedirs(args.report, exist_ok=True)
-        atomic_write_text(os.path.join(args.report, "report.txt"), text)
-        atomic_write_text(os.path.join(args.report, "findings.json"), js + "\n")
         from .render.figures import write_figures
 
-        write_figures(findings.figure_data, args.report)
+        def build(tmp: str) -> list[str]:
+            with open(os.path.join(tmp, REPORT_TEXT), "w", encoding="utf-8") as fh:
+                fh.write(text)
+            with open(os.path.join(tmp, REPORT_JSON), "wb") as fh:
+                fh.write(js)
+            figs = write_figures(findings.figure_data, tmp)
+            names = [REPORT_TEXT, REPORT_JSON, *(os.path.basename(p) for p in figs)]
+            if json_name is not None and json_name not in names:
+                with open(os.path.join(tmp, json_name), "wb") as fh:
+                    fh.write(js)
+                names.append(json_name)
+            return names
+
+        replace_folder(args.report, build, known=known,
+                       on_done=lambda: written.append(f"report folder {args.report!r}"))
+    if args.json and args.json != "-" and json_name is None:
+        refuse_input_overlap(args.json, inputs, option="--json")
+        write_file(args.json, js, on_done=lambda: written.append(f"findings JSON {args.json!r}"))
     return 0
 
 
 def main(argv: list[str] | None = None) -> int:
+    """Run the command line; returns the exit status (0 done, 2 bad input or
+    output path, 130 interrupted by Ctrl-C, 143 stopped by SIGTERM)."""
     from .errors import AuditInputError
 
-    parser = build_parser()
-    args = parser.parse_args(argv)
-    if args.command is None:
-        parser.print_help(sys.stderr)
-        return 2
+    previous = {}
+    if threading.current_thread() is threading.main_thread():
+        for s in _SIGNAL_EXIT:
+            previous[s] = signal.signal(s, _on_signal)
+    written: list[str] = []
+    args = None
     try:
+        parser = build_parser()
+        args = parser.parse_args(argv)
+        if args.command is None:
+            parser.print_help(sys.stderr)
+            return 2
         if args.command == "check":
-            return _run_check(args)
+            return _run_check(args, written)
     except AuditInputError as exc:
-        sys.stderr.write(f"{PROG}: error: {exc}\n")
-        return 2
+        return _fail(str(exc))
+    except (_Stopped, KeyboardInterrupt) as exc:
+        code = _SIGNAL_EXIT.get(getattr(exc, "signum", signal.SIGINT), 130)
+        what = "interrupted" if code == 130 else "stopped (SIGTERM)"
+        done = ("; only the " + " and the ".join(written) + " was written") if written else "; no output file written"
+        with contextlib.suppress(OSError, ValueError):
+            sys.stdout.flush()
+        if sys.stderr.isatty():
+            sys.stderr.write("\n")
+        sys.stderr.write(f"{PROG}: {what}{_clean(done)}\n")
+        return code
+    except MemoryError:
+        return _fail(f"out of memory (the data set or --resamples {getattr(args, 'resamples', '')} is too large "
+                     "for this machine); try fewer resamples, e.g. --resamples 9999")
+    except BrokenPipeError:  # the reader of standard output went away (e.g. `| head`): stop quietly
+        with contextlib.suppress(OSError):
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 1
     except OSError as exc:  # e.g. an output folder that cannot be written
-        sys.stderr.write(f"{PROG}: error: {exc.strerror or exc}: {exc.filename or ''}\n")
-        return 2
+        return _fail(f"{exc.strerror or exc}: {exc.filename or ''}")
+    finally:
+        for s, h in previous.items():
+            signal.signal(s, h)
     return 2

@@ -15,6 +15,7 @@ __all__ = [
     "ResponseError",
     "FactorError",
     "OptionError",
+    "OutputError",
 ]
 
 
@@ -40,3 +41,8 @@ class FactorError(AuditInputError):
 
 class OptionError(AuditInputError):
     """An option has a value outside its allowed range."""
+
+
+class OutputError(AuditInputError):
+    """An output path cannot be written safely (it is an input, a folder that is
+    not ours, a symbolic link leading elsewhere, or the disk is full)."""

@@ -13,20 +13,10 @@ import numpy as np
 
 from .core import AnovaResult, anova_two_way
 from .design import CellStats, cells_from_observations
-from .errors import OptionError
 from .intake import Observations
+from .options import check_alpha  # re-exported: the check lives in audit/options.py
 
 __all__ = ["Fit", "fit_observations", "fit_cells", "check_alpha"]
-
-
-def check_alpha(alpha) -> float:
-    try:
-        a = float(alpha)
-    except (TypeError, ValueError):
-        raise OptionError(f"alpha: expected a number between 0 and 1, found {alpha!r}") from None
-    if not (0.0 < a < 1.0):
-        raise OptionError(f"alpha: expected a number strictly between 0 and 1, found {alpha!r}; try 0.05")
-    return a
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -58,6 +48,31 @@ class Fit:
     @property
     def has_data(self) -> bool:
         return self.obs is not None
+
+    def standardised(self) -> "Fit":
+        """This fit in units of an exact power of two (``cells.standardised().unit``).
+
+        Cells, observations (``obs.y``), fitted values and residuals are all
+        divided by the same power of two, exactly, so scale-free quantities
+        (test statistics, p-values, ratios) computed from the copy equal those
+        of the original wherever the original's squares do not overflow or
+        underflow, and stay finite where they would.  The ANOVA is shared (its
+        F and p are already scale-free).
+        """
+        import dataclasses
+
+        cs = self.cells.standardised()
+        u = cs.unit
+        if u == 1.0:
+            return self
+
+        def div(a):
+            return None if a is None else np.asarray(a, dtype=float) / u
+
+        obs = dataclasses.replace(self.obs, y=self.obs.y / u) if self.obs is not None else None
+        return Fit(cells=cs, anova=self.anova, alpha=self.alpha, obs=obs, fitted_full=div(self.fitted_full),
+                   resid_full=div(self.resid_full), fitted_additive=div(self.fitted_additive),
+                   resid_additive=div(self.resid_additive))
 
 
 def fit_cells(cells: CellStats, *, alpha: float = 0.05) -> Fit:

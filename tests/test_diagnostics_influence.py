@@ -113,6 +113,64 @@ def test_loo_interaction_array_api_matches_refit_on_small_design():
         assert df1[i] == row["df"] and df2[i] == model.df_resid
 
 
+def _ref_ab_row_lean(y, a, b, drop):
+    """F and p of the interaction by comparing two least-squares fits after
+    deleting row ``drop``.  reference: numpy lstsq of the additive and the
+    cell-means dummy models (the model comparison that statsmodels anova_lm
+    performs), used where a formula refit of a 1,200-row design is too slow."""
+    keep = np.ones(y.size, bool)
+    keep[drop] = False
+    yy, aa, bb = y[keep], a[keep], b[keep]
+    J, K = int(a.max()) + 1, int(b.max()) + 1
+    Xa = np.hstack([np.eye(J)[aa], np.eye(K)[bb][:, 1:]])
+    Xf = np.eye(J * K)[aa * K + bb]
+    Xf = Xf[:, Xf.any(axis=0)]
+    ra = yy - Xa @ np.linalg.lstsq(Xa, yy, rcond=None)[0]
+    rf = yy - Xf @ np.linalg.lstsq(Xf, yy, rcond=None)[0]
+    df1 = Xf.shape[1] - np.linalg.matrix_rank(Xa)
+    df2 = yy.size - Xf.shape[1]
+    F = ((ra @ ra - rf @ rf) / df1) / ((rf @ rf) / df2)
+    return F, float(stats.f.sf(F, df1, df2)), df1, df2
+
+
+def test_loo_long_design_is_fast_and_exact():
+    # an L x 2 design with n = 2 per cell (L = 300, 1,200 rows): one closed-form pass,
+    # no solve per row or per cell (previously minutes)
+    import time
+
+    L = 300
+    rng = np.random.default_rng(12)
+    a = np.repeat(np.arange(L), 4)
+    b = np.tile([0, 0, 1, 1], L)
+    y = 50 + 0.2 * (a % 9) + 0.4 * b + 0.3 * (a % 5 == 0) * b + rng.normal(size=a.size)
+    t0 = time.perf_counter()
+    F, p, df1, df2 = loo_interaction(y, a * 2 + b, L, 2)
+    assert time.perf_counter() - t0 < 2.0
+    assert (df1 == L - 1).all() and (df2 == y.size - 1 - 2 * L).all()
+    for i in (0, 3, 517, 1199):
+        Fr, pr, d1, d2 = _ref_ab_row_lean(y, a, b, i)
+        # reference: comparison of the additive and cell-means least-squares fits (numpy lstsq)
+        assert_allclose([F[i], p[i]], [Fr, pr], rtol=1e-9)
+        assert (df1[i], df2[i]) == (d1, d2)
+
+
+def test_loo_when_one_cell_carries_the_interaction():
+    # a gross error makes one cell carry nearly all of the interaction SS; deleting it
+    # leaves a small Q that a short update formula would lose to cancellation
+    rng = np.random.default_rng(5)
+    counts = np.array([[3, 4, 3], [4, 3, 5], [3, 5, 4]])
+    cell = np.repeat(np.arange(9), counts.ravel())
+    a, b = cell // 3, cell % 3
+    y = 10.0 + rng.normal(size=cell.size)
+    y[np.flatnonzero(cell == 4)[1]] += 500.0
+    F, p, df1, df2 = loo_interaction(y, cell, 3, 3)
+    frame = pd.DataFrame({"yield_kg": y, "rootstock": a.astype(str), "pruning": b.astype(str)})
+    for i in range(cell.size):
+        row = anova_lm(smf.ols(FORMULA, data=frame.drop(index=i)).fit(), typ=2).loc[AB]
+        # reference: statsmodels anova_lm(typ=2) AB row of each refit
+        assert_allclose([F[i], p[i]], [row["F"], row["PR(>F)"]], rtol=1e-9)
+
+
 # ----------------------------------------------------------------- outliers
 
 def test_outliers_match_statsmodels_influence(unbalanced_3x4):

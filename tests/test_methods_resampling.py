@@ -173,15 +173,15 @@ def test_same_seed_same_numbers_and_chunk_independence():
     assert [r.to_dict() for r in a] == [r.to_dict() for r in b]
     # the generator is consumed row by row: tiny chunks give the same p-values
     small = _freedman_lane(fit, ("A", "B", "AB"), B_FAST, 5, None, budget=45 * 8 * 2 * 7)
-    assert [r.extra["chunk_size"] for r in small] == [7, 7, 7]
+    assert [r.extra["chunk_size"] for r in small] == [3, 3, 3]      # draws, index row, sums, statistic
     assert [r.p for r in small] == [r.p for r in a]
     s1 = _studentized(fit, ("AB",), B_FAST, 5, None)
     s2 = _studentized(fit, ("AB",), B_FAST, 5, None, budget=45 * 8 * 3 * 13)
-    assert s1[0].p == s2[0].p
+    assert s1[0].p == s2[0].p and s2[0].extra["chunk_size"] < 13
     w1 = wild_bootstrap(fit, resamples=B_FAST, seed=5)
     from audit.methods.bootstrap import _wild
     w2 = _wild(fit, ("AB",), B_FAST, 5, None, budget=45 * 8 * 3 * 10)[0]
-    assert w1.p == w2.p and w2.extra["chunk_size"] == 10
+    assert w1.p == w2.p and w2.extra["chunk_size"] < 10
 
 
 def test_seed_none_is_recorded_and_replayable():
@@ -357,3 +357,30 @@ def test_shared_permutations_equal_one_pass_per_vector():
         ref = resample_statistics(u, layout, fn, scheme="permute", resamples=37, rng=np.random.default_rng(9),
                                   budget=8 * N * 2 * 3)
         np.testing.assert_array_equal(got, ref)
+
+
+def test_memory_budget_counts_cells_and_keeps_numbers_30x30():
+    # common practice: chunking never changes a seeded resampling result.  A 30 x 30
+    # design (2,700 rows) under a 2 MB budget, which forces chunks of a few resamples
+    # because the statistics' intermediates grow with the 900 cells, gives the same
+    # counts and p-values as the default budget.
+    from audit.methods.bootstrap import _wild
+    from audit.methods.permutation import _ter_braak
+    from audit.methods.resampling import MEMORY_BUDGET, chunk_size
+
+    rng = np.random.default_rng(30)
+    J = K = 30
+    a = np.repeat(np.arange(J), K * 3)
+    b = np.tile(np.repeat(np.arange(K), 3), J)
+    y = 6 + 0.05 * a + 0.4 * ((a + b) % 7 == 0) + rng.normal(size=a.size) * (0.5 + 0.05 * a)
+    fit = _fit(pd.DataFrame({"y": y, "a": [f"a{i:02d}" for i in a], "b": [f"b{i:02d}" for i in b]}))
+    small = 2 * 2**20
+    for run in (_freedman_lane, _ter_braak, _studentized, _wild):
+        big = run(fit, ("AB",), 23, 4, None)
+        tiny = run(fit, ("AB",), 23, 4, None, budget=small)
+        assert [r.p for r in tiny] == [r.p for r in big]
+        assert [r.extra["count"] for r in tiny] == [r.extra["count"] for r in big]
+        assert all(r.extra["chunk_size"] < 23 for r in tiny)
+    # the chunk shrinks with the statistic's own intermediates, not only with N
+    assert chunk_size(2700, 9999, squares=True, m=900, stat_bytes=10**6) < chunk_size(2700, 9999, squares=True)
+    assert chunk_size(2700, 9999, squares=True, m=900, stat_bytes=10**6) * 10**6 <= MEMORY_BUDGET

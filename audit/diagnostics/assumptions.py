@@ -722,6 +722,8 @@ def homogeneity(fit: Fit) -> Diagnostic:
     {basis, band, chance, tests}, within_chance,
     reason (summary mode).
     """
+    unit = fit.cells.standardised().unit   # exact power of two: ratios and tests are scale-free
+    fit = fit.standardised()
     c = fit.cells
     counts = c.counts
     use = counts >= 2
@@ -747,8 +749,8 @@ def homogeneity(fit: Fit) -> Diagnostic:
         v["levene_mean"] = v["brown_forsythe"] = v["fligner_killeen"] = None
         v["reason"] = f"Levene, Brown-Forsythe and Fligner-Killeen {NEEDS_DATA}"
     imax, imin = int(np.argmax(sd)), int(np.argmin(sd))
-    v["sd_max_cell"] = labels[imax] + [float(sd[imax])]
-    v["sd_min_cell"] = labels[imin] + [float(sd[imin])]
+    v["sd_max_cell"] = labels[imax] + [_num(float(sd[imax]) * unit)]
+    v["sd_min_cell"] = labels[imin] + [_num(float(sd[imin]) * unit)]
     r_sd = float(sd[imax] / sd[imin]) if sd[imin] > 0 else None
     v["sd_ratio"] = r_sd
     null95 = sd_ratio_null_quantile(n_u)

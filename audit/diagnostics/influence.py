@@ -15,13 +15,13 @@ How leave-one-out is computed
 Deleting observation i from cell c changes only that cell's sufficient
 statistics: n_c -> n_c - 1, ybar_c -> ybar_c - d_i / (n_c - 1) and
 css_c -> css_c - n_c d_i^2 / (n_c - 1), with d_i = y_i - ybar_c.  The interaction
-sum of squares is Q(A+B) = min_beta sum_jk w_jk (ybar_jk - x_jk' beta)^2, a
-weighted least-squares fit on at most J*K cell means.  Every deletion in cell c
-uses the same weights (n with n_c lowered by one), and the fit is linear in the
-cell means, so with r_c the residual of the cell means under those weights and
-u_c the residual of the unit vector e_c, the residual after deleting i is
-exactly r_c + delta_i u_c.  One small solve per cell gives Q for all its
-observations; nothing is refitted per observation.
+sum of squares is Q(A+B) = SSE(additive) - SSE(cell means).  The cell-means
+model's leverage is 1/n_c; the additive model's leverage g_c and cell residual
+R_c come from one weighted least-squares solve on the cell means (its normal
+equations reduced to at most min(J, K) - 1 unknowns).  The deleted-observation
+identities SSE(-i) = SSE - e_i^2 / (1 - h_i) of both models then give every
+Q_i in closed form (see :func:`loo_interaction`): O(N) after one small solve,
+nothing refitted per observation or per cell.
 
 A cell with a single observation becomes empty when it is deleted: the
 interaction then has m - 1 - rank(A+B) degrees of freedom, as a refit of the
@@ -69,7 +69,7 @@ import math
 import numpy as np
 from scipy import stats
 
-from ..core import additive_design, weighted_ls_residual
+from ..core import weighted_ls_residual
 from ..design import cell_moments, pow2_scale
 from ..results import Diagnostic, json_float
 
@@ -83,7 +83,7 @@ __all__ = [
 ]
 
 #: default cap on greedy deletion steps in :func:`fragility` (each step costs one
-#: exact leave-one-out pass, O(N m); 20 steps keep N = 100,000 within seconds)
+#: closed-form leave-one-out pass, O(N) plus one small solve)
 FRAGILITY_MAX_STEPS = 20
 
 #: rows listed at most in long value lists (counts are always given in full)
@@ -146,8 +146,107 @@ def interaction_test(counts: np.ndarray, means: np.ndarray, css: np.ndarray, X: 
     return float(F), df1, df2, float(p)
 
 
-def loo_interaction(y: np.ndarray, cell: np.ndarray, J: int, K: int, *, chunk: int = 2_000_000):
-    """Exact leave-one-out interaction F test for every observation.
+def _additive_fit_and_leverage(n: np.ndarray, t: np.ndarray):
+    """Weighted least-squares fit of the additive model A + B to cell values.
+
+    Parameters
+    ----------
+    n : ndarray (J, K)
+        Cell counts (the weights; 0 for an empty cell).
+    t : ndarray (J, K)
+        Cell values to fit (0 where empty).
+
+    Returns
+    -------
+    R : ndarray (J, K)
+        Residual t - fit on the filled cells (0 elsewhere).
+    g : ndarray (J, K)
+        Leverage of one observation of each filled cell under the additive
+        model, x' (X' W X)^- x (0 elsewhere); the cell's leverage is n g.
+    rank : int
+        Rank of the additive model on the filled cells: levels present minus
+        connected components of the design.
+    cross : callable (j, k) -> ndarray (J, K)
+        x' (X' W X)^- x_c for every cell against cell c = (j, k) (the cell-level
+        hat matrix column of c is n_c times it).
+
+    Notes
+    -----
+    Dummy coding (one column per level of the factor with more levels, one per
+    level of the other minus one reference level in each connected component)
+    gives a full-rank system whose first block is diagonal; eliminating it leaves
+    the Schur complement S over the smaller factor (at most min(J, K) - 1
+    columns).  Cost O(J K min(J, K) + min(J, K)^3), with one step of iterative
+    refinement of the residual.
+    """
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+
+    swap = n.shape[0] < n.shape[1]
+    if swap:                                   # the diagonal block takes the larger factor
+        n, t = n.T, t.T
+    J, K = n.shape
+    filled = n > 0
+    na, nb = n.sum(axis=1), n.sum(axis=0)
+    ja, kb = np.nonzero(filled)
+    graph = coo_matrix((np.ones(ja.size), (ja, J + kb)), shape=(J + K, J + K))
+    _, label = connected_components(graph, directed=False)
+    present_a, present_b = na > 0, nb > 0
+    comps_b = label[J:]
+    ref = np.zeros(K, dtype=bool)              # first present B level of each component
+    seen: set = set()
+    for k in np.flatnonzero(present_b):
+        if comps_b[k] not in seen:
+            seen.add(comps_b[k])
+            ref[k] = True
+    ia = np.flatnonzero(present_a)
+    ib = np.flatnonzero(present_b & ~ref)
+    rank = int(ia.size + ib.size)
+    Da = na[ia].astype(float)
+    Nm = n[np.ix_(ia, ib)].astype(float)
+    S = np.diag(nb[ib].astype(float)) - Nm.T @ (Nm / Da[:, None])
+    Si = np.linalg.inv(S) if ib.size else np.zeros((0, 0))
+    w = n.astype(float)
+
+    def residual(v):
+        wv = w * v
+        ra, rb = wv.sum(axis=1)[ia], wv.sum(axis=0)[ib]
+        beta_b = Si @ (rb - Nm.T @ (ra / Da))
+        alpha = np.zeros(J)
+        alpha[ia] = (ra - Nm @ beta_b) / Da
+        beta = np.zeros(K)
+        beta[ib] = beta_b
+        return np.where(filled, v - alpha[:, None] - beta[None, :], 0.0)
+
+    R = residual(np.where(filled, t, 0.0))
+    R = residual(R)                            # one step of iterative refinement
+    # g_jk = 1/n_j. + (a_j - f_k)' S^-1 (a_j - f_k), a_j = Nm[j] / n_j., f_k the unit vector of k
+    a = np.zeros((J, ib.size))
+    a[ia] = Nm / Da[:, None]
+    aS = np.zeros((J, K))
+    aS[:, ib] = a @ Si
+    Sfull = np.zeros((K, K))
+    Sfull[np.ix_(ib, ib)] = Si
+    dinv = np.zeros(J)
+    dinv[ia] = 1.0 / Da
+    q = np.einsum("ij,ij->i", aS[:, ib], a)
+    g = dinv[:, None] + q[:, None] - 2.0 * aS + np.diag(Sfull)[None, :]
+    g = np.where(filled, g, 0.0)
+
+    def cross(j0: int, k0: int) -> np.ndarray:
+        """x' (X' W X)^- x_c for every cell (0 where empty), c = (j0, k0)."""
+        j, k = (k0, j0) if swap else (j0, k0)
+        out = (dinv[j] * (np.arange(J) == j) + aS[:, ib] @ a[j] - aS[:, k])[:, None] - aS[j][None, :] + Sfull[k][None, :]
+        out = np.where(filled, out, 0.0)
+        return out.T if swap else out
+
+    if swap:
+        R, g = R.T, g.T
+    return R, g, rank, cross
+
+
+def loo_interaction(y: np.ndarray, cell: np.ndarray, J: int, K: int):
+    """Exact leave-one-out interaction F test for every observation, in closed form.
 
     Parameters
     ----------
@@ -157,8 +256,6 @@ def loo_interaction(y: np.ndarray, cell: np.ndarray, J: int, K: int, *, chunk: i
         Cell index a * K + b.
     J, K : int
         Numbers of levels of A and B.
-    chunk : int, default 2,000,000
-        Work arrays are processed in pieces of about this many elements.
 
     Returns
     -------
@@ -168,57 +265,79 @@ def loo_interaction(y: np.ndarray, cell: np.ndarray, J: int, K: int, *, chunk: i
 
     Notes
     -----
-    Cost O(N m) for the residual updates plus one (J*K)-row least-squares solve
-    per filled cell; no model is refitted per observation (see module notes).
+    Q(A+B) = SSE(additive) - SSE(cell means).  Deleting observation i of cell
+    c lowers SSE(cell means) by n_c d_i^2 / (n_c - 1) (leverage 1/n_c) and
+    SSE(additive) by e_i^2 / (1 - g_c), with e_i = d_i + R_c its additive
+    residual and g_c its additive leverage (one small weighted solve on the
+    cell means, :func:`_additive_fit_and_leverage`).  Hence
+
+        Q_i = Q - (2 d_i R_c + R_c^2) / (1 - g_c) + gamma_c d_i^2
+            = Q_(-c) + gamma_c (d_i - d*_c)^2,
+        gamma_c = n_c (1 - H_c) / ((n_c - 1) (n_c - H_c)) >= 0,  H_c = n_c g_c,
+        d*_c = R_c (n_c - 1) / (1 - H_c),  Q_(-c) = Q - n_c R_c^2 / (1 - H_c),
+
+    the second form (a sum of two non-negative terms) being the one evaluated;
+    Q_(-c), the additive fit's Q without cell c, is recomputed from its residual
+    vector where the cell carries nearly all of Q.  An observation alone in its
+    cell empties the cell: Q_i = Q_(-c), or Q with one rank fewer when the cell
+    is the design's only link between its levels (H_c = 1).  Cost O(N)
+    plus one solve of at most min(J, K) - 1 unknowns; nothing is refitted per
+    observation or per cell.
     """
     y = np.asarray(y, dtype=float)
     y = y / pow2_scale(y)              # exact power of two: F and p are scale-free, squares stay in range
     cell = np.asarray(cell, dtype=np.int64)
     JK = J * K
     N = y.size
-    X = additive_design(J, K)
     n, mean, css = cell_sums(y, cell, JK)
     filled = n > 0
     m = int(filled.sum())
     sse = float(css.sum())
     centre = float(np.sum(n * mean) / N)
-    target = np.where(filled, mean - centre, 0.0)
-    F = np.full(N, np.nan)
-    p = np.full(N, np.nan)
-    df1 = np.zeros(N, dtype=np.int64)
-    df2 = np.zeros(N, dtype=np.int64)
-    order = np.argsort(cell, kind="stable")
-    starts = np.concatenate([[0], np.cumsum(n)])
-    for c in np.flatnonzero(filled):
-        idx = order[starts[c]:starts[c + 1]]
-        nc = int(n[c])
-        w = n.astype(float)
-        w[c] -= 1.0
-        r0, rank = weighted_ls_residual(X, w, target)
-        if nc == 1:  # the cell empties: the fit simply loses that cell
-            Q = np.array([float(np.sum(w * r0 * r0))])
-            sse_i = np.array([sse - css[c]])
-            d1, d2 = (m - 1) - rank, (N - 1) - (m - 1)
-        else:
-            e = np.zeros(JK)
-            e[c] = 1.0
-            u, _ = weighted_ls_residual(X, w, e)
-            keep = w > 0
-            r0k, uk, wk = r0[keep], u[keep], w[keep]
-            d = y[idx] - mean[c]
-            delta = -d / (nc - 1)
-            Q = np.empty(idx.size)
-            step = max(1, chunk // max(1, r0k.size))
-            for s0 in range(0, idx.size, step):
-                R = r0k[None, :] + delta[s0:s0 + step, None] * uk[None, :]
-                Q[s0:s0 + step] = (R * R) @ wk
-            sse_i = sse - (nc / (nc - 1.0)) * d * d
-            d1, d2 = m - rank, (N - 1) - m
-        Fi, pi = _f_and_p(Q, sse_i, np.full(idx.size, d1), np.full(idx.size, d2))
-        F[idx] = Fi
-        p[idx] = pi
-        df1[idx] = d1
-        df2[idx] = d2
+    t = np.where(filled, mean - centre, 0.0)
+    R, g, rank, cross = _additive_fit_and_leverage(n.reshape(J, K), t.reshape(J, K))
+    R, g = R.ravel(), g.ravel()
+    nf = n.astype(float)
+    Q0 = float(np.sum(nf * R * R))
+    H = nf * g
+    # a cell whose removal lowers the rank ("bridge") has H = 1; otherwise
+    # 1 - H >= 1 / (1 + n_c (J + K)) (leverage = n_c x effective resistance)
+    bridge = filled & ((1.0 - H) * (1.0 + nf * (J + K)) < 0.5)
+    live = filled & ~bridge
+    # Q without cell c; recomputed from the residual vector where the short
+    # formula would lose digits (the cell carries nearly all of Q)
+    Qdel = np.full(JK, Q0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        Qdel[live] = Q0 - nf[live] * R[live] ** 2 / (1.0 - H[live])
+    for c in np.flatnonzero(live & (Qdel < 1e-3 * Q0)):
+        r = R + (nf[c] * cross(c // K, c % K).ravel()) * (R[c] / (1.0 - H[c]))
+        r[c] = 0.0
+        Qdel[c] = float(np.sum(nf * r * r))
+    Qdel = np.maximum(Qdel, 0.0)
+    nc = nf[cell]
+    d = y - mean[cell]
+    single = nc == 1
+    many = ~single
+    Q = np.empty(N)
+    sse_i = np.empty(N)
+    df1 = np.full(N, m - rank, dtype=np.int64)
+    df2 = np.full(N, N - 1 - m, dtype=np.int64)
+    if many.any():
+        cm = cell[many]
+        ncm, Hm = nf[cm], H[cm]
+        gamma = ncm * (1.0 - Hm) / ((ncm - 1.0) * (ncm - Hm))
+        dm = d[many]
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            dstar = R[cm] * (ncm - 1.0) / (1.0 - Hm)
+            Q[many] = np.where(bridge[cm], Q0, Qdel[cm] + gamma * (dm - dstar) ** 2)
+        sse_i[many] = sse - (ncm / (ncm - 1.0)) * dm * dm
+    if single.any():
+        cs = cell[single]
+        Q[single] = np.where(bridge[cs], Q0, Qdel[cs])
+        sse_i[single] = sse
+        df1[single] = (m - 1) - (rank - bridge[cs].astype(np.int64))
+        df2[single] = (N - 1) - (m - 1)
+    F, p = _f_and_p(Q, sse_i, df1, df2)
     return F, p, df1, df2
 
 
@@ -329,7 +448,7 @@ def outliers(fit) -> Diagnostic:
     # SD without it, t_c = d n / (n - 1) / (s_(-i) sqrt(n / (n - 1))), on n_c - 2 df, with the same
     # Bonferroni cut-off over N (so it is "explained" when the cell's own spread makes it unremarkable)
     n_c = cells.counts.ravel()[cell].astype(float)
-    css_c = cells.css.ravel()[cell]
+    css_c = cells.standardised().css.ravel()[cell]   # same power-of-two units as e
     flagged = []
     for i in fl_idx[:_LIST_CAP]:
         nc = int(n_c[i])
@@ -528,8 +647,9 @@ def fragility(fit, *, max_steps: int = FRAGILITY_MAX_STEPS) -> Diagnostic:
     furthest toward the other side of alpha is deleted (largest p when the
     interaction is significant, smallest p otherwise; ties by larger / smaller
     F, then data order).  Stops at the first flip or after ``max_steps``
-    deletions (default 20: each step costs one O(N m) pass, so N = 100,000
-    stays within seconds).  Greedy deletion gives an upper bound on the true
+    deletions (default 20: each step costs one closed-form pass, O(N) plus a
+    solve of at most min(J, K) - 1 unknowns, so N = 100,000 or an L x 2
+    design with L = 1,000 stays within seconds).  Greedy deletion gives an upper bound on the true
     minimum; a flip within few steps is what matters.
 
     values keys: ``available``, ``alpha``, ``p_full``, ``direction``

@@ -34,9 +34,8 @@ import numpy as np
 
 from ..fit import Fit
 from ..results import MethodResult
-from .permutation import _cell_sums, _merge, _prepare, _results
+from .permutation import _cell_sums, _chunk, _merge, _prepare, _results
 from .resampling import (
-    chunk_size,
     progress_fn,
     resample_statistics,
     restricted_cell_fit,
@@ -72,8 +71,8 @@ def _wild(fit, effects, resamples, seed, progress, budget=None):
         u = (y_sorted - mu_r[cs]) / np.sqrt(1.0 - h)[cs]
         fn = wald_statistic_maker(layout, [C], kind="hc3", scale=scale)
         sub = None if prog is None else (lambda d, t, i=i: prog(i * B + d, B * len(ok)))
-        star = resample_statistics(u, layout, fn, scheme="sign", resamples=B, rng=rng, squares=True,
-                                   progress=sub, **kw)
+        counts = resample_statistics(u, layout, fn, scheme="sign", resamples=B, rng=rng, squares=True,
+                                     progress=sub, observed=obs_all[i:i + 1], **kw)
         extra = {"scheme": "Rademacher signs on restricted residuals e / sqrt(1 - h)", "hc": "HC3",
                  "df_error": int(layout.N - layout.m), "max_leverage": float(h.max()),
                  "robust_to_unequal_variances": True}
@@ -83,8 +82,8 @@ def _wild(fit, effects, resamples, seed, progress, budget=None):
                  "valid under unequal variances of unknown form (Davidson & Flachaire 2008)"]
         if small_cell_note(fit.cells, template=WILD_SMALL_CELL_NOTE):
             notes.append(small_cell_note(fit.cells, template=WILD_SMALL_CELL_NOTE))
-        done += _results(mid, name, [e], [C], obs_all[i:i + 1], star, B, seed_rec,
-                         chunk_size(layout.N, B, squares=True, **kw), fit.alpha, extra, notes, [C.shape[0]])
+        done += _results(mid, name, [e], [C], obs_all[i:i + 1], counts, B, seed_rec,
+                         _chunk(layout, B, kw, [fn], squares=True), fit.alpha, extra, notes, [C.shape[0]])
     return _merge(effects, done, skipped)
 
 

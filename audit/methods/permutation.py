@@ -57,10 +57,10 @@ from .resampling import (
     layout_from_fit,
     none_result,
     p_notes,
+    p_from_count,
     permute_shared,
     progress_fn,
     resample_statistics,
-    resampled_p,
     restricted_cell_fit,
     seed_value,
     wald_statistic_maker,
@@ -117,13 +117,14 @@ def _checks(fit: Fit, effects, resamples, mid: str, name: str, *, need_two: str 
     return B, None
 
 
-def _results(mid, name, effects, Cs, obs, star, B, seed, b, alpha, extra_common, notes_common, df1s,
+def _results(mid, name, effects, Cs, obs, counts, B, seed, b, alpha, extra_common, notes_common, df1s,
              reported=None, extra_each=None):
-    """One MethodResult per effect; ``obs``/``star`` are the ordering statistics,
-    ``reported`` (default ``obs``) the statistic shown."""
+    """One MethodResult per effect; ``obs`` are the ordering statistics and
+    ``counts`` the resamples at least as extreme, ``reported`` (default ``obs``)
+    the statistic shown."""
     out = []
     for i, e in enumerate(effects):
-        pinfo = resampled_p(star[:, i], float(obs[i]), alpha=alpha)
+        pinfo = p_from_count(int(counts[i]), B, alpha=alpha)
         extra = {**extra_common, **(extra_each[i] if extra_each else {}), "count": pinfo["count"], "settled": pinfo["settled"], "seed": seed,
                  "chunk_size": b, "p_interval_level": P_INTERVAL_LEVEL, "tie_rtol": TIE_RTOL}
         notes = [_HYP[e], *notes_common, *p_notes(pinfo, B, alpha)]
@@ -182,6 +183,12 @@ def _prepare(fit: Fit, effects, resamples, mid: str, name: str, *, need_two: str
     return None, _Setup(B, Cs, ok, skipped, layout, y_sorted, means)
 
 
+def _chunk(layout, B, kw, fns, *, squares, vectors=1):
+    """The chunk size the engine uses for these statistics (reported in ``extra``)."""
+    return chunk_size(layout.N, B, squares=squares, m=layout.m, vectors=vectors,
+                      stat_bytes=max(int(getattr(f, "bytes_per_resample", 0)) for f in fns), **kw)
+
+
 def _cell_sums(u_sorted, layout, squares=False):
     S = np.add.reduceat(u_sorted[None, :], layout.starts, axis=1)
     SQ = np.add.reduceat((u_sorted * u_sorted)[None, :], layout.starts, axis=1) if squares else None
@@ -206,15 +213,16 @@ def _freedman_lane(fit, effects, resamples, seed, progress, budget=None):
         fns.append(fn)
         obs.append(fn(*_cell_sums(u, layout))[0])
     rng, seed_rec = seed_value(seed)  # one set of permutations, shared by every effect
-    stars = permute_shared(us, layout, fns, resamples=B, rng=rng, progress=progress_fn(progress, mid, B), **kw)
-    for e, C, o, star in zip(ok, Cs, obs, stars):
+    counts = permute_shared(us, layout, fns, resamples=B, rng=rng, progress=progress_fn(progress, mid, B),
+                            observed=obs, **kw)
+    b = _chunk(layout, B, kw, fns, squares=False, vectors=len(us))
+    for e, C, o, cnt in zip(ok, Cs, obs, counts):
         extra = {"df_error": int(layout.N - layout.m), "scheme": "permute restricted-model residuals",
                  "robust_to_unequal_variances": False}
         notes = [f"Freedman-Lane: residuals of the model restricted by the hypothesis "
                  f"({'the additive model A + B' if e == 'AB' else 'the full model without ' + e}) permuted and "
                  "added back to its fitted values; statistic: the classical F", _EXCHANGE]
-        done += _results(mid, name, [e], [C], o, star, B, seed_rec, chunk_size(layout.N, B, squares=False,
-                         **kw), fit.alpha, extra, notes, [C.shape[0]])
+        done += _results(mid, name, [e], [C], o, cnt, B, seed_rec, b, fit.alpha, extra, notes, [C.shape[0]])
     return _merge(effects, done, skipped)
 
 
@@ -231,12 +239,12 @@ def _ter_braak(fit, effects, resamples, seed, progress, budget=None):
     obs = f_statistic_maker(layout, Cs, float(y_c @ y_c))(*_cell_sums(y_c, layout))[0]
     rng, seed_rec = seed_value(seed)
     kw = {} if budget is None else {"budget": budget}
-    star = resample_statistics(u, layout, fn, scheme="permute", resamples=B, rng=rng,
-                               progress=progress_fn(progress, mid, B), **kw)
+    counts = resample_statistics(u, layout, fn, scheme="permute", resamples=B, rng=rng,
+                                 progress=progress_fn(progress, mid, B), observed=obs, **kw)
     extra = {"df_error": int(layout.N - layout.m), "scheme": "permute full-model residuals",
              "robust_to_unequal_variances": False}
     notes = ["ter Braak: residuals of the full model permuted; statistic: the classical F", _EXCHANGE]
-    done = _results(mid, name, ok, Cs, obs, star, B, seed_rec, chunk_size(layout.N, B, squares=False, **kw),
+    done = _results(mid, name, ok, Cs, obs, counts, B, seed_rec, _chunk(layout, B, kw, [fn], squares=False),
                     fit.alpha, extra, notes, [C.shape[0] for C in Cs])
     return _merge(effects, done, skipped)
 
@@ -263,8 +271,8 @@ def _studentized(fit, effects, resamples, seed, progress, budget=None):
         each.append({"T": T, "A": A, "c": c, "welch_james_df2": df2})
     rng, seed_rec = seed_value(seed)
     kw = {} if budget is None else {"budget": budget}
-    star = resample_statistics(u, layout, fn, scheme="permute", resamples=B, rng=rng, squares=True,
-                               progress=progress_fn(progress, mid, B), **kw)
+    counts = resample_statistics(u, layout, fn, scheme="permute", resamples=B, rng=rng, squares=True,
+                                 progress=progress_fn(progress, mid, B), observed=obs, **kw)
     extra = {"scheme": "permute the whole response", "ordering": "Welch-James approximate p-value of T/c",
              "robust_to_unequal_variances": True}
     notes = ["studentized permutation (after Pauly, Brunner & Konietschke 2015): the whole response permuted; "
@@ -274,7 +282,7 @@ def _studentized(fit, effects, resamples, seed, progress, budget=None):
              "ordering by T itself was liberal in small cells in our Type I error simulation (about 0.09 at "
              "alpha = 0.05 with cells of 5-20 and large variances in small cells; see "
              "tests/test_typei_resampling.py)"]
-    done = _results(mid, name, ok, Cs, obs, star, B, seed_rec, chunk_size(layout.N, B, squares=True, **kw),
+    done = _results(mid, name, ok, Cs, obs, counts, B, seed_rec, _chunk(layout, B, kw, [fn], squares=True),
                     fit.alpha, extra, notes, [C.shape[0] for C in Cs], reported=shown, extra_each=each)
     return _merge(effects, done, skipped)
 

@@ -13,8 +13,12 @@ of length N.  The engine therefore
   rows, and the statistics from those (b, m) sums with small precomputed
   matrices: no Python loop per resample and no model refit per resample.
 
-The chunk size is chosen from a fixed memory budget (:data:`CHUNK_BYTES`), so
-memory stays bounded whatever B and N are.
+The chunk size is chosen from a memory budget (:data:`MEMORY_BUDGET`) that
+counts, per resample, the (b, N) draws, the (b, m) cell sums and the
+statistic's own intermediates (each statistic states them: they grow with the
+number of cells and the size of the hypotheses), so memory stays bounded
+whatever B, N and the design are.  Only the count of resampled statistics at
+least as large as the observed one is kept per effect, never the B statistics.
 
 Reproducibility: ``seed`` goes to ``np.random.default_rng(seed)``.  Both
 schemes consume the generator row by row, so the same seed gives the same
@@ -60,6 +64,7 @@ from ..results import MethodResult
 
 __all__ = [
     "CHUNK_BYTES",
+    "MEMORY_BUDGET",
     "P_INTERVAL_LEVEL",
     "TIE_RTOL",
     "Layout",
@@ -69,16 +74,24 @@ __all__ = [
     "restricted_leverage",
     "f_statistic_maker",
     "wald_statistic_maker",
+    "wald_null_form",
+    "null_space_basis",
     "resample_statistics",
     "permute_shared",
     "resampled_p",
+    "p_from_count",
+    "exceedances",
     "clopper_pearson",
     "check_resamples",
     "chunk_size",
 ]
 
-#: memory budget for one chunk of resamples (bytes)
-CHUNK_BYTES = 64 * 2**20
+#: memory budget (bytes) for one chunk of resamples: the (b, N) draws, the (b, m)
+#: cell sums and every intermediate of the statistic (which grows with the number
+#: of cells m and the hypotheses' sizes); see :func:`chunk_size`
+MEMORY_BUDGET = 256 * 2**20
+#: former name of :data:`MEMORY_BUDGET`
+CHUNK_BYTES = MEMORY_BUDGET
 #: level of the Clopper-Pearson interval reported for every resampled p
 P_INTERVAL_LEVEL = 0.99
 #: resampled statistics within this relative distance of the observed one count as ties
@@ -183,9 +196,7 @@ def restricted_leverage(counts: np.ndarray, C: np.ndarray) -> np.ndarray:
     has rows b_c, so h_c = b_c' (B' W B)^-1 b_c, W = diag(n).  For the
     interaction this is the additive model's leverage.
     """
-    _, s, vt = np.linalg.svd(C, full_matrices=True)
-    rank = int((s > s[0] * 1e-10).sum())
-    Bn = vt[rank:].T                                    # (m, p_r)
+    Bn = null_space_basis(C)                            # (m, p_r)
     G = Bn.T @ (Bn * counts[:, None])
     return np.einsum("ij,jk,ik->i", Bn, np.linalg.inv(G), Bn)
 
@@ -219,6 +230,7 @@ def f_statistic_maker(layout: Layout, Cs: list[np.ndarray], ss_total: float) -> 
             out[:, e] = np.einsum("ij,ij->i", part, part) / sizes[e]
         return out / (sse / df_e)[:, None]
 
+    fn.bytes_per_resample = 8 * (4 * layout.m + 2 * G.shape[0] + 2 * len(Gs))
     return fn
 
 
@@ -251,16 +263,35 @@ def wald_statistic_maker(layout: Layout, Cs: list[np.ndarray], *, kind: str, sca
 
     from .wald import wald_quadratic, welch_james_a
 
+    m = layout.m
+    # per hypothesis: the direct r x r form, or the null-space form when the
+    # hypothesis has more rows than its complement (e.g. the interaction, r = (J-1)(K-1))
+    bases = [null_space_basis(C) if C.shape[0] > m - C.shape[0] else None for C in Cs]
+    # row-wise outer products of each basis, kept when small beside the budget
+    outer = [None if Z is None or 8 * m * Z.shape[1] ** 2 > MEMORY_BUDGET // 8
+             else (Z[:, :, None] * Z[:, None, :]).reshape(m, -1) for Z in bases]
+    need = 0
+    for C, Z in zip(Cs, bases):
+        r = C.shape[0]
+        if Z is None:
+            need = max(need, 8 * (2 * r * r + (4 if kind == "wj" else 1) * r * m + 4 * r))
+        else:
+            q = Z.shape[1]
+            need = max(need, 8 * ((3 if kind == "wj" else 1) * m * q + 3 * q * q + 6 * m))
+
     def fn(S, SQ):
         means = S / n
         css = np.maximum(SQ - S * means, 0.0)
         v = np.maximum(css / denom, floor / n)
         out = np.empty((S.shape[0], len(Cs)))
-        for e, C in enumerate(Cs):
-            T = wald_quadratic(means, v, C)
+        for e, (C, Z, ZZ) in enumerate(zip(Cs, bases, outer)):
+            if Z is None:
+                T = wald_quadratic(means, v, C)
+                A = welch_james_a(v, n - 1.0, C) if kind == "wj" else None
+            else:
+                T, A = wald_null_form(means, v, Z, n - 1.0 if kind == "wj" else None, ZZ=ZZ)
             if kind == "wj":
                 r = C.shape[0]
-                A = welch_james_a(v, n - 1.0, C)
                 c = r + 2.0 * A - 6.0 * A / (r + 2.0)
                 with np.errstate(divide="ignore"):
                     out[:, e] = -np.log(special.fdtrc(r, r * (r + 2.0) / (3.0 * A), T / c))
@@ -268,7 +299,62 @@ def wald_statistic_maker(layout: Layout, Cs: list[np.ndarray], *, kind: str, sca
                 out[:, e] = T / divide[e]
         return out
 
+    fn.bytes_per_resample = 8 * (6 * m + 2 * len(Cs)) + need
     return fn
+
+
+def null_space_basis(C: np.ndarray) -> np.ndarray:
+    """Orthonormal basis (m x (m - r)) of the null space of C (r x m, full row rank)."""
+    r = C.shape[0]
+    q, _ = np.linalg.qr(C.T, mode="complete")
+    return np.ascontiguousarray(q[:, r:])
+
+
+def wald_null_form(means: np.ndarray, v: np.ndarray, Z: np.ndarray, dfs: np.ndarray | None = None,
+                   ZZ: np.ndarray | None = None):
+    """The Wald form T = (C ybar)' (C V C')^-1 (C ybar), V = diag(v), and Johansen's A,
+    through the null space of C instead of the r x r matrix C V C'.
+
+    With Z a basis of {mu: C mu = 0} and W = V^-1, C' (C V C')^-1 C = W - W Z (Z' W Z)^-1 Z' W,
+    so T is the weighted residual SS of the cell means on Z (weights 1/v), and the
+    diagonal of R = V C' (C V C')^-1 C is 1 - h with h the leverages of that fit.
+    Cost per resample O(m q^2), q = m - r, against O(r^3 + r^2 m) for the direct form.
+
+    Parameters
+    ----------
+    means, v : ndarray (b, m)
+        Cell means and the diagonal of their covariance, one row per resample.
+    Z : ndarray (m, q)
+        Basis of the null space of C (:func:`null_space_basis`).
+    dfs : ndarray (m,), optional
+        Degrees of freedom f_jk for Johansen's A = sum (1 - h)^2 / f; None skips A.
+    ZZ : ndarray (m, q * q), optional
+        Row-wise outer products of Z (precomputed once per hypothesis); turns
+        the b normal-equation matrices into one matrix product.
+
+    Returns
+    -------
+    T : ndarray (b,)
+    A : ndarray (b,) or None
+    """
+    b, m = means.shape
+    q = Z.shape[1]
+    w = 1.0 / v
+    if ZZ is not None:
+        P = (w @ ZZ).reshape(b, q, q)
+    else:
+        P = np.einsum("mq,bm,mr->bqr", Z, w, Z, optimize=True)
+    beta = np.linalg.solve(P, ((w * means) @ Z)[..., None])[..., 0]
+    r = means - beta @ Z.T
+    beta2 = np.linalg.solve(P, ((w * r) @ Z)[..., None])[..., 0]
+    r = r - beta2 @ Z.T                                     # one step of iterative refinement
+    T = np.einsum("bm,bm->b", w * r, r)
+    if dfs is None:
+        return T, None
+    Pinv = np.linalg.inv(P)                                 # (b, q, q)
+    ZP = (Z @ Pinv.transpose(1, 0, 2).reshape(q, b * q)).reshape(m, b, q)
+    h = w * np.einsum("mbq,mq->bm", ZP, Z)
+    return T, np.sum((1.0 - h) ** 2 / dfs, axis=1)
 
 
 # --------------------------------------------------------------------------- engine
@@ -283,10 +369,32 @@ def check_resamples(resamples) -> int:
     return B
 
 
-def chunk_size(N: int, B: int, *, squares: bool, budget: int = CHUNK_BYTES) -> int:
-    """Resamples per chunk: one or two (b, N) float arrays within ``budget`` bytes."""
-    per_row = 8 * N * (3 if squares else 2)
+def chunk_size(N: int, B: int, *, squares: bool, budget: int = MEMORY_BUDGET, m: int = 0,
+               stat_bytes: int = 0, vectors: int = 1) -> int:
+    """Resamples per chunk within ``budget`` bytes.
+
+    Per resample: the draws (one or two float rows of length N, plus an index
+    row when ``vectors`` > 1 share one permutation), the cell sums (and sums of
+    squares) of length m, and ``stat_bytes``, the statistic's own intermediates
+    (``statistic.bytes_per_resample``, which grows with the cells and the size
+    of the hypotheses).  At least one resample per chunk.
+    """
+    per_row = 8 * N * (3 if squares else 2) + 8 * m * (2 if squares else 1) + int(stat_bytes)
+    if vectors > 1:
+        per_row += 8 * N
     return int(max(1, min(B, budget // max(per_row, 1))))
+
+
+def _stat_bytes(statistic) -> int:
+    return int(getattr(statistic, "bytes_per_resample", 0))
+
+
+def exceedances(stat_star: np.ndarray, stat_obs) -> np.ndarray:
+    """Per column, the number of resampled statistics at least as large as the
+    observed one (ties within a relative :data:`TIE_RTOL` count)."""
+    obs = np.atleast_1d(np.asarray(stat_obs, dtype=float))
+    thr = np.where(np.isfinite(obs), obs - TIE_RTOL * np.abs(obs), obs)
+    return np.count_nonzero(np.asarray(stat_star).reshape(-1, obs.size) >= thr[None, :], axis=0)
 
 
 def resample_statistics(
@@ -298,8 +406,9 @@ def resample_statistics(
     resamples: int,
     rng: np.random.Generator,
     squares: bool = False,
-    budget: int = CHUNK_BYTES,
+    budget: int = MEMORY_BUDGET,
     progress: Callable[[int, int], None] | None = None,
+    observed: np.ndarray | None = None,
 ) -> np.ndarray:
     """Statistics of B resamples of u (sorted by cell), chunk by chunk.
 
@@ -310,7 +419,8 @@ def resample_statistics(
     layout : Layout
         Cell boundaries of the sorted observations.
     statistic : callable (S, SQ) -> (b, e)
-        From cell sums S (b, m) and, when ``squares``, sums of squares SQ.
+        From cell sums S (b, m) and, when ``squares``, sums of squares SQ.  An
+        attribute ``bytes_per_resample`` (its intermediates) enters the chunk size.
     scheme : 'permute' (u*_r = a random permutation of u, row by row) or
         'sign' (u*_r = u times independent Rademacher signs).
     resamples : int
@@ -319,17 +429,20 @@ def resample_statistics(
         Source of randomness (the same generator state gives the same results).
     squares : bool, default False
         Also accumulate per-cell sums of squares.
-    budget : int, default CHUNK_BYTES
-        Memory budget in bytes for one chunk of resamples.
+    budget : int, default MEMORY_BUDGET
+        Memory budget in bytes for one chunk of resamples (:func:`chunk_size`).
     progress : callable (done, total), optional
+    observed : ndarray (e,), optional
+        The observed statistics: when given, only the counts of exceedances
+        (:func:`exceedances`) are kept and returned, not the B statistics.
 
     Returns
     -------
-    ndarray (B, e)
+    ndarray (B, e), or the counts (e,) of int when ``observed`` is given
     """
     B = resamples
     N = u_sorted.size
-    b = chunk_size(N, B, squares=squares, budget=budget)
+    b = chunk_size(N, B, squares=squares, budget=budget, m=layout.m, stat_bytes=_stat_bytes(statistic))
     starts = layout.starts
     out = None
     done = 0
@@ -347,6 +460,7 @@ def resample_statistics(
             bits = np.unpackbits(raw.view(np.uint8), axis=1, count=N, bitorder="little").view(bool)
             np.copyto(W, u_sorted)
             np.negative(W, out=W, where=bits)
+            del raw, bits
         else:
             raise ValueError(f"scheme: expected 'permute' or 'sign', found {scheme!r}")
         S = np.add.reduceat(W, starts, axis=1)
@@ -355,9 +469,12 @@ def resample_statistics(
             np.square(W, out=W)
             SQ = np.add.reduceat(W, starts, axis=1)
         st = statistic(S, SQ)
-        if out is None:
-            out = np.empty((B, st.shape[1]))
-        out[done:done + bb] = st
+        if observed is not None:
+            out = exceedances(st, observed) + (0 if out is None else out)
+        else:
+            if out is None:
+                out = np.empty((B, st.shape[1]))
+            out[done:done + bb] = st
         done += bb
         if progress is not None:
             progress(done, B)
@@ -371,8 +488,9 @@ def permute_shared(
     *,
     resamples: int,
     rng: np.random.Generator,
-    budget: int = CHUNK_BYTES,
+    budget: int = MEMORY_BUDGET,
     progress: Callable[[int, int], None] | None = None,
+    observed: list[np.ndarray] | None = None,
 ) -> list[np.ndarray]:
     """Like :func:`resample_statistics` with scheme 'permute', for several vectors
     that must see the same permutations (one permutation of the row indices per
@@ -393,17 +511,22 @@ def permute_shared(
         :func:`resample_statistics` draws from the same generator state, so
         the results are identical to calling it once per vector with the same
         seed; drawing them once saves the dominant cost.
-    budget : int, default CHUNK_BYTES
-        Memory budget in bytes for one chunk (an index array and a value array).
+    budget : int, default MEMORY_BUDGET
+        Memory budget in bytes for one chunk (an index array, a value array,
+        the cell sums and the largest statistic's intermediates).
     progress : callable (done, total), optional
+    observed : list of ndarray (e_k,), optional
+        Observed statistics per vector: when given, only counts of exceedances
+        are kept and returned.
 
     Returns
     -------
-    list of ndarray (B, e_k)
+    list of ndarray (B, e_k), or of counts (e_k,) when ``observed`` is given
     """
     B = resamples
     N = layout.N
-    b = chunk_size(N, B, squares=False, budget=budget)
+    b = chunk_size(N, B, squares=False, budget=budget, m=layout.m,
+                   stat_bytes=max((_stat_bytes(f) for f in statistics), default=0), vectors=len(us))
     starts = layout.starts
     outs: list = [None] * len(us)
     idx = np.empty((b, N), dtype=np.intp)
@@ -419,9 +542,12 @@ def permute_shared(
             Wk = W[:bb]
             np.take(u, I, out=Wk)
             st = fn(np.add.reduceat(Wk, starts, axis=1), None)
-            if outs[k] is None:
-                outs[k] = np.empty((B, st.shape[1]))
-            outs[k][done:done + bb] = st
+            if observed is not None:
+                outs[k] = exceedances(st, observed[k]) + (0 if outs[k] is None else outs[k])
+            else:
+                if outs[k] is None:
+                    outs[k] = np.empty((B, st.shape[1]))
+                outs[k][done:done + bb] = st
         done += bb
         if progress is not None:
             progress(done, B)
@@ -444,9 +570,13 @@ def resampled_p(stat_star: np.ndarray, stat_obs: float, *, alpha: float | None =
     resamples would give; the MC SE is sqrt(p (1 - p) / B).  When ``alpha`` is
     given, ``settled`` says whether the interval lies wholly on one side of it.
     """
-    B = int(stat_star.size)
-    thr = stat_obs - TIE_RTOL * abs(stat_obs) if np.isfinite(stat_obs) else stat_obs
-    k = int(np.count_nonzero(stat_star >= thr))
+    k = int(exceedances(np.ravel(stat_star), stat_obs)[0])
+    return p_from_count(k, int(np.size(stat_star)), alpha=alpha)
+
+
+def p_from_count(count: int, B: int, *, alpha: float | None = None) -> dict:
+    """As :func:`resampled_p`, from the count of exceedances among B resamples."""
+    k = int(count)
     p = (1.0 + k) / (B + 1.0)
     lo, hi = clopper_pearson(k, B)
     out = {"p": p, "count": k, "mc_se": float(np.sqrt(p * (1.0 - p) / B)), "p_interval": (lo, hi)}

@@ -7,12 +7,18 @@ Agg canvas, so the global pyplot state of a caller is never touched.  Each file
 is written to a temporary name in the target folder and moved into place with
 ``os.replace`` (a reader never sees a half-written figure).  Colour is never the
 only carrier: traces differ by marker and line style as well.
+
+User strings (column and level names) are drawn literally: math markup is off
+(``text.parse_math = False``, so ``$x$`` is not a symbol) and control characters
+are shown escaped.  A glyph missing from the font is drawn as a box without a
+warning on stderr.
 """
 
 from __future__ import annotations
 
 import math
 import os
+import warnings
 
 from .._io import atomic_write_with
 from ..errors import OptionError
@@ -269,10 +275,28 @@ def write_figures(figure_data: dict, outdir) -> list[str]:
                           "choose a writable folder") from None
     if not os.access(outdir, os.W_OK):
         raise OptionError(f"report folder {outdir!r} is not writable; choose a writable folder")
-    fd = figure_data
-    written = [_cell_means(fd, outdir)]
-    for p in (_residual_qq(fd, outdir), _spread(fd, outdir), _sd_n(fd, outdir), _loo(fd, outdir),
-              _boxcox(fd, outdir)):
-        if p is not None:
-            written.append(p)
+    import matplotlib
+
+    fd = _clean_strings(figure_data)
+    with matplotlib.rc_context({"text.parse_math": False}), warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message=r"Glyph \d+ .*missing from", category=UserWarning)
+        warnings.filterwarnings("ignore", message=r"Matplotlib currently does not support", category=UserWarning)
+        written = [_cell_means(fd, outdir)]
+        for draw in (_residual_qq, _spread, _sd_n, _loo, _boxcox):
+            p = draw(fd, outdir)
+            if p is not None:
+                written.append(p)
     return written
+
+
+def _clean_strings(obj):
+    """A copy of the figure data with every string's control characters escaped."""
+    from .text import sanitize
+
+    if isinstance(obj, str):
+        return sanitize(obj)
+    if isinstance(obj, dict):
+        return {k: _clean_strings(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return type(obj)(_clean_strings(v) for v in obj)
+    return obj

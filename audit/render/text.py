@@ -7,10 +7,37 @@ Severity is always printed as a word (colour, if ever added, only doubles it).
 from __future__ import annotations
 
 import math
+import unicodedata
+from typing import TYPE_CHECKING
 
-from ..findings import Findings
+if TYPE_CHECKING:  # annotations only: keeps sanitize() importable without the numerical stack
+    from ..findings import Findings
 
-__all__ = ["render_text"]
+__all__ = ["render_text", "sanitize"]
+
+_NAMED = {"\n": "\\n", "\t": "\\t", "\r": "\\r"}
+_UNSAFE = {"Cc", "Cf", "Cs", "Zl", "Zp"}
+
+
+def sanitize(text, *, keep_newlines: bool = False) -> str:
+    """``text`` with control and format characters shown escaped (``\\x1b``, ``\\n``, ``\\u202e``).
+
+    User strings (column, level and file names) pass through this before they
+    reach a terminal or report.txt, so escape codes never act and a name never
+    breaks a line.  With ``keep_newlines`` line breaks are kept (for whole
+    reports whose user strings were already cleaned).
+    """
+    text = str(text)
+    if text.isprintable() or not any(unicodedata.category(c) in _UNSAFE for c in text):
+        return text
+    out = []
+    for c in text:
+        if (c == "\n" and keep_newlines) or unicodedata.category(c) not in _UNSAFE:
+            out.append(c)
+        else:
+            code = ord(c)
+            out.append(_NAMED.get(c) or (f"\\x{code:02x}" if code < 0x100 else f"\\u{code:04x}"))
+    return "".join(out)
 
 RULE = "-" * 78
 
@@ -53,16 +80,17 @@ def _design_lines(f: Findings) -> list[str]:
     d = f.design
     a, b = f.factors
     la, lb = d.levels[a], d.levels[b]
+    sa, sb = sanitize(a), sanitize(b)
     out = ["DESIGN", RULE]
-    out.append(f"Response: {f.response}    N used: {d.n}")
-    out.append(f"Factor A: {a} ({len(la)} levels: {', '.join(la)})")
-    out.append(f"Factor B: {b} ({len(lb)} levels: {', '.join(lb)})")
+    out.append(f"Response: {sanitize(f.response)}    N used: {d.n}")
+    out.append(f"Factor A: {sa} ({len(la)} levels: {', '.join(map(sanitize, la))})")
+    out.append(f"Factor B: {sb} ({len(lb)} levels: {', '.join(map(sanitize, lb))})")
     ratio = f", largest/smallest cell = {d.size_ratio:.3g}" if d.size_ratio else ""
     out.append(f"Balance: {d.balance}{ratio}; empty cells: {len(d.empty_cells) or 'none'}; "
                f"cells with n = 1: {len(d.single_cells) or 'none'}")
     dr = d.dropped_rows
     if dr.get("total"):
-        parts = [f"{c['a']} x {c['b']}: {c['n']}" for c in dr.get("missing_response_by_cell", [])]
+        parts = [f"{sanitize(c['a'])} x {sanitize(c['b'])}: {c['n']}" for c in dr.get("missing_response_by_cell", [])]
         extra = []
         if dr.get("missing_factor"):
             extra.append(f"{dr['missing_factor']} with a missing factor value")
@@ -71,16 +99,16 @@ def _design_lines(f: Findings) -> list[str]:
         out.append(f"Rows dropped: {dr['total']} (missing response by cell: {'; '.join(parts) or 'none'}"
                    + (f"; {'; '.join(extra)}" if extra else "") + ")")
     else:
-        out.append("Rows dropped: none" + (f" ({dr['note']})" if dr.get("note") else ""))
+        out.append("Rows dropped: none" + (f" ({sanitize(dr['note'])})" if dr.get("note") else ""))
     if d.centring:
-        out.append(f"Centring: {d.centring}")
+        out.append(f"Centring: {sanitize(d.centring)}")
     out.append("")
     out.append("Cell counts and means (SD):")
-    header = [f"{a} \\ {b}", *lb]
+    header = [f"{sa} \\ {sb}", *map(sanitize, lb)]
     rows = []
     cells = {(c["a"], c["b"]): c for c in f.cell_table()}
     for x in la:
-        row = [x]
+        row = [sanitize(x)]
         for y in lb:
             c = cells[(x, y)]
             if c["n"] == 0:
@@ -91,7 +119,7 @@ def _design_lines(f: Findings) -> list[str]:
         rows.append(row)
     out += _table(header, rows, "l" + "r" * len(lb))
     for note in d.notes:
-        out.append(f"Note: {note}")
+        out.append(f"Note: {sanitize(note)}")
     return out
 
 
@@ -109,10 +137,10 @@ def _anova_lines(f: Findings) -> list[str]:
             ci = r.partial_eta_sq_ci
             eta = "-" if r.partial_eta_sq is None else (
                 f"{r.partial_eta_sq:.3f} [{ci[0]:.3f}, {ci[1]:.3f}]" if ci else f"{r.partial_eta_sq:.3f}")
-            rows.append([r.label, _num(r.ss), str(r.df), _num(r.ms), _num(r.F), _p(r.p), eta,
+            rows.append([sanitize(r.label), _num(r.ss), str(r.df), _num(r.ms), _num(r.F), _p(r.p), eta,
                          _num(r.partial_omega_sq, 3) if r.partial_omega_sq is not None else "-"])
             if r.note and r.effect != "residual":
-                notes.append(f"  {r.label}: {r.note}")
+                notes.append(f"  {sanitize(r.label)}: {sanitize(r.note)}")
         out += _table(["Effect", "SS", "df", "MS", "F", "p", "partial eta2 [95% CI]", "partial omega2"], rows)
         out += notes
         out.append("")
@@ -124,9 +152,9 @@ def _anova_lines(f: Findings) -> list[str]:
     a, b = f.factors
     lb = f.design.levels[b]
     terms = {(x["a"], x["b"]): x["term"] for x in f.interaction_table()}
-    rows = [[x, *[_num(terms.get((x, y))) if (x, y) in terms else "empty" for y in lb]]
+    rows = [[sanitize(x), *[_num(terms.get((x, y))) if (x, y) in terms else "empty" for y in lb]]
             for x in f.design.levels[a]]
-    out += _table([f"{a} \\ {b}", *lb], rows)
+    out += _table([f"{sanitize(a)} \\ {sanitize(b)}", *map(sanitize, lb)], rows)
     return out
 
 
@@ -143,7 +171,7 @@ def _diagnostic_lines(f: Findings) -> list[str]:
     out = ["ASSUMPTION AND DESIGN CHECKS", RULE]
     for d in f.diagnostics:
         head = f"[{SEVERITY_WORD[d.severity]:>7}] "
-        lines = _wrap(d.summary, " " * len(head))
+        lines = _wrap(sanitize(d.summary), " " * len(head))
         lines[0] = head + lines[0].lstrip()
         out += lines
     if f.fragility is not None:
@@ -152,7 +180,7 @@ def _diagnostic_lines(f: Findings) -> list[str]:
         if k is None:
             out.append(f"Fragility: the interaction decision did not flip within "
                        f"{f.fragility.get('max_steps') or 'the capped number of'} greedy deletions"
-                       f" ({f.fragility.get('stopped') or 'cap reached'}).")
+                       f" ({sanitize(f.fragility.get('stopped') or 'cap reached')}).")
         else:
             out.append(f"Fragility: deleting {k} row(s) flips the interaction decision at alpha = {f.alpha:g}"
                        f" (rows {', '.join(map(str, rows))}).")
@@ -167,7 +195,7 @@ def _method_lines(f: Findings) -> list[str]:
     rows = []
     notes: dict = {}
     last = None
-    a, b = f.factors
+    a, b = map(sanitize, f.factors)
     names = {"A": a, "B": b, "AB": f"{a}:{b}"}
     for m in sorted(f.methods, key=lambda m: _EFFECT_ORDER.get(m.effect, 9)):
         if m.df1 is None:
@@ -192,7 +220,7 @@ def _method_lines(f: Findings) -> list[str]:
         out.append(f"Resampled p-values: B = {f.provenance.get('resamples')} per method, seed "
                    f"{f.provenance['seed']} (repeat the run with --seed {f.provenance['seed']}).")
     for (mid, text), effects in notes.items():
-        out += _wrap(f"{mid} ({', '.join(effects)}): {text}", "  ")
+        out += _wrap(f"{mid} ({', '.join(effects)}): {sanitize(text)}", "  ")
     return out
 
 
@@ -200,9 +228,10 @@ def render_text(f: Findings) -> str:
     """The terminal report: design, ANOVA tables, then the standing cautions."""
     src = f.provenance.get("input") or ("summary table" if f.mode == "summary" else "data frame")
     lines = [
-        f"twoway-audit {f.provenance.get('version', '')}: {f.response} by {f.factors[0]} x {f.factors[1]}"
+        f"twoway-audit {f.provenance.get('version', '')}: {sanitize(f.response)} by {sanitize(f.factors[0])}"
+        f" x {sanitize(f.factors[1])}"
         f" (alpha = {f.alpha:g})",
-        f"Data: {src}" + (f"  [sha256 {f.provenance['input_sha256'][:12]}]" if f.provenance.get("input_sha256") else ""),
+        f"Data: {sanitize(src)}" + (f"  [sha256 {f.provenance['input_sha256'][:12]}]" if f.provenance.get("input_sha256") else ""),
         "",
     ]
     lines += _design_lines(f)
@@ -218,7 +247,8 @@ def render_text(f: Findings) -> str:
     lines.append("CAUTIONS")
     lines.append(RULE)
     for c in f.cautions:
-        wrapped = _wrap(c, "  ")
+        wrapped = _wrap(sanitize(c), "  ")
         wrapped[0] = "- " + wrapped[0].lstrip()
         lines += wrapped
-    return "\n".join(lines) + "\n"
+    # last guard: any control character a user string brought in is shown escaped
+    return sanitize("\n".join(lines), keep_newlines=True) + "\n"
