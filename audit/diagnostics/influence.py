@@ -71,6 +71,8 @@ from scipy import stats
 
 from ..core import weighted_ls_residual
 from ..design import cell_moments, pow2_scale
+from ..decision import decision, decisions
+from ..facts import FragilityFacts, InfluenceFacts, OutlierFacts
 from ..results import Diagnostic, json_float
 
 __all__ = [
@@ -512,7 +514,8 @@ def outliers(fit) -> Diagnostic:
     if rows_single:
         summ += (f" {len(rows_single)} observation(s) alone in their cell have leverage 1 and no residual, "
                  "so they cannot be checked this way.")
-    return Diagnostic(id="outliers", severity=sev, summary=summ, values={
+    return Diagnostic(id="outliers", severity=sev, summary=summ,
+                      facts=OutlierFacts(rows=tuple(int(rows[i]) for i in fl_idx)), values={
         "available": True,
         "alpha": alpha,
         "N": N,
@@ -564,9 +567,9 @@ def influence(fit, *, top: int = 10) -> Diagnostic:
         )
     F, p, df1, df2 = loo_interaction(obs.y, obs.cell, cells.J, cells.K)
     p0 = float(ab.p)
-    sig0 = p0 < alpha
+    sig0 = decision(p0, alpha)
     valid = np.isfinite(p)
-    flip = valid & ((p < alpha) != sig0)
+    flip = valid & (decisions(p, alpha) != sig0)
     with np.errstate(divide="ignore"):
         lr = np.abs(np.log10(np.maximum(p, 1e-300)) - math.log10(max(p0, 1e-300)))
     lr = np.where(valid, lr, -1.0)
@@ -606,7 +609,10 @@ def influence(fit, *, top: int = 10) -> Diagnostic:
         keep_idx = thin_keep_extremes(np.where(valid, p, 1.0), LOO_LIST_CAP)
     else:
         keep_idx = np.arange(p.size)
-    return Diagnostic(id="influence", severity=sev, summary=summ, values={
+    facts = InfluenceFacts(flipping_rows=tuple(int(rows[i]) for i in fl[:_LIST_CAP]),
+                           p_min=_num(np.nanmin(p)) if valid.any() else None,
+                           p_max=_num(np.nanmax(p)) if valid.any() else None)
+    return Diagnostic(id="influence", severity=sev, summary=summ, facts=facts, values={
         "available": True,
         "alpha": alpha,
         "p_full": p0,
@@ -617,7 +623,7 @@ def influence(fit, *, top: int = 10) -> Diagnostic:
         "loo_complete": bool(keep_idx.size == p.size),
         "n_loo": int(p.size),
         "n_loo_undefined": int((~valid).sum()),
-        "n_loo_below_alpha": int((valid & (np.where(valid, p, 1.0) < alpha)).sum()),
+        "n_loo_below_alpha": int((valid & decisions(p, alpha)).sum()),
         "p_min": _num(np.nanmin(p)) if valid.any() else None,
         "p_max": _num(np.nanmax(p)) if valid.any() else None,
         "n_flipping": int(fl.size),
@@ -682,7 +688,7 @@ def fragility(fit, *, max_steps: int = FRAGILITY_MAX_STEPS) -> Diagnostic:
                     "deletions_to_flip": None, "rows": [], "max_steps": max_steps},
         )
     p0 = float(ab.p)
-    sig0 = p0 < alpha
+    sig0 = decision(p0, alpha)
     J, K = cells.J, cells.K
     keep = np.ones(len(obs), dtype=bool)
     y_all, cell_all = np.asarray(obs.y, dtype=float), obs.cell
@@ -708,7 +714,7 @@ def fragility(fit, *, max_steps: int = FRAGILITY_MAX_STEPS) -> Diagnostic:
         keep[i] = False
         deleted.append(i)
         path.append(float(p[best]))
-        if (p[best] < alpha) != sig0:
+        if decision(p[best], alpha) != sig0:
             flipped = True
             break
     k = len(deleted) if flipped else None
@@ -734,7 +740,9 @@ def fragility(fit, *, max_steps: int = FRAGILITY_MAX_STEPS) -> Diagnostic:
                 f"{len(deleted)} greedy deletion(s) (cap {max_steps}); last p {_fmt_p(path[-1] if path else None)}.")
     if emptied:
         summ += f" The deletions empty {len(emptied)} cell(s), which changes the design."
-    return Diagnostic(id="fragility", severity=sev, summary=summ, values={
+    facts = FragilityFacts(deletions_to_flip=k, rows=tuple(del_rows if flipped else ()), max_steps=max_steps,
+                           significant_before=bool(sig0))
+    return Diagnostic(id="fragility", severity=sev, summary=summ, facts=facts, values={
         "available": True,
         "alpha": alpha,
         "p_full": p0,

@@ -52,6 +52,7 @@ import math
 import numpy as np
 from scipy import optimize, stats
 
+from ..decision import decision
 from ..facts import ScaleFacts, ShapeFacts
 from ..results import Diagnostic
 from ..core import additive_design
@@ -154,7 +155,7 @@ def shape(fit) -> Diagnostic:
         kind = "ordinal"
     ab = fit.anova.tables["II"].row("AB")
     p = ab.p
-    sig = p is not None and p < fit.alpha
+    sig = decision(p, fit.alpha) is True
     where = []
     if o_ab["crosses"]:
         where.append(f"the {fa} lines cross across {fb}" + ("" if o_ab["beyond_noise"] else " (within noise)"))
@@ -346,7 +347,7 @@ def scale(fit) -> Diagnostic:
         return Diagnostic(id="scale", severity="note", summary=f"Scale: not checked: {r}.",
                           values={**base, "reason": r})
     X = additive_design(J, K)
-    sig_raw = raw_p < alpha
+    sig_raw = decision(raw_p, alpha)
     if abs(lam) >= _LAMBDA_LIMIT - 1e-6:
         r = (f"the Box-Cox profile likelihood has no maximum inside [-{_LAMBDA_LIMIT:g}, {_LAMBDA_LIMIT:g}] "
              f"(too little within-cell information: {cells.df_within} error df), so lambda is not determined")
@@ -357,7 +358,7 @@ def scale(fit) -> Diagnostic:
                           summary=(f"Scale: {r}; on the log scale the interaction p is {_fmt_p(log_p)} "
                                    f"(raw {_fmt_p(raw_p)})."),
                           values={**base, "reason": r, "log_p": _num(log_p),
-                                  "survives_log": bool((log_p < alpha) == sig_raw) if np.isfinite(log_p) else None})
+                                  "survives_log": bool(decision(log_p, alpha) == sig_raw) if np.isfinite(log_p) else None})
 
     def p_at(lams):
         z = prof.transform(np.atleast_1d(lams))
@@ -377,16 +378,16 @@ def scale(fit) -> Diagnostic:
     lam0_in = inside(0.0)
     checked = sorted(set([lam] + ([0.0] if lam0_in else []) + list(np.linspace(lo_eff, hi_eff, 11))))
     checked_p = p_at(checked)
-    removable_at = [float(t) for t, p in zip(checked, checked_p) if np.isfinite(p) and p >= alpha] if sig_raw else []
+    removable_at = [float(t) for t, p in zip(checked, checked_p) if np.isfinite(p) and decision(p, alpha) is False] if sig_raw else []
     removable = bool(sig_raw and removable_at)
-    masked_at = [float(t) for t, p in zip(checked, checked_p) if np.isfinite(p) and p < alpha]
+    masked_at = [float(t) for t, p in zip(checked, checked_p) if np.isfinite(p) and decision(p, alpha)]
     g_lo = min(-2.0, lo_eff - 0.5)
     g_hi = max(3.0, hi_eff + 0.5)
     pgrid = np.linspace(max(g_lo, -_LAMBDA_LIMIT), min(g_hi, _LAMBDA_LIMIT), 121)
     pll = prof.loglik(pgrid)
     ci_txt = f"[{_fmt_l(lo)}, {_fmt_l(hi)}]"
     # the lambda inside the interval nearest to 1 (the least transformation) at which the decision changes
-    changes = [(t, p) for t, p in zip(checked, checked_p) if np.isfinite(p) and (p < alpha) != sig_raw]
+    changes = [(t, p) for t, p in zip(checked, checked_p) if np.isfinite(p) and decision(p, alpha) != sig_raw]
     change_at, change_p = min(changes, key=lambda tp: abs(tp[0] - 1.0)) if changes else (None, None)
     hat = f"maximum-likelihood Box-Cox lambda-hat = {lam:.2f} (p = {_fmt_p(box_p)} there)"
     interval = f"the 95% profile interval {ci_txt} around lambda-hat"
@@ -412,12 +413,12 @@ def scale(fit) -> Diagnostic:
         sev = "ok"
         summ = (f"Scale: no transformation is needed (lambda = 1 lies inside {interval}; {hat}) and the "
                 f"interaction decision of the {raw} holds on the {log} and at lambda-hat.")
-        if (log_p < alpha) != sig_raw or (box_p < alpha) != sig_raw:
+        if decision(log_p, alpha) != sig_raw or decision(box_p, alpha) != sig_raw:
             sev = "note"
             which = []
-            if (log_p < alpha) != sig_raw:
+            if decision(log_p, alpha) != sig_raw:
                 which.append(f"on the {log}")
-            if (box_p < alpha) != sig_raw:
+            if decision(box_p, alpha) != sig_raw:
                 which.append(f"at the {hat}")
             summ = (f"Scale: lambda = 1 lies inside {interval}, but the interaction decision of the {raw} "
                     f"changes {' and '.join(which)}.")
@@ -435,8 +436,8 @@ def scale(fit) -> Diagnostic:
         "profile_lambda": [float(t) for t in pgrid],
         "profile_loglik": [_num(v) for v in pll],
         "loglik_max": _num(prof.loglik(lam)[0]),
-        "survives_log": bool((log_p < alpha) == sig_raw),
-        "survives_boxcox": bool((box_p < alpha) == sig_raw),
+        "survives_log": bool(decision(log_p, alpha) == sig_raw),
+        "survives_boxcox": bool(decision(box_p, alpha) == sig_raw),
         "removable": removable,
         "removable_at": removable_at,
         "checked_lambdas": [float(t) for t in checked],

@@ -58,6 +58,7 @@ import numpy as np
 from scipy import stats
 
 from ..core import additive_design, type3_contrasts
+from ..decision import settled
 from ..errors import OptionError
 from ..fit import Fit
 from ..results import MethodResult
@@ -581,7 +582,7 @@ def p_from_count(count: int, B: int, *, alpha: float | None = None) -> dict:
     lo, hi = clopper_pearson(k, B)
     out = {"p": p, "count": k, "mc_se": float(np.sqrt(p * (1.0 - p) / B)), "p_interval": (lo, hi)}
     if alpha is not None:
-        out["settled"] = bool(hi < alpha or lo > alpha)
+        out["settled"] = settled((lo, hi), alpha)
     return out
 
 

@@ -41,7 +41,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from ..decision import decision, near_alpha
+from ..decision import decision, near_alpha, settled
 
 __all__ = ["VERDICTS", "Reason", "EffectVerdict", "Verdict", "conclude", "exit_status",
            "FRAGILE_DELETIONS", "LOW_SENSITIVITY_ETA2"]
@@ -167,10 +167,7 @@ def exit_status(verdict: str, *, strict: bool = False) -> int:
 
 def _settled(m, alpha: float) -> bool:
     """A resampled p is settled when its Monte Carlo interval lies on one side of alpha."""
-    if m.p_interval is None:
-        return True
-    lo, hi = m.p_interval
-    return not (lo < alpha <= hi)
+    return settled(m.p_interval, alpha)
 
 
 def _fmt_p(p: float) -> str:
