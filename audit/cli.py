@@ -76,8 +76,20 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--seed", type=int, metavar="N", default=None,
                    help="seed of the resampling methods, 0 <= N < 2**63 (default: a fresh one, printed in "
                         "the findings)")
+    c.add_argument("--claim", action="append", default=[], metavar="TEXT",
+                   help="the reported result to judge, e.g. 'F(2, 54) = 4.11, p = .022', 'A: F(1, 54) = 15.6, "
+                        "p < .001', 'present' or 'absent' (repeatable, one per effect; unlabelled means the "
+                        "interaction; default: the classical F's decision)")
+    c.add_argument("--calibration", type=int, default=None, metavar="R",
+                   help="replications of the size check on null data shaped like yours (default 2000; 0 off)")
+    c.add_argument("--equivalence", metavar="BOUND",
+                   help="also test that the interaction is smaller than BOUND (RMS interaction term in "
+                        "response units, or eta2=X)")
+    c.add_argument("--strict", action="store_true", help="exit 1 for 'holds with caveats' too")
+    c.add_argument("--no-timestamp", action="store_true",
+                   help="leave the time of the run out of the findings (byte-identical reruns)")
     c.add_argument("--no-diagnostics", action="store_true", help="skip the assumption and design checks")
-    c.add_argument("--no-methods", action="store_true", help="skip the alternative methods")
+    c.add_argument("--no-methods", action="store_true", help="skip the alternative methods (and the verdict)")
     c.add_argument("--json", metavar="PATH", help="write the findings JSON to PATH ('-' for stdout only); never onto the input file")
     c.add_argument("--report", metavar="DIR", help="write report.txt, findings.json and the figures into DIR, replaced as a whole "
                         "(DIR must be new, empty or an earlier report)")
@@ -156,6 +168,8 @@ def _run_check(args, written: list) -> int:
             sheet=args.sheet, encoding=args.encoding, decimal=args.decimal,
             resamples=args.resamples, seed=args.seed, diagnostics=not args.no_diagnostics,
             methods=not args.no_methods, figures=bool(args.report), progress=sys.stderr.isatty(),
+            claim=args.claim or None, calibration=args.calibration, equivalence=args.equivalence,
+            timestamp=not args.no_timestamp,
         )
     text = render_text(findings)
     js = (findings.to_json() + "\n").encode("utf-8")
@@ -185,12 +199,14 @@ def _run_check(args, written: list) -> int:
     if args.json and args.json != "-" and json_name is None:
         refuse_input_overlap(args.json, inputs, option="--json")
         write_file(args.json, js, on_done=lambda: written.append(f"findings JSON {args.json!r}"))
-    return 0
+    return findings.exit_status(strict=args.strict)
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Run the command line; returns the exit status (0 done, 2 bad input or
-    output path, 130 interrupted by Ctrl-C, 143 stopped by SIGTERM)."""
+    """Run the command line; returns the exit status: 0 the conclusion holds
+    (with or without caveats), 1 it is fragile, does not hold or cannot be
+    reproduced, 3 it cannot be judged, 2 bad input or output path, 130
+    interrupted by Ctrl-C, 143 stopped by SIGTERM."""
     from .errors import AuditInputError
 
     previous = {}

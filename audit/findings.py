@@ -18,7 +18,7 @@ from .core import AnovaResult
 from .design import CellStats, DesignSummary
 from .results import Diagnostic, MethodResult
 
-__all__ = ["Findings", "CAUTIONS", "to_jsonable", "SCHEMA_VERSION"]
+__all__ = ["Findings", "CAUTIONS", "to_jsonable", "SCHEMA_VERSION", "findings_schema"]
 
 #: version of the findings JSON layout (raised whenever a key changes meaning or is removed)
 SCHEMA_VERSION = "2.0"
@@ -31,6 +31,13 @@ CAUTIONS = (
     "Clinical and regulatory analyses follow their own guidelines (for example ICH E9) and "
     "pre-specified analysis plans, whatever this audit says.",
 )
+
+
+def findings_schema() -> dict:
+    """The published JSON Schema of the findings JSON (``schema_version`` :data:`SCHEMA_VERSION`)."""
+    from importlib import resources
+
+    return json.loads(resources.files("audit").joinpath("schema/findings.schema.json").read_text("utf-8"))
 
 
 def to_jsonable(x):
@@ -158,7 +165,7 @@ class Findings:
         j = self.judgement
         if j is None:
             return None
-        return {"interaction": j.claims[0].to_dict(), "effects": [c.to_dict() for c in j.claims]}
+        return j.claims[0].to_dict()
 
     def cell_table(self) -> list[dict]:
         c = self.cells
@@ -197,6 +204,7 @@ class Findings:
             "reasons": [r.to_dict() for r in self.reasons],
             "effect_verdicts": [e.to_dict() for e in j.verdict.effects] if j is not None else [],
             "claim": self._claim_dict(),
+            "claims": [c.to_dict() for c in j.claims] if j is not None else [],
             "sensitivity": j.sensitivity.to_dict() if j is not None and j.sensitivity is not None else None,
             "equivalence": j.equivalence.to_dict() if j is not None and j.equivalence is not None else None,
             "calibration": self.calibration.to_dict() if self.calibration is not None else None,

@@ -224,6 +224,37 @@ def _method_lines(f: Findings) -> list[str]:
     return out
 
 
+_VERDICT_WORDS = {
+    "holds": "HOLDS",
+    "holds-with-caveats": "HOLDS, WITH CAVEATS",
+    "fragile": "FRAGILE",
+    "does-not-hold": "DOES NOT HOLD",
+    "not-reproducible": "NOT REPRODUCIBLE",
+    "cannot-judge": "CANNOT BE JUDGED",
+}
+
+
+def _verdict_lines(f: Findings) -> list[str]:
+    j = f.judgement
+    rec = j.claims[0]
+    if rec.source == "stated":
+        what = f"the claim {rec.claim.text!r} about the interaction"
+    elif rec.present is None:
+        what = "the interaction test"
+    else:
+        what = (f"the classical F's conclusion that the interaction is {'present' if rec.present else 'absent'} "
+                "(no claim was stated)")
+    lines = _wrap(f"Verdict: {_VERDICT_WORDS[j.verdict.verdict]}: {sanitize(what)}", "")
+    for i, r in enumerate(j.verdict.reasons[:8], 1):
+        wrapped = _wrap(sanitize(r.text) + f" [{r.ref}]", "     ")
+        wrapped[0] = f"  {i}. " + wrapped[0].lstrip()
+        lines += wrapped
+    for e in j.verdict.effects[1:]:
+        lines += _wrap(f"Main effect {e.effect}: {_VERDICT_WORDS[e.verdict]}"
+                       + (f" ({sanitize(e.reasons[0].text)})" if e.reasons else ""), "  ")
+    return lines
+
+
 def render_text(f: Findings) -> str:
     """The terminal report: design, ANOVA tables, then the standing cautions."""
     src = f.provenance.get("input") or ("summary table" if f.mode == "summary" else "data frame")
@@ -234,6 +265,9 @@ def render_text(f: Findings) -> str:
         f"Data: {sanitize(src)}" + (f"  [sha256 {f.provenance['input_sha256'][:12]}]" if f.provenance.get("input_sha256") else ""),
         "",
     ]
+    if f.judgement is not None:
+        lines += _verdict_lines(f)
+        lines.append("")
     lines += _design_lines(f)
     lines.append("")
     lines += _anova_lines(f)
