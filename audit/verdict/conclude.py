@@ -288,14 +288,17 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
 
     # every settled trusted method agrees: look for fragility, then caveats
     verdict = "holds"
+    # deleting rows to *create* significance is easier than to remove it, so an "absent" claim is
+    # fragile only when a single deletion flips it (matching the fragility check's grades)
+    limit = FRAGILE_DELETIONS if claim_present else 1
     if fragility is not None and fragility.deletions_to_flip is not None \
-            and fragility.deletions_to_flip <= FRAGILE_DELETIONS:
+            and fragility.deletions_to_flip <= limit:
         rows = ", ".join(str(r) for r in fragility.rows[:fragility.deletions_to_flip])
         reasons.append(Reason(text=f"deleting {fragility.deletions_to_flip} observation(s) (row {rows}) flips "
                                    f"the {word} decision at alpha {alpha:g}", ref="diagnostic:fragility",
                               weight="decisive"))
         verdict = "fragile"
-    elif influence is not None and influence.flipping_rows:
+    elif influence is not None and influence.flipping_rows and claim_present:
         rows = ", ".join(str(r) for r in influence.flipping_rows[:5])
         reasons.append(Reason(text=f"deleting a single observation (row {rows}) flips the {word} decision",
                               ref="diagnostic:influence", weight="decisive"))
