@@ -266,7 +266,7 @@ def check_summary(
     diagnostics, methods, figures : bool
         As in :func:`check`; only what cell statistics support is computed
         (the others say they need the raw data).
-    claim, calibration, equivalence, seed, timestamp
+    claim, calibration, equivalence, seed, timestamp : optional
         As in :func:`check` (the size check uses normal errors here).
 
     Returns
