@@ -21,7 +21,7 @@ from .results import Diagnostic, MethodResult
 __all__ = ["Findings", "CAUTIONS", "to_jsonable", "SCHEMA_VERSION", "findings_schema"]
 
 #: version of the findings JSON layout (raised whenever a key changes meaning or is removed)
-SCHEMA_VERSION = "2.0"
+SCHEMA_VERSION = "3.0"
 
 #: shown with every report (an automated audit can mislead if read alone)
 CAUTIONS = (

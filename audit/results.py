@@ -11,7 +11,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-__all__ = ["SEVERITIES", "Diagnostic", "MethodResult", "json_float"]
+__all__ = ["SEVERITIES", "NOT_RUN", "Diagnostic", "MethodResult", "json_float"]
 
 def json_float(x) -> float | None:
     """A JSON-safe float for ``values`` / ``extra``: None for None, NaN or inf."""
@@ -21,8 +21,14 @@ def json_float(x) -> float | None:
     return x if math.isfinite(x) else None
 
 
-#: severity words, mildest first; colour is never the only carrier
-SEVERITIES = ("ok", "note", "warning", "serious")
+#: the project's grade words, mildest first: "clear" (no problem worth stating), "minor" (a small
+#: or uncertain problem, worth knowing), "concern" (large enough to weigh on the interaction test),
+#: "critical" (the interaction test cannot be read at face value).  Colour is never the only carrier.
+SEVERITIES = ("clear", "minor", "concern", "critical")
+
+#: the state of a check that could not be run on this input (e.g. it needs the raw observations
+#: and only cell summaries were given): not a grade, never weighed like a finding
+NOT_RUN = "not-run"
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -34,7 +40,8 @@ class Diagnostic:
     id : str
         Stable identifier ('normality', 'homogeneity', ...).
     severity : str
-        One of :data:`SEVERITIES`.
+        One of :data:`SEVERITIES`, or :data:`NOT_RUN` when the check could not
+        be run on this input (the summary says why).
     summary : str
         One plain sentence naming the consequence for the interaction test.
     values : dict
@@ -51,8 +58,8 @@ class Diagnostic:
     facts: object = field(default=None, compare=False, repr=False)
 
     def __post_init__(self) -> None:
-        if self.severity not in SEVERITIES:
-            raise ValueError(f"severity must be one of {SEVERITIES}, found {self.severity!r}")
+        if self.severity not in SEVERITIES and self.severity != NOT_RUN:
+            raise ValueError(f"severity must be one of {SEVERITIES} or {NOT_RUN!r}, found {self.severity!r}")
 
     def to_dict(self) -> dict:
         return {"id": self.id, "severity": self.severity, "summary": self.summary, "values": self.values}

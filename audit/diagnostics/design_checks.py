@@ -89,7 +89,7 @@ from scipy import stats
 from ..design import balance_class, cell_moments, is_connected
 from ..fit import Fit
 from ..facts import BalanceFacts, IndependenceFacts
-from ..results import Diagnostic
+from ..results import NOT_RUN, Diagnostic
 from .assumptions import NEEDS_DATA, _cell_labels, _num, _worse
 
 __all__ = ["balance", "missingness", "independence", "runs_test", "durbin_watson", "recording_resolution",
@@ -148,7 +148,7 @@ def balance(fit: Fit) -> Diagnostic:
          "single_cells": single, "small_cells": small, "small_cell_limit": SMALL_CELL, "connected": connected,
          "df_interaction": df_ab, "df_error": df_e, "ss_types": ss}
     if df_e == 0 or df_ab <= 0 or not connected:
-        sev = "serious"
+        sev = "critical"
         if df_e == 0:
             cons = "no within-cell replication, so the classical interaction F cannot be formed"
         elif df_ab <= 0:
@@ -156,7 +156,7 @@ def balance(fit: Fit) -> Diagnostic:
         else:
             cons = "the filled cells do not connect the levels, so effects cannot be compared across the parts"
     elif empty or small or ratio > RATIO_LIMIT:
-        sev = "warning"
+        sev = "concern"
         bits = []
         if empty:
             bits.append(f"{len(empty)} empty cell(s)")
@@ -170,10 +170,10 @@ def balance(fit: Fit) -> Diagnostic:
         cons = (", ".join(bits) + f": {kind} the interaction F sensitive to unequal variances and to single "
                 "observations")
     elif cls == "unbalanced":
-        sev = "note"
+        sev = "minor"
         cons = f"unequal cell sizes (ratio {ratio:.2f}): {ss}"
     else:
-        sev = "ok"
+        sev = "clear"
         cons = ss
     summary = f"Balance ({cls}, {c.N} observations in {c.m} of {c.J * c.K} cells): {cons}."
     filled = c.counts[c.counts > 0]
@@ -195,7 +195,7 @@ def missingness(fit: Fit) -> Diagnostic:
     min_expected, cochran_ok} or None, chi2_reason.
     """
     if fit.obs is None:
-        return Diagnostic(id="missingness", severity="note",
+        return Diagnostic(id="missingness", severity=NOT_RUN,
                           summary=f"Missingness {NEEDS_DATA}; a table of cell summaries cannot show rows lost "
                                   "before it was made.", values={"reason": NEEDS_DATA})
     d = fit.obs.dropped
@@ -221,10 +221,10 @@ def missingness(fit: Fit) -> Diagnostic:
         v["chi2"] = None
         v["chi2_reason"] = "no rows with a missing response"
         if d.missing_factor == 0 and d.missing_other == 0:
-            return Diagnostic(id="missingness", severity="ok",
+            return Diagnostic(id="missingness", severity="clear",
                               summary="Missingness: no rows were dropped, so missing data cannot bias the "
                                       "interaction test.", values=v)
-        sev = "warning" if d.missing_factor else "note"
+        sev = "concern" if d.missing_factor else "minor"
         extra = []
         if d.missing_factor:
             extra.append(f"{d.missing_factor} row(s) with a missing factor value belong to no cell")
@@ -250,11 +250,11 @@ def missingness(fit: Fit) -> Diagnostic:
         p = _num(res.pvalue)
     differs = p is not None and p < 0.05
     if differs and span > LOSS_SPAN:
-        sev = "serious"
+        sev = "critical"
     elif differs or overall > LOSS_OVERALL or d.missing_factor:
-        sev = "warning"
+        sev = "concern"
     else:
-        sev = "note"
+        sev = "minor"
     ptxt = f" (chi-square p = {p:.3g}{'' if v['chi2']['cochran_ok'] else ', small expected counts: approximate'})" \
         if p is not None else ""
     what = (f"{int(miss.sum())} row(s) ({overall:.1%}) dropped for a missing response; loss "
@@ -421,27 +421,27 @@ def _serial(rt: dict, dw: dict) -> tuple[str, str | None, str | None]:
     rtxt = f"runs test p = {rp:.3g}" if rp is not None else "runs test not available"
     r1txt = f"lag-1 r = {r1:.2f}" if r1 is not None else "lag-1 r not available"
     if r1 is not None and r1 >= LAG1_SERIOUS:
-        return "serious", "drift", (f"strong positive serial correlation in run order: neighbouring residuals "
+        return "critical", "drift", (f"strong positive serial correlation in run order: neighbouring residuals "
                                     f"are alike, as with drift or clustering ({r1txt}{dws}, {rtxt})")
     if (r1 is not None and r1 >= LAG1_WARN) or few_runs:
-        return "warning", "drift", (f"residuals drift or cluster in run order: neighbours are alike "
+        return "concern", "drift", (f"residuals drift or cluster in run order: neighbours are alike "
                                     f"({rtxt}, {r1txt}{dws})")
     if r1 is not None and r1 <= -LAG1_SERIOUS:
-        return "warning", "alternation", (f"strong negative serial correlation in run order: residuals "
+        return "concern", "alternation", (f"strong negative serial correlation in run order: residuals "
                                           f"alternate from run to run ({r1txt}{dws}, {rtxt}); look for "
                                           "conditions used in turn (two instruments, operators or batches)")
     if r1 is not None and r1 <= -LAG1_WARN and (many_runs or lag_sig):
-        return "warning", "alternation", (f"residuals alternate in run order (negative serial correlation: "
+        return "concern", "alternation", (f"residuals alternate in run order (negative serial correlation: "
                                           f"{r1txt}, lag-1 p = {dw['lag1_p']:.3g}{dws}, {rtxt}); look for "
                                           "conditions used in turn")
     if r1 is not None and r1 <= -LAG1_WARN:
-        return "note", "alternation", (f"negative serial correlation in run order ({r1txt}, lag-1 p = "
+        return "minor", "alternation", (f"negative serial correlation in run order ({r1txt}, lag-1 p = "
                                        f"{dw['lag1_p']:.3g}{dws}) that the runs test does not confirm ({rtxt}): "
                                        "residuals may alternate from run to run")
     if many_runs:
-        return "note", "alternation", (f"more runs above/below the median than chance gives ({rtxt}, {r1txt}): "
+        return "minor", "alternation", (f"more runs above/below the median than chance gives ({rtxt}, {r1txt}): "
                                        "residuals may alternate from run to run")
-    return "ok", None, None
+    return "clear", None, None
 
 
 def independence(fit: Fit) -> Diagnostic:
@@ -459,14 +459,14 @@ def independence(fit: Fit) -> Diagnostic:
     v: dict = {"caveat": INDEPENDENCE_CAVEAT}
     if fit.obs is None:
         v["reason"] = NEEDS_DATA
-        return Diagnostic(id="independence", severity="note",
+        return Diagnostic(id="independence", severity=NOT_RUN,
                           summary=f"Independence: run order and units {NEEDS_DATA}. " + INDEPENDENCE_CAVEAT,
                           values=v, facts=IndependenceFacts(checked=False, pseudo_replication=False,
                                                             serial_dependence=False))
     obs = fit.obs
     v["order_column"] = obs.order_name
     v["unit_column"] = obs.unit_name
-    sev = "ok"
+    sev = "clear"
     findings: list[str] = []
     passed: list[str] = []
     infos: list[str] = []
@@ -500,7 +500,7 @@ def independence(fit: Fit) -> Diagnostic:
         v["units_passed"] = not bool(rep.any())
         checked.append(f"units ({obs.unit_name})")
         if rep.any():
-            sev = "serious"
+            sev = "critical"
             findings.append(f"{int(rep.sum())} unit(s) of '{obs.unit_name}' contribute more than one row "
                             f"(up to {int(cnt.max())}): pseudo-replication, the interaction F treats "
                             "correlated rows as independent and its p-value is too small")
@@ -519,7 +519,7 @@ def independence(fit: Fit) -> Diagnostic:
     v["distinct_response_share"] = float(np.unique(obs.y).size / n) if n else 0.0
     dup = rv["duplicate_rows"]
     if rv["suspicious"]:
-        sev = _worse(sev, "warning")
+        sev = _worse(sev, "concern")
         if rv["expected"] > 0:
             findings.append(f"{dup} repeated value(s) within cells where about {rv['expected']:.1f} are expected "
                             f"from the recording resolution and the cell spreads ({rv['resolution_basis']}; "
@@ -531,7 +531,7 @@ def independence(fit: Fit) -> Diagnostic:
         infos.append(f"{dup} repeated value(s) within cells are what the recording resolution gives "
                      f"({rv['resolution_basis']}; about {rv['expected']:.1f} expected), not a sign of double entry")
     if not checked:
-        sev = _worse(sev, "note")
+        sev = _worse(sev, "minor")
         head = "no run-order or unit column was given, so nothing about independence was tested"
     else:
         head = ""

@@ -30,32 +30,32 @@ reduced data would have.
 Severity rules (written down here and in the contributor guide)
 ---------------------------------------------------------------
 outliers
-    "ok": no studentized deleted residual beyond the Bonferroni cut-off
+    "clear": no studentized deleted residual beyond the Bonferroni cut-off
     t_{1-alpha/(2N)}(N - m - 1) (Bonferroni outlier test: Cook & Weisberg 1982,
-    Residuals and Influence in Regression, sec. 2.2.3).  "warning": one or more
+    Residuals and Influence in Regression, sec. 2.2.3).  "concern": one or more
     beyond it (our choice: whether an outlier matters for the interaction is
     judged by ``influence`` and ``fragility``, so an outlier alone is never
-    "serious").  The pooled SD understates the spread of a high-variance cell,
+    "critical").  The pooled SD understates the spread of a high-variance cell,
     so each flagged value is also judged within its own cell: its studentized
     deleted residual against the cell's SD without it (n_c - 2 df), with the
     same Bonferroni cut-off over N (the same test with the cell's own
     variance; our choice).  When every flagged value is within that cut-off
-    ("its cell's own spread explains it") the severity is "note": the flags
+    ("its cell's own spread explains it") the severity is "minor": the flags
     point to unequal variances (see homogeneity), not to wrong values.  Cells
     with n < 4 are too small to judge this way and keep the warning.  Cook's distance above 4/N is listed as common practice and does
     not change the severity (about 5% of any sample exceeds it).
 influence
-    "serious": deleting a single observation flips the interaction decision at
-    alpha.  "warning": some single deletion changes the interaction p-value by a
-    factor of 10 or more (our choice).  "ok" otherwise.  "note" when the test
+    "critical": deleting a single observation flips the interaction decision at
+    alpha.  "concern": some single deletion changes the interaction p-value by a
+    factor of 10 or more (our choice).  "clear" otherwise.  "minor" when the test
     cannot be formed.
 fragility (after the fragility index of Walsh et al. 2014, J Clin Epidemiol
 67:622-628, which reports the count without fixed thresholds; the cut-offs
 are our choice)
-    significant interaction: 1-2 deletions flip it: "serious"; 3-5: "warning";
-    6 up to the step cap: "note"; not flipped within the cap: "ok".
-    non-significant interaction: 1-2 deletions make it significant: "warning";
-    3 up to the cap: "note"; not within the cap: "ok".
+    significant interaction: 1-2 deletions flip it: "critical"; 3-5: "concern";
+    6 up to the step cap: "minor"; not flipped within the cap: "clear".
+    non-significant interaction: 1-2 deletions make it significant: "concern";
+    3 up to the cap: "minor"; not within the cap: "clear".
 
 Caution: an automated audit supports a statistician's judgement, it does not
 replace it.  Deleting observations because they are influential is not a
@@ -73,7 +73,7 @@ from ..core import weighted_ls_residual
 from ..design import cell_moments, pow2_scale
 from ..decision import decision, decisions
 from ..facts import FragilityFacts, InfluenceFacts, OutlierFacts
-from ..results import Diagnostic, json_float
+from ..results import NOT_RUN, Diagnostic, json_float
 
 __all__ = [
     "outliers",
@@ -364,7 +364,7 @@ def _cell_names(fit, c: int) -> list[str]:
 
 
 def _summary_mode(id_: str) -> Diagnostic:
-    return Diagnostic(id=id_, severity="note", summary=f"{id_}: {_SUMMARY_MODE}.",
+    return Diagnostic(id=id_, severity=NOT_RUN, summary=f"{id_.capitalize()}: {_SUMMARY_MODE}.",
                       values={"available": False, "reason": _SUMMARY_MODE})
 
 
@@ -422,7 +422,7 @@ def outliers(fit) -> Diagnostic:
     df_t = df_e - 1
     if df_t < 1 or sse <= 0:
         return Diagnostic(
-            id="outliers", severity="note",
+            id="outliers", severity="minor",
             summary=("Outliers: too few error degrees of freedom (N - m - 1 < 1) or no within-cell "
                      "variation, so studentized residuals cannot be formed."),
             values={"available": False, "reason": "N - m - 1 < 1 or zero within-cell SS",
@@ -481,7 +481,7 @@ def outliers(fit) -> Diagnostic:
     cmax = int(np.nanargmax(cook)) if any_ok else None
     nf = int(fl_idx.size)
     if nf == 0:
-        sev = "ok"
+        sev = "clear"
         summ = (f"Outliers: no studentized deleted residual beyond the Bonferroni cut-off |t| > {cutoff:.2f} "
                 f"(alpha {alpha:g} over N = {N}); no single extreme value stands out from the cell-means model.")
     else:
@@ -489,7 +489,7 @@ def outliers(fit) -> Diagnostic:
         extreme = [f for f in flagged if f["explained_by_cell"] is False]
         unjudged = [f for f in flagged if f["explained_by_cell"] is None]
         all_explained = len(explained) == len(flagged) and nf <= _LIST_CAP
-        sev = "note" if all_explained else "warning"
+        sev = "minor" if all_explained else "concern"
         shown = ", ".join(str(f["row"]) for f in flagged[:5])
         summ = (f"Outliers: {nf} observation(s) beyond the Bonferroni cut-off |t| > {cutoff:.2f} against the "
                 f"pooled SD (row(s) {shown}{', ...' if nf > 5 else ''})")
@@ -560,7 +560,7 @@ def influence(fit, *, top: int = 10) -> Diagnostic:
     rows = np.asarray(obs.rows)
     if ab.p is None:
         return Diagnostic(
-            id="influence", severity="note",
+            id="influence", severity="minor",
             summary=f"Influence: the interaction test cannot be formed on the full data ({ab.note}), "
                     "so leave-one-out p-values are not available.",
             values={"available": False, "reason": ab.note, "alpha": alpha, "loo_p": [], "rows": [int(r) for r in rows]},
@@ -586,16 +586,16 @@ def influence(fit, *, top: int = 10) -> Diagnostic:
     emptying = cells.counts.ravel()[cell] == 1
     max_lr = float(lr.max()) if valid.any() else 0.0
     if fl.size:
-        sev = "serious"
+        sev = "critical"
         summ = (f"Influence: deleting a single observation flips the interaction decision at alpha {alpha:g} "
                 f"for {fl.size} row(s) (most influential: row {int(rows[fl[0]])}, p {_fmt_p(p0)} -> "
                 f"{_fmt_p(float(p[fl[0]]))}); the interaction conclusion rests on individual observations.")
     elif max_lr >= 1.0:
-        sev = "warning"
+        sev = "concern"
         summ = (f"Influence: no single deletion flips the interaction decision, but deleting row "
                 f"{most[0]['row']} changes its p-value tenfold or more ({_fmt_p(p0)} -> {_fmt_p(most[0]['p'])}).")
     else:
-        sev = "ok"
+        sev = "clear"
         summ = (f"Influence: no single deletion flips the interaction decision at alpha {alpha:g}; "
                 f"leave-one-out p-values range {_fmt_p(float(np.nanmin(p)) if valid.any() else None)} to "
                 f"{_fmt_p(float(np.nanmax(p)) if valid.any() else None)}.")
@@ -639,10 +639,10 @@ def influence(fit, *, top: int = 10) -> Diagnostic:
 
 def _fragility_severity(k, sig0: bool) -> str:
     if k is None:
-        return "ok"
+        return "clear"
     if sig0:
-        return "serious" if k <= 2 else ("warning" if k <= 5 else "note")
-    return "warning" if k <= 2 else "note"
+        return "critical" if k <= 2 else ("concern" if k <= 5 else "minor")
+    return "concern" if k <= 2 else "minor"
 
 
 def fragility(fit, *, max_steps: int = FRAGILITY_MAX_STEPS) -> Diagnostic:
@@ -682,7 +682,7 @@ def fragility(fit, *, max_steps: int = FRAGILITY_MAX_STEPS) -> Diagnostic:
     rows_all = np.asarray(obs.rows)
     if ab.p is None:
         return Diagnostic(
-            id="fragility", severity="note",
+            id="fragility", severity="minor",
             summary=f"Fragility: the interaction test cannot be formed on the full data ({ab.note}).",
             values={"available": False, "reason": ab.note, "alpha": alpha,
                     "deletions_to_flip": None, "rows": [], "max_steps": max_steps},

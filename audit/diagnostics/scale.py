@@ -25,19 +25,19 @@ so the reported l(lambda) is the stated formula on the original y.
 Severity rules (written down here and in the contributor guide)
 ---------------------------------------------------------------
 shape
-    "warning": the interaction is significant at alpha and the cell means do
+    "concern": the interaction is significant at alpha and the cell means do
     not cross in either orientation (ordinal): it may be removable by a monotone
-    transformation (Loftus 1978); see ``scale``.  "note": significant, and the
+    transformation (Loftus 1978); see ``scale``.  "minor": significant, and the
     lines cross only within noise (no crossing with both opposite differences
     beyond 1.96 standard errors; pointwise 95%, unadjusted: our choice).
-    "ok": a crossing beyond noise, or no significant interaction.
+    "clear": a crossing beyond noise, or no significant interaction.
 scale
-    "warning": significant on the raw scale but not after log or Box-Cox at a
+    "concern": significant on the raw scale but not after log or Box-Cox at a
     lambda inside the 95% profile interval ("removable"; Loftus 1978).
-    "note": not significant raw but significant at such a lambda while
+    "minor": not significant raw but significant at such a lambda while
     lambda = 1 lies outside the interval (scale may be masking an interaction),
     or lambda = 1 outside the interval with the decision unchanged, or the
-    check could not be run (non-positive data, summary mode).  "ok" otherwise.
+    check could not be run (non-positive data, summary mode).  "clear" otherwise.
     These gradings are our choice.
 
 Caution: a transformation changes the question (an interaction on the log
@@ -54,7 +54,7 @@ from scipy import optimize, stats
 
 from ..decision import decision
 from ..facts import ScaleFacts, ShapeFacts
-from ..results import Diagnostic
+from ..results import NOT_RUN, Diagnostic
 from ..core import additive_design
 from .influence import _fmt_p, _num, cell_sums, interaction_test
 
@@ -163,20 +163,20 @@ def shape(fit) -> Diagnostic:
         where.append(f"the {fb} lines cross across {fa}" + ("" if o_ba["beyond_noise"] else " (within noise)"))
     desc = "; ".join(where) if where else "no crossing in either plot of the cell means"
     if sig and kind == "ordinal":
-        sev = "warning"
+        sev = "concern"
         summ = (f"Shape: the significant interaction is ordinal ({desc}), so it may be removable by a "
                 "monotone transformation of the response (Loftus 1978): see the scale check before "
                 "reading it as a substantive interaction.")
     elif sig and kind == "crossover within noise":
-        sev = "note"
+        sev = "minor"
         summ = (f"Shape: the significant interaction shows crossing lines only within noise ({desc}); "
                 "treat it as possibly ordinal and see the scale check.")
     elif sig:
-        sev = "ok"
+        sev = "clear"
         summ = (f"Shape: crossover interaction ({desc}); a crossing beyond noise cannot be removed by "
                 "any monotone transformation of the response.")
     else:
-        sev = "ok"
+        sev = "clear"
         summ = (f"Shape: the interaction is not significant at alpha {fit.alpha:g}; the cell means show "
                 f"{desc} (descriptive only).")
     if p is None:
@@ -320,18 +320,18 @@ def scale(fit) -> Diagnostic:
             "decision_changes_at": None, "decision_changes_p": None}
     if fit.obs is None:
         r = "needs the raw observations (only cell summaries were given)"
-        return Diagnostic(id="scale", severity="note",
+        return Diagnostic(id="scale", severity=NOT_RUN,
                           summary=f"Scale: the log and Box-Cox re-tests {r}, so they were not run.",
                           values={**base, "reason": r})
     obs, cells = fit.obs, fit.cells
     y = np.asarray(obs.y_original, dtype=float)
     if raw_p is None:
         r = f"the interaction test cannot be formed on the raw scale ({ab.note})"
-        return Diagnostic(id="scale", severity="note", summary=f"Scale: {r}.", values={**base, "reason": r})
+        return Diagnostic(id="scale", severity="minor", summary=f"Scale: {r}.", values={**base, "reason": r})
     if not (y > 0).all():
         r = (f"log and Box-Cox need a strictly positive response; found minimum {float(y.min()):g} "
              f"({int((y <= 0).sum())} value(s) <= 0)")
-        return Diagnostic(id="scale", severity="note",
+        return Diagnostic(id="scale", severity="minor",
                           summary=f"Scale: not checked: {r}; the scale dependence of the interaction is unknown.",
                           values={**base, "reason": r})
     J, K = cells.J, cells.K
@@ -339,12 +339,12 @@ def scale(fit) -> Diagnostic:
     cell = obs.cell
     if cells.df_within < 1:
         r = "no within-cell replication, so the Box-Cox likelihood of the full model is unbounded"
-        return Diagnostic(id="scale", severity="note", summary=f"Scale: not checked: {r}.",
+        return Diagnostic(id="scale", severity="minor", summary=f"Scale: not checked: {r}.",
                           values={**base, "reason": r})
     lam, (lo, hi), prof = boxcox_profile(y, cell, JK)
     if not np.isfinite(float(prof.loglik(lam)[0])):
         r = "the response is constant within every cell, so the Box-Cox likelihood is unbounded"
-        return Diagnostic(id="scale", severity="note", summary=f"Scale: not checked: {r}.",
+        return Diagnostic(id="scale", severity="minor", summary=f"Scale: not checked: {r}.",
                           values={**base, "reason": r})
     X = additive_design(J, K)
     sig_raw = decision(raw_p, alpha)
@@ -354,7 +354,7 @@ def scale(fit) -> Diagnostic:
         z = prof.transform(np.array([0.0]))[0]
         csorted = np.repeat(np.flatnonzero(cells.counts.ravel() > 0), prof.n.astype(np.int64))
         log_p = interaction_test(*cell_sums(z, csorted, JK), X)[3]
-        return Diagnostic(id="scale", severity="note",
+        return Diagnostic(id="scale", severity="minor",
                           summary=(f"Scale: {r}; on the log scale the interaction p is {_fmt_p(log_p)} "
                                    f"(raw {_fmt_p(raw_p)})."),
                           values={**base, "reason": r, "log_p": _num(log_p),
@@ -394,27 +394,27 @@ def scale(fit) -> Diagnostic:
     log = f"log scale (lambda = 0): p = {_fmt_p(log_p)}"
     raw = f"raw scale (lambda = 1, p = {_fmt_p(raw_p)})"
     if removable:
-        sev = "warning"
+        sev = "concern"
         summ = (f"Scale: the interaction is significant on the {raw} but not at lambda = {change_at:.2f} "
                 f"(p = {_fmt_p(change_p)}), the power nearest to 1 inside {interval} at which the decision "
                 f"changes; {hat}; {log}.  It may be an artefact of the measurement scale (removable), not a "
                 "substantive interaction.")
     elif not sig_raw and not lam1_in and masked_at:
-        sev = "note"
+        sev = "minor"
         summ = (f"Scale: the interaction is not significant on the {raw}, but significant at lambda = "
                 f"{change_at:.2f} (p = {_fmt_p(change_p)}), the power nearest to 1 inside {interval} at which the "
                 f"decision changes; that interval excludes lambda = 1; {hat}; {log}: the raw scale may be "
                 "masking an interaction.")
     elif not lam1_in:
-        sev = "note"
+        sev = "minor"
         summ = (f"Scale: the data favour a transformation ({interval} excludes lambda = 1; {hat}), but the "
                 f"interaction decision at alpha {alpha:g} is the same on the {raw}, the {log} and at lambda-hat.")
     else:
-        sev = "ok"
+        sev = "clear"
         summ = (f"Scale: no transformation is needed (lambda = 1 lies inside {interval}; {hat}) and the "
                 f"interaction decision of the {raw} holds on the {log} and at lambda-hat.")
         if decision(log_p, alpha) != sig_raw or decision(box_p, alpha) != sig_raw:
-            sev = "note"
+            sev = "minor"
             which = []
             if decision(log_p, alpha) != sig_raw:
                 which.append(f"on the {log}")

@@ -158,7 +158,8 @@ def _anova_lines(f: Findings) -> list[str]:
     return out
 
 
-SEVERITY_WORD = {"ok": "OK", "note": "NOTE", "warning": "WARNING", "serious": "SERIOUS"}
+SEVERITY_WORD = {"clear": "clear", "minor": "minor", "concern": "concern", "critical": "critical",
+                 "not-run": "not run"}
 
 
 def _wrap(text: str, indent: str, width: int = 78) -> list[str]:

@@ -49,7 +49,7 @@ __all__ = ["VERDICTS", "Reason", "EffectVerdict", "Verdict", "conclude", "exit_s
 VERDICTS = ("holds", "holds-with-caveats", "fragile", "does-not-hold", "not-reproducible", "cannot-judge")
 
 #: this many deletions or fewer that flip the decision make it fragile (our
-#: choice, matching the fragility check's "serious" grade for a significant effect)
+#: choice, matching the fragility check's "critical" grade for a significant effect)
 FRAGILE_DELETIONS = 2
 
 #: an "absent" claim is weakly supported when the design cannot detect a
@@ -225,7 +225,7 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
     # 1. the reported numbers must be reproducible before anything else counts
     if reconciliation is not None and reconciliation.reproduced is False:
         for c in reconciliation.checks:
-            if not c.ok and getattr(c, "severity", "serious") != "note":
+            if not c.ok and getattr(c, "severity", "critical") != "minor":
                 reasons.append(Reason(text=c.message, ref=f"claim:{c.item}", weight="decisive"))
         if not reasons:
             reasons.append(Reason(text="the reported test cannot be reproduced from the data", ref="claim",

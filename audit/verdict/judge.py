@@ -23,7 +23,7 @@ from .trust import MethodTrust, assess_trust
 
 __all__ = ["ClaimRecord", "Judgement", "judge", "parse_claims", "parse_equivalence"]
 
-_GRADED_FROM = SEVERITIES.index("warning")
+_GRADED_FROM = SEVERITIES.index("concern")
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -54,8 +54,9 @@ class ReconcileCheck:
     ok : bool
         True when the reported value is consistent with the data.
     severity : str
-        'ok' when consistent; 'serious' for an inconsistency that the data cannot
-        produce; 'warning' for a reporting-format error ('p = .000').
+        'clear' when consistent; 'critical' for an inconsistency that the data cannot
+        produce; 'concern' for a reporting-format error ('p = .000'); 'minor' when
+        a value cannot be recomputed.
     expected : float, (float, float), str or None
         What the data give: a df, a recomputed F, a p interval, or the correct format.
     found : float, (float, float), str or None
@@ -340,7 +341,7 @@ def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0
             else f"df1 = {_g(claim.df1)} is reported, but {name} has {eff_df} df in these data: "
             f"the reported test is not of this effect in this design."
         )
-        checks.append(ReconcileCheck(item="df1", ok=ok, severity="ok" if ok else "serious",
+        checks.append(ReconcileCheck(item="df1", ok=ok, severity="clear" if ok else "critical",
                                      expected=float(eff_df), found=float(claim.df1), message=msg))
 
     # df2 ------------------------------------------------------------------
@@ -362,7 +363,7 @@ def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0
             elif diff < 0:
                 msg += "; were observations excluded?"
             msg = msg.rstrip("?") + ("?" if msg.endswith("?") else ".")
-        checks.append(ReconcileCheck(item="df2", ok=ok, severity="ok" if ok else "serious",
+        checks.append(ReconcileCheck(item="df2", ok=ok, severity="clear" if ok else "critical",
                                      expected=float(err_df), found=float(claim.df2), message=msg))
 
     # F --------------------------------------------------------------------
@@ -385,7 +386,7 @@ def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0
         lo, hi = _F_interval(claim)
         if not available:
             checks.append(ReconcileCheck(
-                item="F", ok=False, severity="note", expected=None, found=(lo, hi),
+                item="F", ok=False, severity="minor", expected=None, found=(lo, hi),
                 message=f"F for {name} cannot be recomputed from these data "
                         f"({rows['II'].note or 'no test can be formed'}), so the reported F cannot be checked."))
         else:
@@ -411,7 +412,7 @@ def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0
                        + ", ".join(f"Type {t} gives {available[t].F:.4f}" for t in available)
                        + f"; the closest is {_types_text(closest.same_as)}.")
                 ok = False
-            checks.append(ReconcileCheck(item="F", ok=ok, severity="ok" if ok else "serious",
+            checks.append(ReconcileCheck(item="F", ok=ok, severity="clear" if ok else "critical",
                                          expected=float(closest.F), found=(lo, hi), message=msg))
 
     # p --------------------------------------------------------------------
@@ -434,7 +435,7 @@ def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0
                     msg += (f"; on the data's df ({eff_df}, {err_df}) it would agree (p in {_interval_text(dlo, dhi)}), "
                             f"so the reported df look wrong")
             msg += "."
-            checks.append(ReconcileCheck(item="p", ok=ok, severity="ok" if ok else "serious",
+            checks.append(ReconcileCheck(item="p", ok=ok, severity="clear" if ok else "critical",
                                          expected=(plo, phi), found=found, message=msg))
         elif available:
             agree = tuple(t for t, r in available.items() if _p_consistent(claim, r.p, r.p, alpha))
@@ -443,11 +444,11 @@ def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0
             msg = (f"The reported p ({_reported_p_text(claim)}) "
                    + (f"agrees with the data's p for {_types_text(agree)} ({ps})." if ok
                       else f"does not agree with the data's p for any SS type ({ps})."))
-            checks.append(ReconcileCheck(item="p", ok=ok, severity="ok" if ok else "serious",
+            checks.append(ReconcileCheck(item="p", ok=ok, severity="clear" if ok else "critical",
                                          expected=float(closest.p), found=found, message=msg))
         else:
             checks.append(ReconcileCheck(
-                item="p", ok=False, severity="note", expected=None, found=found,
+                item="p", ok=False, severity="minor", expected=None, found=found,
                 message=f"The p value of {name} cannot be recomputed from these data "
                         f"({rows['II'].note or 'no test can be formed'})."))
 
@@ -456,11 +457,11 @@ def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0
         d = max(claim.p_decimals or 0, 1)
         right = "p < ." + "0" * (d - 1) + "1"
         checks.append(ReconcileCheck(
-            item="p-format", ok=False, severity="warning", expected=right, found=_reported_p_text(claim),
+            item="p-format", ok=False, severity="concern", expected=right, found=_reported_p_text(claim),
             message=f"{_reported_p_text(claim)} is a reporting error: a p value is never zero; it should read {right}."))
 
-    serious = [c for c in checks if c.severity == "serious"]
-    recomputable = [c for c in checks if c.item != "p-format" and c.severity != "note"]
+    serious = [c for c in checks if c.severity == "critical"]
+    recomputable = [c for c in checks if c.item != "p-format" and c.severity != "minor"]
     if serious:
         reproduced = False
         msg = (f"The reported test of {name} cannot be reproduced from these data: "
