@@ -665,8 +665,9 @@ def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.nd
     inf = ~np.isfinite(y)
     if inf.any():
         i = int(np.flatnonzero(keep)[np.argmax(inf)])
+        shown = text_kept[np.argmax(inf)] if text_kept is not None else str(float(y[np.argmax(inf)]))
         raise ResponseError(
-            f"response column {name!r} has an infinite value ({y[np.argmax(inf)]!r}) at row {rows[i]}; "
+            f"response column {name!r} has an infinite value ({shown!r}) at row {rows[i]}; "
             "expected finite numbers; remove or correct it"
         )
     if y.size == 0:

@@ -64,15 +64,28 @@ NUMERIC_KEYS = frozenset({
 _NAN_WORDS = frozenset({"inf", "-inf", "+inf", "infinity", "-infinity", "nan", "-nan"})
 
 
-def strict_json_check(obj, path: str = "$") -> None:
+def strict_json_check(obj, path: str = "$", names: frozenset | None = None) -> None:
     """Assert that a findings JSON (as parsed, or a Findings.to_dict()) never
     holds a string where a number is expected: no 'inf' / 'nan'-like string
     anywhere, no non-finite float, and every value under a :data:`NUMERIC_KEYS`
     key is a finite number, null, or a (nested) list of those.
 
+    A string equal to a level, factor or response name of the findings (a level
+    may be literally called 'nan' or 'inf') is data, not a number, and passes.
+
     source: RFC 8259 (JSON has no NaN or Infinity; numbers are finite) and the
     findings contract in DEVELOPERS.md (a missing number is null with a note)."""
     import math
+
+    if names is None:
+        names = set()
+        if isinstance(obj, dict):
+            for lv in ((obj.get("design") or {}).get("levels") or {}).values():
+                names.update(str(x) for x in lv)
+            names.update(str(x) for x in obj.get("factors") or ())
+            if isinstance(obj.get("response"), str):
+                names.add(obj["response"])
+        names = frozenset(names)
 
     def numeric_ok(v) -> bool:
         if v is None or isinstance(v, bool):
@@ -88,11 +101,11 @@ def strict_json_check(obj, path: str = "$") -> None:
             where = f"{path}.{k}"
             if k in NUMERIC_KEYS and not isinstance(v, dict):
                 assert numeric_ok(v), f"{where}: expected a number or null, found {v!r}"
-            strict_json_check(v, where)
+            strict_json_check(v, where, names)
     elif isinstance(obj, (list, tuple)):
         for i, v in enumerate(obj):
-            strict_json_check(v, f"{path}[{i}]")
-    elif isinstance(obj, str):
+            strict_json_check(v, f"{path}[{i}]", names)
+    elif isinstance(obj, str) and obj not in names:
         assert obj.strip().lower() not in _NAN_WORDS, f"{path}: a number written as the string {obj!r}"
     elif isinstance(obj, float):
         assert math.isfinite(obj), f"{path}: non-finite float {obj!r}"
@@ -106,3 +119,51 @@ def strict_json_loads(text: str):
         raise ValueError(f"non-standard JSON constant {const}")
 
     return json.loads(text, parse_constant=refuse)
+
+
+def findings_json(text):
+    """Parse a findings JSON written by a CLI subprocess (its Findings.to_dict ran in another
+    process, out of reach of the session wrapper below): strict_json_loads + strict_json_check."""
+    d = strict_json_loads(text)
+    strict_json_check(d)
+    return d
+
+
+# ---------------------------------------------------------------------------
+# meta-check: every findings dict produced in the session is strict JSON
+# ---------------------------------------------------------------------------
+
+#: how many Findings.to_dict() results the session checked, and the first violations found
+FINDINGS_CHECKED = {"count": 0, "violations": []}
+
+
+@pytest.fixture(scope="session", autouse=True)
+def _strict_findings_json():
+    """Wrap ``audit.findings.Findings.to_dict`` for the whole session so that every
+    findings dict any test produces (directly, through ``to_json`` or through the
+    in-process CLI) passes :func:`strict_json_check`.  A violation fails the call
+    that produced it (so the test that made it fails) and is recorded.
+
+    source: the findings contract in DEVELOPERS.md (a number or null, never a
+    string or NaN where a number is promised); RFC 8259."""
+    from audit.findings import Findings
+
+    original = Findings.to_dict
+
+    def checked_to_dict(self):
+        d = original(self)
+        FINDINGS_CHECKED["count"] += 1
+        try:
+            strict_json_check(d)
+        except AssertionError as exc:
+            FINDINGS_CHECKED["violations"].append(str(exc))
+            raise
+        return d
+
+    checked_to_dict.__wrapped__ = original
+    checked_to_dict._strict_json_meta_check = True
+    Findings.to_dict = checked_to_dict
+    try:
+        yield FINDINGS_CHECKED
+    finally:
+        Findings.to_dict = original

@@ -12,6 +12,8 @@ import sys
 
 import pytest
 
+from conftest import findings_json
+
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 
 
@@ -73,12 +75,10 @@ def test_bad_input_one_line_exit_2(case, tmp_path):
 
 def test_good_input_exit_0_and_json(tmp_path):
     # common practice: a clean run exits 0; JSON on stdout is parseable
-    import json
-
     r = run("check", os.path.join(ROOT, "fixtures", "bakery_loaf_volume.csv"), "--response", "loaf_volume_ml",
             "--factors", "flour", "hydration", "--json", "-")
     assert r.returncode == 0, r.stderr
-    d = json.loads(r.stdout)
+    d = findings_json(r.stdout)
     assert set(d) >= {"design", "anova", "provenance", "diagnostics", "methods"}
     assert set(d["anova"]) == {"I", "II", "III"}
     assert [row["effect"] for row in d["anova"]["II"]] == ["A", "B", "AB", "residual"]

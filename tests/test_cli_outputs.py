@@ -19,6 +19,8 @@ import time
 
 import pytest
 
+from conftest import findings_json
+
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 ENV = dict(os.environ, PYTHONPATH=ROOT)
 OPTS = ["--response", "y", "--factors", "grp", "trt"]
@@ -82,7 +84,7 @@ def snapshot(folder) -> dict:
     for n in sorted(os.listdir(folder)):
         data = open(os.path.join(folder, n), "rb").read()
         if n == "findings.json":
-            js = json.loads(data)
+            js = findings_json(data)
             data = {k: v for k, v in js.items() if k != "provenance"}, js["provenance"]["input_sha256"]
         out[n] = data
     return out
@@ -180,7 +182,7 @@ def test_symlink_out_of_its_folder_is_refused_and_one_inside_is_followed(tmp_pat
     r = run("check", "v.csv", *OPTS, *QUICK, "--json", "out/latest.json", cwd=tmp_path)
     assert r.returncode == 0, r.stderr
     assert os.path.islink(tmp_path / "out" / "latest.json")
-    assert json.loads((tmp_path / "out" / "run1.json").read_text())["alpha"] == 0.05
+    assert findings_json((tmp_path / "out" / "run1.json").read_text())["alpha"] == 0.05
     assert inp.unchanged() and no_temp_files(tmp_path / "out")
 
 
@@ -199,7 +201,7 @@ def test_fifo_is_written_through_to_its_reader(tmp_path):
     r = run("check", "v.csv", *OPTS, *QUICK, "--json", "pipe.json", cwd=tmp_path)
     t.join(30)
     assert r.returncode == 0, r.stderr
-    assert json.loads(got["data"])["factors"] == ["grp", "trt"]
+    assert findings_json(got["data"])["factors"] == ["grp", "trt"]
     assert stat.S_ISFIFO(os.lstat(fifo).st_mode)  # still a FIFO, not replaced by a file
     assert inp.unchanged() and no_temp_files(tmp_path)
 
@@ -211,7 +213,7 @@ def test_json_to_dev_stdout(tmp_path):
     assert r.returncode == 0 and r.stderr == "", r.stderr
     text, _, js = r.stdout.partition("\n{")
     assert "CLASSICAL TWO-WAY ANOVA" in text  # the report first, then the JSON
-    assert json.loads("{" + js)["mode"] == "data"
+    assert findings_json("{" + js)["mode"] == "data"
     assert os.path.islink("/dev/stdout") and sorted(os.listdir("/dev")) == before
     assert inp.unchanged()
 

@@ -26,6 +26,8 @@ from numpy.testing import assert_allclose, assert_array_equal
 from audit.errors import ColumnError, OptionError, ResponseError
 from audit.intake import load
 
+from conftest import findings_json
+
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 
 SUBSTRATES = ["straw", "sawdust", "coffee"]
@@ -93,7 +95,7 @@ def test_levels_named_like_missing_values_are_levels(tmp_path, name):
     assert obs.dropped.total == 0 and len(obs) == len(rows)
     r = cli(p, "--levels", f"substrate=High,{name},Low", "--json", "-")
     assert r.returncode == 0, r.stderr
-    assert json.loads(r.stdout)["design"]["levels"]["substrate"] == ["High", name, "Low"]
+    assert findings_json(r.stdout)["design"]["levels"]["substrate"] == ["High", name, "Low"]
 
 
 def test_empty_factor_field_is_missing_and_response_tokens_are_missing(tmp_path):
@@ -140,7 +142,7 @@ def test_row_numbers_after_quoted_newlines(tmp_path):
     r = run("check", str(p), "--response", "mass_g", "--factors", "substrate", "strain",
             "--no-methods", "--json", "-")
     assert r.returncode == 0, r.stderr
-    found = json.dumps(json.loads(r.stdout)["diagnostics"])
+    found = json.dumps(findings_json(r.stdout)["diagnostics"])
     assert f'"row": {starts[-1]}' in found
 
 
@@ -265,7 +267,7 @@ def test_latin1_needs_encoding_option(tmp_path):
     one_line_error(cli(p), "not UTF-8", "--encoding latin-1")
     r = cli(p, "--encoding", "latin-1", "--json", "-")
     assert r.returncode == 0, r.stderr
-    assert json.loads(r.stdout)["design"]["levels"]["substrate"] == ["paille", "sciure", "café"]
+    assert findings_json(r.stdout)["design"]["levels"]["substrate"] == ["paille", "sciure", "café"]
     one_line_error(cli(p, "--encoding", "no-such-codec"), "unknown text encoding")
 
 
@@ -282,7 +284,7 @@ def test_numeric_spellings_merged_with_note(tmp_path):
     assert any("'15'" in n and "'15.0'" in n and "merged" in n for n in obs.notes)
     r = cli(p, "--json", "-", factors=("temp_c", "strain"))
     assert r.returncode == 0, r.stderr
-    assert any("merged" in n for n in json.loads(r.stdout)["design"]["notes"])
+    assert any("merged" in n for n in findings_json(r.stdout)["design"]["notes"])
 
 
 def test_numeric_spellings_with_text_stop(tmp_path):
@@ -315,7 +317,7 @@ def test_decimal_comma_file_loads_like_its_dot_twin(tmp_path):
     r1 = cli(dot, "--json", "-", factors=("dose", "strain"))
     r2 = cli(comma, "--decimal", ",", "--json", "-", factors=("dose", "strain"))
     assert r1.returncode == r2.returncode == 0
-    assert json.loads(r1.stdout)["anova"] == json.loads(r2.stdout)["anova"]
+    assert findings_json(r1.stdout)["anova"] == findings_json(r2.stdout)["anova"]
 
 
 def test_decimal_comma_in_tab_file_gives_hint(tmp_path):

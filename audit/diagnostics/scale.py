@@ -84,8 +84,9 @@ def _cell_se(cells) -> np.ndarray:
     return np.where(n > 0, se, np.nan)
 
 
-def _orientation(M: np.ndarray, S: np.ndarray, lines: tuple, across: tuple) -> dict:
-    """Do the lines (rows of M) cross across the columns?  M, S: (L, P)."""
+def _orientation(M: np.ndarray, S: np.ndarray, lines: tuple, across: tuple, unit: float = 1.0) -> dict:
+    """Do the lines (rows of M) cross across the columns?  M, S: (L, P), in units of
+    ``unit`` (the reported differences are multiplied back to the response scale)."""
     L, P = M.shape
     scale = float(np.nanmax(M) - np.nanmin(M)) if np.isfinite(M).any() else 0.0
     tol = 1e-10 * max(scale, np.nanmax(np.abs(M)) if np.isfinite(M).any() else 0.0, 1e-300)
@@ -109,7 +110,7 @@ def _orientation(M: np.ndarray, S: np.ndarray, lines: tuple, across: tuple) -> d
             crossings.append({
                 "lines": [lines[a], lines[b]],
                 "between": [across[kp], across[kn]],
-                "difference": [float(D[kp]), float(D[kn])],
+                "difference": [float(D[kp] * unit), float(D[kn] * unit)],
                 "z": [_num(z[kp]), _num(z[kn])],
                 "strength": _num(strength) if np.isfinite(strength) else None,
                 "_s": float(strength) if np.isfinite(strength) else (math.inf if strength > 0 else -math.inf),
@@ -141,12 +142,13 @@ def shape(fit) -> Diagnostic:
     scale, None for empty cells), ``se`` (J x K).
     """
     cells = fit.cells
-    M = np.where(cells.filled, cells.means, np.nan)
-    S = _cell_se(cells)
+    st = cells.standardised()   # exact power-of-two units: the cell variances neither underflow nor overflow
+    M = np.where(st.filled, st.means, np.nan)
+    S = _cell_se(st)
     la, lb = cells.levels_a, cells.levels_b
     fa, fb = cells.factors
-    o_ab = _orientation(M, S, la, lb)          # lines = levels of A, x axis = B
-    o_ba = _orientation(M.T, S.T, lb, la)      # lines = levels of B, x axis = A
+    o_ab = _orientation(M, S, la, lb, st.unit)          # lines = levels of A, x axis = B
+    o_ba = _orientation(M.T, S.T, lb, la, st.unit)      # lines = levels of B, x axis = A
     if o_ab["beyond_noise"] or o_ba["beyond_noise"]:
         kind = "crossover"
     elif o_ab["crosses"] or o_ba["crosses"]:
@@ -191,7 +193,7 @@ def shape(fit) -> Diagnostic:
         "crossing_z": CROSSING_Z,
         "means": [[(float(disp[j, k]) if cells.filled[j, k] else None) for k in range(cells.K)]
                   for j in range(cells.J)],
-        "se": [[_num(S[j, k]) for k in range(cells.K)] for j in range(cells.J)],
+        "se": [[_num(S[j, k] * st.unit) for k in range(cells.K)] for j in range(cells.J)],
     })
 
 

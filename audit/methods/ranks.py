@@ -283,6 +283,7 @@ def aligned_rank_transform(fit: Fit, *, effect: str = "AB", alignment: str = "ob
     mid = "aligned-rank-transform"
     if fit.obs is None:
         return _no_data(mid, effect)
+    fit = fit.standardised()   # exact power-of-two scale: the self-check's squares stay in range at every scale
     cells = fit.cells
     if cells.m < cells.J * cells.K:
         empty = [cells.cell_label(j, k) for j, k in zip(*np.nonzero(cells.counts == 0))]
