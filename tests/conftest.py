@@ -99,7 +99,7 @@ def strict_json_check(obj, path: str = "$", names: frozenset | None = None) -> N
     if isinstance(obj, dict):
         for k, v in obj.items():
             where = f"{path}.{k}"
-            if k in NUMERIC_KEYS and not isinstance(v, dict):
+            if k in NUMERIC_KEYS and k not in names and not isinstance(v, dict):
                 assert numeric_ok(v), f"{where}: expected a number or null, found {v!r}"
             strict_json_check(v, where, names)
     elif isinstance(obj, (list, tuple)):
@@ -150,11 +150,20 @@ def _strict_findings_json():
 
     original = Findings.to_dict
 
+    import jsonschema
+
+    from audit.findings import findings_schema
+
+    validator = jsonschema.Draft202012Validator(findings_schema())
+
     def checked_to_dict(self):
         d = original(self)
         FINDINGS_CHECKED["count"] += 1
         try:
             strict_json_check(d)
+            # every findings JSON of the session also follows the published schema
+            errors = sorted(validator.iter_errors(d), key=lambda e: list(e.path))
+            assert not errors, f"schema: {list(errors[0].path)}: {errors[0].message[:300]}"
         except AssertionError as exc:
             FINDINGS_CHECKED["violations"].append(str(exc))
             raise
