@@ -13,6 +13,7 @@ import sys
 
 from . import __version__
 from .design import cells_from_summary, describe_design
+from .facts import FragilityFacts
 from .findings import Findings
 from .fit import fit_cells, fit_observations
 from .intake import load
@@ -153,11 +154,12 @@ def check(
 
 
 def _fragility_block(diags: tuple[Diagnostic, ...]) -> dict | None:
+    """The top-level ``fragility`` block of the JSON, from the fragility check's typed facts."""
     for d in diags:
-        if d.id == "fragility" and d.values.get("available", True):
-            v = d.values
-            return {"deletions_to_flip": v.get("deletions_to_flip"), "rows": v.get("rows", []),
-                    "max_steps": v.get("max_steps"), "stopped": v.get("stopped")}
+        if isinstance(d.facts, FragilityFacts):
+            f = d.facts
+            return {"deletions_to_flip": f.deletions_to_flip, "rows": list(f.rows), "max_steps": f.max_steps,
+                    "stopped": f.stopped}
     return None
 
 

@@ -130,12 +130,16 @@ class FragilityFacts:
     max_steps : int
     significant_before : bool or None
         The interaction decision on all the data.
+    stopped : str
+        Why the search ended: 'flipped', 'cap reached' or 'no testable
+        deletion left'.
     """
 
     deletions_to_flip: int | None
     rows: tuple
     max_steps: int
     significant_before: bool | None
+    stopped: str = ""
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -740,8 +740,9 @@ def fragility(fit, *, max_steps: int = FRAGILITY_MAX_STEPS) -> Diagnostic:
                 f"{len(deleted)} greedy deletion(s) (cap {max_steps}); last p {_fmt_p(path[-1] if path else None)}.")
     if emptied:
         summ += f" The deletions empty {len(emptied)} cell(s), which changes the design."
+    stopped = "flipped" if flipped else ("no testable deletion left" if exhausted else "cap reached")
     facts = FragilityFacts(deletions_to_flip=k, rows=tuple(del_rows if flipped else ()), max_steps=max_steps,
-                           significant_before=bool(sig0))
+                           significant_before=bool(sig0), stopped=stopped)
     return Diagnostic(id="fragility", severity=sev, summary=summ, facts=facts, values={
         "available": True,
         "alpha": alpha,
@@ -752,6 +753,6 @@ def fragility(fit, *, max_steps: int = FRAGILITY_MAX_STEPS) -> Diagnostic:
         "rows_tried": del_rows,
         "p_path": path,
         "max_steps": max_steps,
-        "stopped": "flipped" if flipped else ("no testable deletion left" if exhausted else "cap reached"),
+        "stopped": stopped,
         "cells_emptied": emptied,
     })
