@@ -55,7 +55,6 @@ from scipy import optimize, stats
 from ..decision import decision
 from ..facts import ScaleFacts, ShapeFacts
 from ..results import NOT_RUN, Diagnostic
-from ..core import additive_design
 from .influence import _fmt_p, _num, cell_sums, interaction_test
 
 __all__ = ["shape", "scale", "boxcox_profile", "CROSSING_Z"]
@@ -348,14 +347,13 @@ def scale(fit) -> Diagnostic:
         r = "the response is constant within every cell, so the Box-Cox likelihood is unbounded"
         return Diagnostic(id="scale", severity="minor", summary=f"Scale: not checked: {r}.",
                           values={**base, "reason": r})
-    X = additive_design(J, K)
     sig_raw = decision(raw_p, alpha)
     if abs(lam) >= _LAMBDA_LIMIT - 1e-6:
         r = (f"the Box-Cox profile likelihood has no maximum inside [-{_LAMBDA_LIMIT:g}, {_LAMBDA_LIMIT:g}] "
              f"(too little within-cell information: {cells.df_within} error df), so lambda is not determined")
         z = prof.transform(np.array([0.0]))[0]
         csorted = np.repeat(np.flatnonzero(cells.counts.ravel() > 0), prof.n.astype(np.int64))
-        log_p = interaction_test(*cell_sums(z, csorted, JK), X)[3]
+        log_p = interaction_test(*cell_sums(z, csorted, JK), J, K)[3]
         return Diagnostic(id="scale", severity="minor",
                           summary=(f"Scale: {r}; on the log scale the interaction p is {_fmt_p(log_p)} "
                                    f"(raw {_fmt_p(raw_p)})."),
@@ -369,7 +367,7 @@ def scale(fit) -> Diagnostic:
         csorted = np.repeat(np.flatnonzero(cells.counts.ravel() > 0), prof.n.astype(np.int64))
         for row in z:
             n, mu, css = cell_sums(row, csorted, JK)
-            out.append(interaction_test(n, mu, css, X)[3])
+            out.append(interaction_test(n, mu, css, J, K)[3])
         return out
 
     log_p, box_p = p_at([0.0, lam])
