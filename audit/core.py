@@ -38,6 +38,7 @@ __all__ = [
     "weighted_ls_residual",
     "additive_residual",
     "additive_fit_and_leverage",
+    "additive_wls_filled",
     "type3_main_wald",
     "type3_main_rdiag",
     "contrast_matrix",
@@ -348,6 +349,54 @@ def additive_fit_and_leverage(n: np.ndarray, t: np.ndarray):
     if swap:
         R, g = R.T, g.T
     return R, g, sysm.rank, cross
+
+
+def additive_wls_filled(w: np.ndarray, t: np.ndarray, *, leverage: bool = False):
+    """Weighted LS of cell values on A + B with every cell filled, batched over
+    leading axes of the weights as well (w, t of shape (..., J, K), w > 0).
+
+    The reduced normal equations of :class:`_AdditiveSystem` with the last level
+    of the smaller factor as reference (a full grid is connected), one small
+    solve of min(J, K) - 1 unknowns per batch element, one step of iterative
+    refinement.  Returns the residual R (..., J, K) and, with ``leverage``, the
+    leverages g = x' (X' W X)^-1 x (..., J, K) (None otherwise).
+    """
+    w = np.asarray(w, dtype=float)
+    t = np.asarray(t, dtype=float)
+    swap = w.shape[-2] < w.shape[-1]
+    if swap:
+        w, t = np.swapaxes(w, -1, -2), np.swapaxes(t, -1, -2)
+    shape = np.broadcast_shapes(w.shape, t.shape)
+    w = np.broadcast_to(w, shape)
+    k = shape[-1] - 1
+    Da = w.sum(axis=-1)                                       # (..., J)
+    Nm = w[..., :k]                                           # (..., J, k)
+    a = Nm / Da[..., None]
+    S = -np.einsum("...jk,...jl->...kl", Nm, a)
+    idx = np.arange(k)
+    S[..., idx, idx] += w.sum(axis=-2)[..., :k]
+    Si = np.linalg.inv(S) if k else np.zeros(shape[:-2] + (0, 0))
+
+    def residual(v):
+        wv = w * v
+        ra, rb = wv.sum(axis=-1), wv.sum(axis=-2)[..., :k]
+        rhs = rb - np.einsum("...j,...jk->...k", ra / Da, Nm)
+        beta_b = np.einsum("...kl,...l->...k", Si, rhs)
+        alpha = (ra - np.einsum("...jk,...k->...j", Nm, beta_b)) / Da
+        beta = np.concatenate([beta_b, np.zeros(beta_b.shape[:-1] + (1,))], axis=-1)
+        return v - alpha[..., :, None] - beta[..., None, :]
+
+    R = residual(residual(np.broadcast_to(t, shape)))
+    g = None
+    if leverage:
+        aS = np.einsum("...jk,...kl->...jl", a, Si)           # (..., J, k)
+        q = np.sum(aS * a, axis=-1)                           # (..., J)
+        g = (1.0 / Da + q)[..., None] + np.zeros(shape)
+        g[..., :k] += np.diagonal(Si, axis1=-2, axis2=-1)[..., None, :] - 2.0 * aS
+    if swap:
+        R = np.swapaxes(R, -1, -2)
+        g = None if g is None else np.swapaxes(g, -1, -2)
+    return R, g
 
 
 def _weighted_fit(cells: CellStats, terms: tuple[str, ...], centre: float) -> tuple[np.ndarray, float, int]:
