@@ -508,12 +508,15 @@ def type3_main_rdiag(v: np.ndarray, J: int, K: int, effect: str) -> np.ndarray:
 
 
 def type3_contrasts(J: int, K: int) -> dict[str, np.ndarray]:
-    """C_A, C_B, C_AB of METHODS.md section 1 (cells j-major)."""
+    """C_A, C_B, C_AB of METHODS.md section 1 (cells j-major).
+
+    C_A = C_J kron 1'/K, C_B = 1'/J kron C_K, C_AB = C_J kron C_K, built by
+    broadcasting (the same values as numpy.kron, without its overhead)."""
     CJ, CK = contrast_matrix(J), contrast_matrix(K)
     return {
-        "A": np.kron(CJ, np.ones((1, K)) / K),
-        "B": np.kron(np.ones((1, J)) / J, CK),
-        "AB": np.kron(CJ, CK),
+        "A": np.repeat(CJ, K, axis=1) * (np.ones(1) / K),
+        "B": np.tile(CK * (np.ones(1) / J), (1, J)),
+        "AB": (CJ[:, None, :, None] * CK[None, :, None, :]).reshape((J - 1) * (K - 1), J * K),
     }
 
 
