@@ -36,6 +36,11 @@ __all__ = [
     "additive_cell_fit",
     "additive_design",
     "weighted_ls_residual",
+    "additive_residual",
+    "additive_fit_and_leverage",
+    "additive_wls_filled",
+    "type3_main_wald",
+    "type3_main_rdiag",
     "contrast_matrix",
     "partial_eta_sq_ci",
     "ncf_cdf",
@@ -167,7 +172,11 @@ def additive_design(J: int, K: int, terms: tuple[str, ...] = ("A", "B")) -> np.n
 def weighted_ls_residual(X: np.ndarray, w: np.ndarray, target: np.ndarray) -> tuple[np.ndarray, int]:
     """Residual of the weighted least-squares fit of ``target`` on ``X`` over the
     rows with w > 0 (zero elsewhere), with one step of iterative refinement;
-    and the rank of the fit."""
+    and the rank of the fit.
+
+    A dense solve, O(rows x columns^2): for the additive model A + B on a J x K
+    grid of cells use :func:`additive_residual` (structured, O(J K min(J, K))).
+    """
     keep = w > 0
     sw = np.sqrt(w[keep])
     Xk = X[keep]
@@ -180,12 +189,229 @@ def weighted_ls_residual(X: np.ndarray, w: np.ndarray, target: np.ndarray) -> tu
     return out, int(rank)
 
 
+class _AdditiveSystem:
+    """The normal equations of the additive model A + B on a J x K grid of cells
+    with weights n (0 for an empty cell), reduced by eliminating the larger
+    factor's parameters.
+
+    Dummy coding (one column per level of the factor with more levels, one per
+    level of the other minus one reference level in each connected component of
+    the design) gives a full-rank system whose first block is diagonal (the
+    per-level weight totals: eliminating it is taking per-level weighted means);
+    what is left is the Schur complement S over the smaller factor, at most
+    min(J, K) - 1 unknowns.  Levels without a filled cell drop out, and the
+    connected components (scipy.sparse.csgraph on the bipartite graph of filled
+    cells) give the rank: levels present minus components [1, ch. 7].
+    """
+
+    def __init__(self, n: np.ndarray):
+        from scipy.sparse import coo_matrix
+        from scipy.sparse.csgraph import connected_components
+
+        n = np.asarray(n, dtype=float)
+        self.swap = n.shape[0] < n.shape[1]      # the diagonal block takes the larger factor
+        if self.swap:
+            n = n.T
+        J, K = n.shape
+        self.shape = (J, K)
+        self.n = n
+        self.filled = filled = n > 0
+        na, nb = n.sum(axis=1), n.sum(axis=0)
+        ja, kb = np.nonzero(filled)
+        graph = coo_matrix((np.ones(ja.size), (ja, J + kb)), shape=(J + K, J + K))
+        self.components, label = connected_components(graph, directed=False)
+        present_a, present_b = na > 0, nb > 0
+        comps_b = label[J:]
+        ref = np.zeros(K, dtype=bool)              # first present level of each component
+        _, first = np.unique(np.where(present_b, comps_b, -1), return_index=True)
+        ref[first[present_b[first]]] = True
+        self.ia = ia = np.flatnonzero(present_a)
+        self.ib = ib = np.flatnonzero(present_b & ~ref)
+        self.rank = int(ia.size + ib.size)
+        self.Da = na[ia]
+        self.Nm = n[np.ix_(ia, ib)]
+        S = np.diag(nb[ib]) - self.Nm.T @ (self.Nm / self.Da[:, None])
+        self.Si = np.linalg.inv(S) if ib.size else np.zeros((0, 0))
+
+    def residual(self, v: np.ndarray) -> np.ndarray:
+        """v - fit of v (in this system's orientation), 0 on empty cells; v may
+        carry leading batch axes (..., J, K)."""
+        J, K = self.shape
+        wv = self.n * v
+        ra, rb = wv.sum(axis=-1)[..., self.ia], wv.sum(axis=-2)[..., self.ib]
+        beta_b = (rb - (ra / self.Da) @ self.Nm) @ self.Si.T
+        alpha = np.zeros(v.shape[:-1])
+        alpha[..., self.ia] = (ra - beta_b @ self.Nm.T) / self.Da
+        beta = np.zeros(v.shape[:-2] + (K,))
+        beta[..., self.ib] = beta_b
+        return np.where(self.filled, v - alpha[..., :, None] - beta[..., None, :], 0.0)
+
+    def refined_residual(self, t: np.ndarray) -> np.ndarray:
+        t = np.where(self.filled, t, 0.0)
+        r = self.residual(t)
+        return self.residual(r)                  # one step of iterative refinement
+
+
+def additive_residual(n: np.ndarray, t: np.ndarray) -> tuple[np.ndarray, int]:
+    """Weighted least-squares residual of cell values on the additive model A + B.
+
+    Parameters
+    ----------
+    n : ndarray (J, K)
+        Weights (cell counts; 0 for an empty cell).
+    t : ndarray (..., J, K)
+        Cell values to fit (ignored where n = 0); leading axes are a batch.
+
+    Returns
+    -------
+    R : ndarray (..., J, K)
+        t - fit on the filled cells, 0 elsewhere (one step of iterative refinement).
+    rank : int
+        Rank of A + B on the filled cells: levels present minus the connected
+        components of the design (J + K - 1 when connected).
+
+    Notes
+    -----
+    The same fit as :func:`weighted_ls_residual` on :func:`additive_design`, in
+    O(J K min(J, K) + min(J, K)^3) instead of O(J K (J + K)^2): see
+    :class:`_AdditiveSystem`.
+    """
+    sysm = _AdditiveSystem(n)
+    t = np.asarray(t, dtype=float)
+    if sysm.swap:
+        t = np.swapaxes(t, -1, -2)
+    R = sysm.refined_residual(t)
+    if sysm.swap:
+        R = np.swapaxes(R, -1, -2)
+    return R, sysm.rank
+
+
+def additive_fit_and_leverage(n: np.ndarray, t: np.ndarray):
+    """Weighted least-squares fit of the additive model A + B to cell values,
+    with the leverages.
+
+    Parameters
+    ----------
+    n : ndarray (J, K)
+        Cell counts (the weights; 0 for an empty cell).
+    t : ndarray (J, K)
+        Cell values to fit (0 where empty).
+
+    Returns
+    -------
+    R : ndarray (J, K)
+        Residual t - fit on the filled cells (0 elsewhere).
+    g : ndarray (J, K)
+        Leverage of one observation of each filled cell under the additive
+        model, x' (X' W X)^- x (0 elsewhere); the cell's leverage is n g.
+    rank : int
+        Rank of the additive model on the filled cells: levels present minus
+        connected components of the design.
+    cross : callable (j, k) -> ndarray (J, K)
+        x' (X' W X)^- x_c for every cell against cell c = (j, k) (the cell-level
+        hat matrix column of c is n_c times it).
+
+    Notes
+    -----
+    The reduced normal equations of :class:`_AdditiveSystem`.  Cost
+    O(J K min(J, K) + min(J, K)^3), with one step of iterative refinement of
+    the residual.
+    """
+    sysm = _AdditiveSystem(n)
+    swap = sysm.swap
+    t = np.asarray(t, dtype=float)
+    if swap:
+        t = t.T
+    J, K = sysm.shape
+    filled, ia, ib = sysm.filled, sysm.ia, sysm.ib
+    Da, Nm, Si = sysm.Da, sysm.Nm, sysm.Si
+    R = sysm.refined_residual(t)
+    # g_jk = 1/n_j. + (a_j - f_k)' S^-1 (a_j - f_k), a_j = Nm[j] / n_j., f_k the unit vector of k
+    a = np.zeros((J, ib.size))
+    a[ia] = Nm / Da[:, None]
+    aS = np.zeros((J, K))
+    aS[:, ib] = a @ Si
+    Sfull = np.zeros((K, K))
+    Sfull[np.ix_(ib, ib)] = Si
+    dinv = np.zeros(J)
+    dinv[ia] = 1.0 / Da
+    q = np.einsum("ij,ij->i", aS[:, ib], a)
+    g = dinv[:, None] + q[:, None] - 2.0 * aS + np.diag(Sfull)[None, :]
+    g = np.where(filled, g, 0.0)
+
+    def cross(j0: int, k0: int) -> np.ndarray:
+        """x' (X' W X)^- x_c for every cell (0 where empty), c = (j0, k0)."""
+        j, k = (k0, j0) if swap else (j0, k0)
+        out = (dinv[j] * (np.arange(J) == j) + aS[:, ib] @ a[j] - aS[:, k])[:, None] - aS[j][None, :] + Sfull[k][None, :]
+        out = np.where(filled, out, 0.0)
+        return out.T if swap else out
+
+    if swap:
+        R, g = R.T, g.T
+    return R, g, sysm.rank, cross
+
+
+def additive_wls_filled(w: np.ndarray, t: np.ndarray, *, leverage: bool = False):
+    """Weighted LS of cell values on A + B with every cell filled, batched over
+    leading axes of the weights as well (w, t of shape (..., J, K), w > 0).
+
+    The reduced normal equations of :class:`_AdditiveSystem` with the last level
+    of the smaller factor as reference (a full grid is connected), one small
+    solve of min(J, K) - 1 unknowns per batch element, one step of iterative
+    refinement.  Returns the residual R (..., J, K) and, with ``leverage``, the
+    leverages g = x' (X' W X)^-1 x (..., J, K) (None otherwise).
+    """
+    w = np.asarray(w, dtype=float)
+    t = np.asarray(t, dtype=float)
+    swap = w.shape[-2] < w.shape[-1]
+    if swap:
+        w, t = np.swapaxes(w, -1, -2), np.swapaxes(t, -1, -2)
+    shape = np.broadcast_shapes(w.shape, t.shape)
+    w = np.broadcast_to(w, shape)
+    k = shape[-1] - 1
+    Da = w.sum(axis=-1)                                       # (..., J)
+    Nm = w[..., :k]                                           # (..., J, k)
+    a = Nm / Da[..., None]
+    S = -np.einsum("...jk,...jl->...kl", Nm, a)
+    idx = np.arange(k)
+    S[..., idx, idx] += w.sum(axis=-2)[..., :k]
+    Si = np.linalg.inv(S) if k else np.zeros(shape[:-2] + (0, 0))
+
+    def residual(v):
+        wv = w * v
+        ra, rb = wv.sum(axis=-1), wv.sum(axis=-2)[..., :k]
+        rhs = rb - np.einsum("...j,...jk->...k", ra / Da, Nm)
+        beta_b = np.einsum("...kl,...l->...k", Si, rhs)
+        alpha = (ra - np.einsum("...jk,...k->...j", Nm, beta_b)) / Da
+        beta = np.concatenate([beta_b, np.zeros(beta_b.shape[:-1] + (1,))], axis=-1)
+        return v - alpha[..., :, None] - beta[..., None, :]
+
+    R = residual(residual(np.broadcast_to(t, shape)))
+    g = None
+    if leverage:
+        aS = np.einsum("...jk,...kl->...jl", a, Si)           # (..., J, k)
+        q = np.sum(aS * a, axis=-1)                           # (..., J)
+        g = (1.0 / Da + q)[..., None] + np.zeros(shape)
+        g[..., :k] += np.diagonal(Si, axis1=-2, axis2=-1)[..., None, :] - 2.0 * aS
+    if swap:
+        R = np.swapaxes(R, -1, -2)
+        g = None if g is None else np.swapaxes(g, -1, -2)
+    return R, g
+
+
 def _weighted_fit(cells: CellStats, terms: tuple[str, ...], centre: float) -> tuple[np.ndarray, float, int]:
-    """Weighted LS of cell means on a sub-model; returns (fit, Q, rank)."""
+    """Weighted LS of cell means on a sub-model; returns (fit, Q, rank).
+
+    The additive model A + B uses the structured solver
+    (:func:`additive_residual`); other sub-models the dense one."""
     n = cells.counts.ravel().astype(float)
     keep = n > 0
     ybar = np.where(keep, cells.means.ravel() - centre, 0.0)
-    r, rank = weighted_ls_residual(additive_design(cells.J, cells.K, terms), n, ybar)
+    if tuple(terms) == ("A", "B"):
+        r, rank = additive_residual(cells.counts, ybar.reshape(cells.J, cells.K))
+        r = r.ravel()
+    else:
+        r, rank = weighted_ls_residual(additive_design(cells.J, cells.K, terms), n, ybar)
     Q = float(np.sum(n * r * r))
     fit = np.where(keep, ybar - r, np.nan)
     return fit.reshape(cells.J, cells.K) + centre, Q, rank
@@ -217,7 +443,10 @@ def _q_one_way(cells: CellStats, axis: int | None) -> float:
 
 
 def _wald_ss(cells: CellStats, C: np.ndarray) -> float:
-    """(C ybar)' (C D C')^-1 (C ybar) with D = diag(1/n); all cells filled."""
+    """(C ybar)' (C D C')^-1 (C ybar) with D = diag(1/n); all cells filled.
+
+    Dense (O(r^2 JK + r^3) for r contrasts): the Type III main effects use
+    :func:`type3_main_wald`, the same number in O(JK)."""
     ybar = cells.means.ravel() - _grand_mean(cells)
     d = 1.0 / cells.counts.ravel()
     Cy = C @ ybar
@@ -225,13 +454,69 @@ def _wald_ss(cells: CellStats, C: np.ndarray) -> float:
     return float(Cy @ np.linalg.solve(M, Cy))
 
 
+def _marginal_parts(v: np.ndarray, J: int, K: int, effect: str):
+    """Per-level variance of the unweighted marginal mean (w) and the number of
+    cells averaged (L) for the Type III hypothesis of a main effect."""
+    v = np.asarray(v, dtype=float).reshape(v.shape[:-1] + (J, K))
+    if effect == "A":
+        return v.sum(axis=-1) / (K * K), K
+    if effect == "B":
+        return v.sum(axis=-2) / (J * J), J
+    raise ValueError(f"effect: expected 'A' or 'B', found {effect!r}")
+
+
+def type3_main_wald(means: np.ndarray, v: np.ndarray, J: int, K: int, effect: str) -> np.ndarray:
+    """The Type III Wald form of a main effect with a diagonal covariance, in O(JK).
+
+    T = (C ybar)' (C V C')^-1 (C ybar) for C = C_A (or C_B) of
+    :func:`type3_contrasts`, V = diag(v), every cell filled, batched over
+    leading axes of ``means`` and ``v`` (shape (..., J*K), j-major).
+
+    C_A = C_J kron 1'/K, so C_A ybar = C_J mbar with mbar_j the unweighted mean
+    of row j's cell means, and C_A V C_A' = C_J W C_J' with W = diag(w_j),
+    w_j = sum_k v_jk / K^2.  C_J has full row rank J - 1 and null space span(1),
+    so C_J' (C_J W C_J')^-1 C_J = W^-1 - W^-1 1 1' W^-1 / (1' W^-1 1) and
+    T = sum_j (mbar_j - m*)^2 / w_j, m* = sum_j (mbar_j / w_j) / sum_j (1 / w_j):
+    the residual SS of the weighted mean of the marginal means (the usual
+    Wald-to-least-squares identity; Searle 1987 [1], sec. 5.5, common practice).
+    Requires every v > 0 (finite); callers fall back to the dense form otherwise.
+    """
+    means = np.asarray(means, dtype=float)
+    w, L = _marginal_parts(v, J, K, effect)
+    mm = means.reshape(means.shape[:-1] + (J, K))
+    mbar = mm.mean(axis=-1) if effect == "A" else mm.mean(axis=-2)
+    iw = 1.0 / w
+    centre = np.sum(mbar * iw, axis=-1, keepdims=True) / np.sum(iw, axis=-1, keepdims=True)
+    d = mbar - centre
+    return np.sum(d * d * iw, axis=-1)
+
+
+def type3_main_rdiag(v: np.ndarray, J: int, K: int, effect: str) -> np.ndarray:
+    """The diagonal of R = V C' (C V C')^-1 C for a Type III main effect, in O(JK).
+
+    With the notation of :func:`type3_main_wald`, C' (C V C')^-1 C =
+    G kron 1 1' / L^2 (L = K for A, J for B) with G = W^-1 - W^-1 1 1' W^-1 / s,
+    s = sum 1/w, so R_jk,jk = v_jk (1/w_j - 1/(w_j^2 s)) / L^2 (shape (..., J*K)).
+    """
+    v = np.asarray(v, dtype=float)
+    w, L = _marginal_parts(v, J, K, effect)
+    iw = 1.0 / w
+    G = iw - iw * iw / np.sum(iw, axis=-1, keepdims=True)
+    Gc = G[..., :, None] if effect == "A" else G[..., None, :]
+    vv = v.reshape(v.shape[:-1] + (J, K))
+    return (vv * Gc / (L * L)).reshape(v.shape)
+
+
 def type3_contrasts(J: int, K: int) -> dict[str, np.ndarray]:
-    """C_A, C_B, C_AB of METHODS.md section 1 (cells j-major)."""
+    """C_A, C_B, C_AB of METHODS.md section 1 (cells j-major).
+
+    C_A = C_J kron 1'/K, C_B = 1'/J kron C_K, C_AB = C_J kron C_K, built by
+    broadcasting (the same values as numpy.kron, without its overhead)."""
     CJ, CK = contrast_matrix(J), contrast_matrix(K)
     return {
-        "A": np.kron(CJ, np.ones((1, K)) / K),
-        "B": np.kron(np.ones((1, J)) / J, CK),
-        "AB": np.kron(CJ, CK),
+        "A": np.repeat(CJ, K, axis=1) * (np.ones(1) / K),
+        "B": np.tile(CK * (np.ones(1) / J), (1, J)),
+        "AB": (CJ[:, None, :, None] * CK[None, :, None, :]).reshape((J - 1) * (K - 1), J * K),
     }
 
 
@@ -493,9 +778,9 @@ def anova_two_way(cells: CellStats) -> AnovaResult:
         _residual(sse, df_e, ms_e, u, sse_note),
     ))
     if cells.m == J * K:
-        C = type3_contrasts(J, K)
         rows3 = [
-            _row(e, labels[e], _wald_ss(cells, C[e]), C[e].shape[0], sc) for e in ("A", "B")
+            _row(e, labels[e], float(type3_main_wald(cells.means.ravel() - centre, 1.0 / n_all.ravel(), J, K, e)),
+                 (J - 1, K - 1)[i], sc) for i, e in enumerate(("A", "B"))
         ]
     else:
         reason = ("not estimable in the usual sense: with empty cells the unweighted marginal means "

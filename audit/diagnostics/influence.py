@@ -69,7 +69,8 @@ import math
 import numpy as np
 from scipy import stats
 
-from ..core import weighted_ls_residual
+from ..core import additive_fit_and_leverage as _additive_fit_and_leverage
+from ..core import additive_residual
 from ..design import cell_moments, pow2_scale
 from ..decision import decision, decisions
 from ..facts import FragilityFacts, InfluenceFacts, OutlierFacts
@@ -128,123 +129,25 @@ def _f_and_p(Q, sse, df1, df2):
     return F, p
 
 
-def interaction_test(counts: np.ndarray, means: np.ndarray, css: np.ndarray, X: np.ndarray):
-    """Classical interaction F test from flat cell statistics (j-major).
+def interaction_test(counts: np.ndarray, means: np.ndarray, css: np.ndarray, J: int, K: int):
+    """Classical interaction F test from flat cell statistics (j-major, J x K).
 
     Returns (F, df1, df2, p); F and p are NaN when a df is 0.  The interaction
     has m - rank(A+B) df (= (J-1)(K-1) with every cell filled), the same under
-    SS Types I, II and III (METHODS.md section 1).
+    SS Types I, II and III (METHODS.md section 1).  The additive fit is the
+    core's structured solver (:func:`audit.core.additive_residual`).
     """
     counts = np.asarray(counts)
     w = counts.astype(float)
     filled = w > 0
     centre = float(np.sum(w * np.where(filled, means, 0.0)) / w.sum())
-    r, rank = weighted_ls_residual(X, w, np.where(filled, means - centre, 0.0))
-    Q = float(np.sum(w * r * r))
+    r, rank = additive_residual(w.reshape(J, K), np.where(filled, means - centre, 0.0).reshape(J, K))
+    Q = float(np.sum(w * r.ravel() ** 2))
     m = int(filled.sum())
     df1 = m - rank
     df2 = int(counts.sum()) - m
     F, p = _f_and_p(Q, float(np.sum(css)), df1, df2)
     return float(F), df1, df2, float(p)
-
-
-def _additive_fit_and_leverage(n: np.ndarray, t: np.ndarray):
-    """Weighted least-squares fit of the additive model A + B to cell values.
-
-    Parameters
-    ----------
-    n : ndarray (J, K)
-        Cell counts (the weights; 0 for an empty cell).
-    t : ndarray (J, K)
-        Cell values to fit (0 where empty).
-
-    Returns
-    -------
-    R : ndarray (J, K)
-        Residual t - fit on the filled cells (0 elsewhere).
-    g : ndarray (J, K)
-        Leverage of one observation of each filled cell under the additive
-        model, x' (X' W X)^- x (0 elsewhere); the cell's leverage is n g.
-    rank : int
-        Rank of the additive model on the filled cells: levels present minus
-        connected components of the design.
-    cross : callable (j, k) -> ndarray (J, K)
-        x' (X' W X)^- x_c for every cell against cell c = (j, k) (the cell-level
-        hat matrix column of c is n_c times it).
-
-    Notes
-    -----
-    Dummy coding (one column per level of the factor with more levels, one per
-    level of the other minus one reference level in each connected component)
-    gives a full-rank system whose first block is diagonal; eliminating it leaves
-    the Schur complement S over the smaller factor (at most min(J, K) - 1
-    columns).  Cost O(J K min(J, K) + min(J, K)^3), with one step of iterative
-    refinement of the residual.
-    """
-    from scipy.sparse import coo_matrix
-    from scipy.sparse.csgraph import connected_components
-
-    swap = n.shape[0] < n.shape[1]
-    if swap:                                   # the diagonal block takes the larger factor
-        n, t = n.T, t.T
-    J, K = n.shape
-    filled = n > 0
-    na, nb = n.sum(axis=1), n.sum(axis=0)
-    ja, kb = np.nonzero(filled)
-    graph = coo_matrix((np.ones(ja.size), (ja, J + kb)), shape=(J + K, J + K))
-    _, label = connected_components(graph, directed=False)
-    present_a, present_b = na > 0, nb > 0
-    comps_b = label[J:]
-    ref = np.zeros(K, dtype=bool)              # first present B level of each component
-    seen: set = set()
-    for k in np.flatnonzero(present_b):
-        if comps_b[k] not in seen:
-            seen.add(comps_b[k])
-            ref[k] = True
-    ia = np.flatnonzero(present_a)
-    ib = np.flatnonzero(present_b & ~ref)
-    rank = int(ia.size + ib.size)
-    Da = na[ia].astype(float)
-    Nm = n[np.ix_(ia, ib)].astype(float)
-    S = np.diag(nb[ib].astype(float)) - Nm.T @ (Nm / Da[:, None])
-    Si = np.linalg.inv(S) if ib.size else np.zeros((0, 0))
-    w = n.astype(float)
-
-    def residual(v):
-        wv = w * v
-        ra, rb = wv.sum(axis=1)[ia], wv.sum(axis=0)[ib]
-        beta_b = Si @ (rb - Nm.T @ (ra / Da))
-        alpha = np.zeros(J)
-        alpha[ia] = (ra - Nm @ beta_b) / Da
-        beta = np.zeros(K)
-        beta[ib] = beta_b
-        return np.where(filled, v - alpha[:, None] - beta[None, :], 0.0)
-
-    R = residual(np.where(filled, t, 0.0))
-    R = residual(R)                            # one step of iterative refinement
-    # g_jk = 1/n_j. + (a_j - f_k)' S^-1 (a_j - f_k), a_j = Nm[j] / n_j., f_k the unit vector of k
-    a = np.zeros((J, ib.size))
-    a[ia] = Nm / Da[:, None]
-    aS = np.zeros((J, K))
-    aS[:, ib] = a @ Si
-    Sfull = np.zeros((K, K))
-    Sfull[np.ix_(ib, ib)] = Si
-    dinv = np.zeros(J)
-    dinv[ia] = 1.0 / Da
-    q = np.einsum("ij,ij->i", aS[:, ib], a)
-    g = dinv[:, None] + q[:, None] - 2.0 * aS + np.diag(Sfull)[None, :]
-    g = np.where(filled, g, 0.0)
-
-    def cross(j0: int, k0: int) -> np.ndarray:
-        """x' (X' W X)^- x_c for every cell (0 where empty), c = (j0, k0)."""
-        j, k = (k0, j0) if swap else (j0, k0)
-        out = (dinv[j] * (np.arange(J) == j) + aS[:, ib] @ a[j] - aS[:, k])[:, None] - aS[j][None, :] + Sfull[k][None, :]
-        out = np.where(filled, out, 0.0)
-        return out.T if swap else out
-
-    if swap:
-        R, g = R.T, g.T
-    return R, g, rank, cross
 
 
 def loo_interaction(y: np.ndarray, cell: np.ndarray, J: int, K: int):

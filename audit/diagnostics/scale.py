@@ -55,7 +55,6 @@ from scipy import optimize, stats
 from ..decision import decision
 from ..facts import ScaleFacts, ShapeFacts
 from ..results import NOT_RUN, Diagnostic
-from ..core import additive_design
 from .influence import _fmt_p, _num, cell_sums, interaction_test
 
 __all__ = ["shape", "scale", "boxcox_profile", "CROSSING_Z"]
@@ -90,40 +89,49 @@ def _orientation(M: np.ndarray, S: np.ndarray, lines: tuple, across: tuple, unit
     L, P = M.shape
     scale = float(np.nanmax(M) - np.nanmin(M)) if np.isfinite(M).any() else 0.0
     tol = 1e-10 * max(scale, np.nanmax(np.abs(M)) if np.isfinite(M).any() else 0.0, 1e-300)
-    crossings = []
-    for a in range(L):
-        for b in range(a + 1, L):
-            D = M[a] - M[b]
-            se = np.sqrt(S[a] ** 2 + S[b] ** 2)
-            ok = np.isfinite(D)
-            if ok.sum() < 2:
-                continue
-            pos = ok & (D > tol)
-            neg = ok & (D < -tol)
-            if not (pos.any() and neg.any()):
-                continue
-            with np.errstate(invalid="ignore", divide="ignore"):
-                z = np.where(ok & (se > 0), D / se, np.where(D > 0, np.inf, -np.inf))
-            kp = int(np.flatnonzero(pos)[np.argmax(z[pos])])
-            kn = int(np.flatnonzero(neg)[np.argmin(z[neg])])
-            strength = min(z[kp], -z[kn])
-            crossings.append({
-                "lines": [lines[a], lines[b]],
-                "between": [across[kp], across[kn]],
-                "difference": [float(D[kp] * unit), float(D[kn] * unit)],
-                "z": [_num(z[kp]), _num(z[kn])],
-                "strength": _num(strength) if np.isfinite(strength) else None,
-                "_s": float(strength) if np.isfinite(strength) else (math.inf if strength > 0 else -math.inf),
-            })
-    crossings.sort(key=lambda c: -c["_s"])
-    credible = any(c["_s"] > CROSSING_Z for c in crossings)
-    for c in crossings:
-        c.pop("_s")
+    # every pair of lines (a < b, in that order), vectorised over blocks of lines a
+    keep_parts = []
+    block = max(1, 2_000_000 // max(L * P, 1))
+    for a0 in range(0, L, block):
+        a, b = np.nonzero(np.arange(L)[None, :] > np.arange(a0, min(a0 + block, L))[:, None])
+        a = a + a0
+        D = M[a] - M[b]
+        se = np.sqrt(S[a] ** 2 + S[b] ** 2)
+        ok = np.isfinite(D)
+        pos = ok & (D > tol)
+        neg = ok & (D < -tol)
+        live = (ok.sum(axis=1) >= 2) & pos.any(axis=1) & neg.any(axis=1)
+        if not live.any():
+            continue
+        a, b, D, se, ok, pos, neg = a[live], b[live], D[live], se[live], ok[live], pos[live], neg[live]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            z = np.where(ok & (se > 0), D / se, np.where(D > 0, np.inf, -np.inf))
+        kp = np.argmax(np.where(pos, z, -np.inf), axis=1)      # first largest z among positive differences
+        kn = np.argmin(np.where(neg, z, np.inf), axis=1)       # first smallest among negative ones
+        rows = np.arange(a.size)
+        zp, zn = z[rows, kp], z[rows, kn]
+        keep_parts.append((a, b, kp, kn, D[rows, kp], D[rows, kn], zp, zn))
+    if keep_parts:
+        a, b, kp, kn, dp, dn, zp, zn = (np.concatenate(x) for x in zip(*keep_parts))
+    else:
+        a = b = kp = kn = np.zeros(0, dtype=np.int64)
+        dp = dn = zp = zn = np.zeros(0)
+    strength = np.minimum(zp, -zn)
+    key = np.where(np.isfinite(strength), strength, np.where(strength > 0, np.inf, -np.inf))
+    order = np.argsort(-key, kind="stable")
+    credible = bool(np.any(key > CROSSING_Z))
+    crossings = [{
+        "lines": [lines[a[i]], lines[b[i]]],
+        "between": [across[kp[i]], across[kn[i]]],
+        "difference": [float(dp[i] * unit), float(dn[i] * unit)],
+        "z": [_num(zp[i]), _num(zn[i])],
+        "strength": _num(strength[i]) if np.isfinite(strength[i]) else None,
+    } for i in order[:20]]
     return {
-        "crosses": bool(crossings),
-        "beyond_noise": bool(credible),
-        "n_crossing_pairs": len(crossings),
-        "crossings": crossings[:20],
+        "crosses": bool(a.size),
+        "beyond_noise": credible,
+        "n_crossing_pairs": int(a.size),
+        "crossings": crossings,
     }
 
 
@@ -348,14 +356,13 @@ def scale(fit) -> Diagnostic:
         r = "the response is constant within every cell, so the Box-Cox likelihood is unbounded"
         return Diagnostic(id="scale", severity="minor", summary=f"Scale: not checked: {r}.",
                           values={**base, "reason": r})
-    X = additive_design(J, K)
     sig_raw = decision(raw_p, alpha)
     if abs(lam) >= _LAMBDA_LIMIT - 1e-6:
         r = (f"the Box-Cox profile likelihood has no maximum inside [-{_LAMBDA_LIMIT:g}, {_LAMBDA_LIMIT:g}] "
              f"(too little within-cell information: {cells.df_within} error df), so lambda is not determined")
         z = prof.transform(np.array([0.0]))[0]
         csorted = np.repeat(np.flatnonzero(cells.counts.ravel() > 0), prof.n.astype(np.int64))
-        log_p = interaction_test(*cell_sums(z, csorted, JK), X)[3]
+        log_p = interaction_test(*cell_sums(z, csorted, JK), J, K)[3]
         return Diagnostic(id="scale", severity="minor",
                           summary=(f"Scale: {r}; on the log scale the interaction p is {_fmt_p(log_p)} "
                                    f"(raw {_fmt_p(raw_p)})."),
@@ -369,7 +376,7 @@ def scale(fit) -> Diagnostic:
         csorted = np.repeat(np.flatnonzero(cells.counts.ravel() > 0), prof.n.astype(np.int64))
         for row in z:
             n, mu, css = cell_sums(row, csorted, JK)
-            out.append(interaction_test(n, mu, css, X)[3])
+            out.append(interaction_test(n, mu, css, J, K)[3])
         return out
 
     log_p, box_p = p_at([0.0, lam])

@@ -46,12 +46,11 @@ from __future__ import annotations
 import numpy as np
 from scipy import stats
 
-from ..core import additive_cell_fit, anova_two_way, type3_contrasts
+from ..core import additive_cell_fit, anova_two_way, type3_main_wald
 from ..design import CellStats, cells_from_observations
 from ..errors import OptionError
 from ..fit import Fit
 from ..results import MethodResult
-from .wald import wald_quadratic
 from .welch import EFFECTS, check_effect
 
 __all__ = [
@@ -115,16 +114,18 @@ NO_WITHIN_NOTE = ("no variation within cells (every observation equals its cell 
 def type3_f(cells: CellStats) -> dict:
     """Type III F, df and p of A, B and AB (every cell filled, N > m).
 
-    SS_A, SS_B by the Wald form on cell means with D = diag(1/n); SS_AB from
-    the additive model's between-cell residual SS (METHODS.md section 1).
+    SS_A, SS_B by the Wald form on cell means with D = diag(1/n) (its O(JK)
+    form, :func:`audit.core.type3_main_wald`); SS_AB from the additive model's
+    between-cell residual SS (METHODS.md section 1; the core's structured solver).
     Without within-cell variation (or df) F and p are None and ``note`` says
     why, as in the core ANOVA (never an infinite F or a p of 0).
     """
     n = cells.counts.ravel().astype(float)
     ybar = cells.means.ravel()
     ybar = ybar - np.sum(n * ybar) / n.sum()
-    C = type3_contrasts(cells.J, cells.K)
-    ss = {e: float(wald_quadratic(ybar, 1.0 / n, C[e])) for e in ("A", "B")}
+    J, K = cells.J, cells.K
+    ss = {e: float(type3_main_wald(ybar, 1.0 / n, J, K, e)) for e in ("A", "B")}
+    dfs = {"A": J - 1, "B": K - 1, "AB": (J - 1) * (K - 1)}
     ss["AB"] = additive_cell_fit(cells)[1]
     df_e = cells.df_within
     mse = cells.sse_within / df_e if df_e > 0 else 0.0
@@ -132,7 +133,7 @@ def type3_f(cells: CellStats) -> dict:
     tiny = mse <= 0 or cells.sse_within <= 1e-14 * (cells.sse_within + sum(ss.values()))
     out = {}
     for e in EFFECTS:
-        df1 = C[e].shape[0]
+        df1 = dfs[e]
         if df_e <= 0 or tiny:
             out[e] = {"ss": ss[e], "df1": df1, "df2": df_e, "F": None, "p": None,
                       "note": NO_WITHIN_NOTE if df_e > 0 else

@@ -5,11 +5,25 @@ C mu = 0, and every covariance estimate considered here is diagonal over cells:
 S = diag(s2_jk / n_jk) (Welch-James, = HC2), or diag(sum_i omega_i / n_jk^2)
 (HC3, HC4).  These functions accept a leading batch axis so the resampling
 engine can evaluate thousands of resamples at once.
+
+When C is exactly one of the Type III contrasts of a full J x K grid
+(:func:`audit.core.type3_contrasts`) and every variance is positive, the forms
+are evaluated without the r x r system (r up to (J-1)(K-1)): a main effect
+through the weighted mean of its unweighted marginal means
+(:func:`audit.core.type3_main_wald`, :func:`audit.core.type3_main_rdiag`), the
+interaction as the residual SS of the additive model fitted with weights 1/v
+(C_AB spans the complement of the additive columns, so
+C'(C V C')^-1 C = V^-1 - V^-1 X (X' V^-1 X)^-1 X' V^-1; common practice) by the
+core's structured solver (:func:`audit.core.additive_wls_filled`), whose
+leverages give diag R = 1 - g / v.  Same numbers to rounding, O(JK min(J, K))
+instead of O(r^2 JK).
 """
 
 from __future__ import annotations
 
 import numpy as np
+
+from ..core import additive_wls_filled, type3_contrasts, type3_main_rdiag, type3_main_wald
 
 __all__ = ["wald_quadratic", "welch_james_a"]
 
@@ -29,6 +43,16 @@ def wald_quadratic(means: np.ndarray, v: np.ndarray, C: np.ndarray) -> np.ndarra
     """
     means = np.asarray(means, dtype=float)
     v = np.asarray(v, dtype=float)
+    st = _structure(C, v)
+    if st is not None:
+        J, K, effect = st
+        if effect != "AB":
+            return type3_main_wald(means, v, J, K, effect)
+        w = 1.0 / v
+        R, _ = additive_wls_filled(w.reshape(w.shape[:-1] + (J, K)),
+                                   means.reshape(means.shape[:-1] + (J, K)))
+        R = R.reshape(R.shape[:-2] + (J * K,))
+        return np.sum(w * R * R, axis=-1)
     Cy = means @ C.T                                  # (..., r)
     M = (C * v[..., None, :]) @ C.T                   # (..., r, r)
     sol = np.linalg.solve(M, Cy[..., None])[..., 0]
@@ -43,7 +67,53 @@ def welch_james_a(v: np.ndarray, dfs: np.ndarray, C: np.ndarray) -> np.ndarray:
     where f_jk = n_jk - 1 (or h_jk - 1 for trimmed means).
     """
     v = np.asarray(v, dtype=float)
+    st = _structure(C, v)
+    if st is not None:
+        J, K, effect = st
+        if effect != "AB":
+            R_diag = type3_main_rdiag(v, J, K, effect)
+        else:
+            w = 1.0 / v
+            _, g = additive_wls_filled(w.reshape(w.shape[:-1] + (J, K)), np.zeros(v.shape[:-1] + (J, K)),
+                                       leverage=True)
+            R_diag = 1.0 - w * g.reshape(g.shape[:-2] + (J * K,))
+        return np.sum(R_diag ** 2 / dfs, axis=-1)
     M = (C * v[..., None, :]) @ C.T                   # (..., r, r)
     Minv_C = np.linalg.solve(M, np.broadcast_to(C, M.shape[:-2] + C.shape))  # (..., r, m)
     R_diag = v * np.sum(C * Minv_C, axis=-2)          # (..., m)
     return np.sum(R_diag ** 2 / dfs, axis=-1)
+
+
+#: below this many multiply-adds the dense form is used as it is (small designs
+#: keep their numbers bit for bit; the structured forms agree to rounding)
+_DENSE_WORK = 2_000_000
+
+
+def _structure(C: np.ndarray, v: np.ndarray):
+    """(J, K, effect) when C is exactly the Type III contrast of ``effect`` on a
+    full J x K grid, every v is positive and finite, and the dense form would
+    cost more than :data:`_DENSE_WORK`; else None."""
+    C = np.asarray(C)
+    if C.ndim != 2:
+        return None
+    r, m = C.shape
+    if r * r * m < _DENSE_WORK:
+        return None
+    cands = []
+    for e, L in (("A", r + 1), ("B", r + 1)):
+        if m % L == 0 and m // L >= 2:
+            cands.append((L, m // L, e) if e == "A" else (m // L, L, e))
+    s = m - r + 1                                  # J + K for the interaction
+    disc = s * s - 4 * m
+    if disc >= 0:
+        root = int(round(disc ** 0.5))
+        if root * root == disc and (s + root) % 2 == 0:
+            big, small = (s + root) // 2, (s - root) // 2
+            if small >= 2:
+                cands += [(big, small, "AB"), (small, big, "AB")]
+    for J, K, e in cands:
+        if np.array_equal(C, type3_contrasts(J, K)[e]):
+            if not (np.all(np.isfinite(v)) and np.all(v > 0)):
+                return None
+            return J, K, e
+    return None
