@@ -58,10 +58,7 @@ def _method_table(report) -> list[str]:
 
 def render_terminal(report) -> str:
     """The summary printed by ``check`` (see the module docstring)."""
-    top = [*_wrap(report.title, "", _IND), *_wrap(report.source, "", _IND)]
-    if report.design_line:
-        top += _wrap(report.design_line, "Levels: ", _IND)
-    top.append("")
+    top = [*_wrap(report.title, "", _IND), *_wrap(report.source, "", _IND), ""]
     v = report.verdict
     verdict: list[str] = []
     if v is not None:
@@ -84,7 +81,10 @@ def render_terminal(report) -> str:
         for c in report.checks:
             lead = f"{_IND}{sanitize(c.name).ljust(nw)}  {c.grade_word.ljust(gw)}  "
             checks.append(lead + _clip(sanitize(c.headline), WIDTH - 1 - len(lead)))
-    tail = ["", *_wrap(report.where, "", _IND), *_wrap(report.caution_short, "", _IND)]
+    tail = [""]
+    if report.design_line:
+        tail += _wrap(report.design_line, "Levels in the order used: ", _IND)
+    tail += [*_wrap(report.where, "", _IND), *_wrap(report.caution_short, "", _IND)]
     effects = [ln for e in (v.effects if v is not None else ()) for ln in _wrap(e, _IND, _IND + "  ")][:2]
 
     # the reasons get the lines that are left (each at most two lines; the rest are counted)

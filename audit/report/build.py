@@ -10,6 +10,7 @@ for its own medium.
 
 from __future__ import annotations
 
+import os
 import re
 from typing import TYPE_CHECKING
 
@@ -519,7 +520,6 @@ def _main_effects_section(f: Findings) -> Section | None:
     names = _effect_names(f)
     rows = []
     tones = []
-    j = f.judgement
     for eff in ("A", "B"):
         for r in _method_rows(f, eff):
             rows.append((names[eff], r.method, r.statistic, r.df, r.p, r.trusted_short))
@@ -691,8 +691,7 @@ def build_report(f: Findings, *, figures: dict | None = None, report_dir: str | 
                      + f"; {fmt.p_cell(1.0 / (B + 1), B).split(' (B')[0]}"
                      " is the floor 1/(B + 1).")
     if report_dir is not None:
-        where = (f"Full report: {report_dir.rstrip('/')}/report.html (also report.md, report.txt, "
-                 "findings.json, figures).")
+        where = f"Full report: {os.path.join(report_dir, 'report.html')} (also .md, .txt, JSON, figures)."
     else:
         where = "Full report: --full prints it; --report DIR writes HTML, Markdown, figures."
     caution = "An audit supports judgement; independence cannot be checked from the data."
