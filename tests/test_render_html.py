@@ -123,7 +123,8 @@ window.addEventListener("load", function () {
   var bad = 0, n = document.images.length;
   for (var i = 0; i < n; i++) { var im = document.images[i]; if (!im.complete || im.naturalWidth === 0) bad++; }
   var p = document.createElement("pre"); p.id = "probe-result";
-  p.textContent = "images=" + n + " broken=" + bad + " errors=" + window.__errors.length;
+  p.textContent = "images=" + n + " broken=" + bad + " errors=" + window.__errors.length
+                  + " height=" + document.documentElement.scrollHeight;
   document.body.appendChild(p);
 });
 </script>"""
@@ -138,14 +139,17 @@ def test_html_opens_in_headless_chromium(bakery_report, tmp_path):
     # 1. every figure decodes: a copy of the page with a probe script (the report itself has none)
     probe = tmp_path / "probe.html"
     probe.write_text(page.read_text(encoding="utf-8").replace("</head>", _PROBE + "</head>", 1), encoding="utf-8")
-    r = _run_chromium("--virtual-time-budget=5000", "--dump-dom", probe.as_uri())
-    m = re.search(r"images=(\d+) broken=(\d+) errors=(\d+)", r.stdout)
-    assert m, (r.stdout[-500:], r.stderr[-2000:])
-    assert (int(m.group(1)), int(m.group(2)), int(m.group(3))) == (n_png, 0, 0)
+    heights = {}
+    for width in (1280, 390):
+        r = _run_chromium("--virtual-time-budget=5000", f"--window-size={width},2000", "--dump-dom", probe.as_uri())
+        m = re.search(r"images=(\d+) broken=(\d+) errors=(\d+) height=(\d+)", r.stdout)
+        assert m, (r.stdout[-500:], r.stderr[-2000:])
+        assert (int(m.group(1)), int(m.group(2)), int(m.group(3))) == (n_png, 0, 0)
+        heights[width] = min(int(m.group(4)) + 40, 30_000)  # the whole page in one screenshot
     # 2. the report itself: screenshots (desktop full page and phone width), console scanned
     os.makedirs(ARTIFACTS, exist_ok=True)
     shots = {}
-    for name, size in (("report-desktop.png", "1280,4000"), ("report-phone.png", "390,3000")):
+    for name, size in (("report-desktop.png", f"1280,{heights[1280]}"), ("report-phone.png", f"390,{heights[390]}")):
         out = os.path.join(ARTIFACTS, name)
         if os.path.exists(out):
             os.remove(out)
