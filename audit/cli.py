@@ -91,13 +91,18 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--no-diagnostics", action="store_true", help="skip the assumption and design checks")
     c.add_argument("--no-methods", action="store_true", help="skip the alternative methods (and the verdict)")
     c.add_argument("--json", metavar="PATH", help="write the findings JSON to PATH ('-' for stdout only); never onto the input file")
-    c.add_argument("--report", metavar="DIR", help="write report.txt, findings.json and the figures into DIR, replaced as a whole "
-                        "(DIR must be new, empty or an earlier report)")
+    c.add_argument("--report", metavar="DIR", help="write report.html, report.md, report.txt, findings.json and the figures "
+                        "into DIR, replaced as a whole (DIR must be new, empty or an earlier report)")
+    c.add_argument("--full", action="store_true", help="print the whole text report (report.txt) instead of the summary")
     return p
 
 
 REPORT_TEXT = "report.txt"
+REPORT_MARKDOWN = "report.md"
+REPORT_HTML = "report.html"
 REPORT_JSON = "findings.json"
+#: the files a report folder holds besides the figures
+REPORT_NAMES = (REPORT_TEXT, REPORT_MARKDOWN, REPORT_HTML, REPORT_JSON)
 
 _SIGNAL_EXIT = {signal.SIGINT: 130, signal.SIGTERM: 143}
 
@@ -133,14 +138,14 @@ def _run_check(args, written: list) -> int:
     from ._io import (MANIFEST, check_file_target, check_folder_target, refuse_folder_overlap, refuse_input_overlap,
                       replace_folder, write_file)
     inputs = [args.data]
-    known = {REPORT_TEXT, REPORT_JSON}
+    known = set(REPORT_NAMES)
     json_name = None  # set when --json names a file directly inside the report folder: written with it
     if args.json and args.json != "-" and args.report:
         if os.path.realpath(os.path.dirname(os.path.abspath(args.json))) == os.path.realpath(args.report):
             json_name = os.path.basename(args.json)
             from .render.figures import FIGURE_FILES
 
-            if json_name in {REPORT_TEXT, MANIFEST, *FIGURE_FILES.values()}:
+            if json_name in {REPORT_TEXT, REPORT_MARKDOWN, REPORT_HTML, MANIFEST, *FIGURE_FILES.values()}:
                 raise OutputError(f"--json {args.json!r} is a file the report folder itself holds; "
                                   f"choose another name (the folder has its own {REPORT_JSON})")
             known.add(json_name)
@@ -156,7 +161,6 @@ def _run_check(args, written: list) -> int:
         check_folder_target(args.report, known=known)
 
     from .api import check  # the heavy imports only after the output paths passed
-    from .render.text import render_text
 
     with warnings.catch_warnings():
         # floating-point RuntimeWarnings from numpy/scipy inside a run are not messages for the
@@ -171,23 +175,17 @@ def _run_check(args, written: list) -> int:
             claim=args.claim or None, calibration=args.calibration, equivalence=args.equivalence,
             timestamp=not args.no_timestamp,
         )
-    text = render_text(findings)
     js = (findings.to_json() + "\n").encode("utf-8")
-    if args.json == "-":
-        sys.stdout.write(js.decode("utf-8"))
-    else:
-        sys.stdout.write(text)
-    sys.stdout.flush()
+    model = None
     if args.report:
-        from .render.figures import write_figures
+        from .report.files import write_report_files
 
         def build(tmp: str) -> list[str]:
-            with open(os.path.join(tmp, REPORT_TEXT), "w", encoding="utf-8") as fh:
-                fh.write(text)
+            nonlocal model
+            model, names = write_report_files(findings, tmp, report_dir=args.report)
             with open(os.path.join(tmp, REPORT_JSON), "wb") as fh:
                 fh.write(js)
-            figs = write_figures(findings.figure_data, tmp)
-            names = [REPORT_TEXT, REPORT_JSON, *(os.path.basename(p) for p in figs)]
+            names.insert(3, REPORT_JSON)
             if json_name is not None and json_name not in names:
                 with open(os.path.join(tmp, json_name), "wb") as fh:
                     fh.write(js)
@@ -196,6 +194,21 @@ def _run_check(args, written: list) -> int:
 
         replace_folder(args.report, build, known=known,
                        on_done=lambda: written.append(f"report folder {args.report!r}"))
+    else:
+        from .report import build_report
+
+        model = build_report(findings)
+    if args.json == "-":
+        sys.stdout.write(js.decode("utf-8"))
+    elif args.full:
+        from .render.text import render_report_text
+
+        sys.stdout.write(render_report_text(model))
+    else:
+        from .render.terminal import render_terminal
+
+        sys.stdout.write(render_terminal(model))
+    sys.stdout.flush()
     if args.json and args.json != "-" and json_name is None:
         refuse_input_overlap(args.json, inputs, option="--json")
         write_file(args.json, js, on_done=lambda: written.append(f"findings JSON {args.json!r}"))

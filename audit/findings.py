@@ -226,3 +226,63 @@ class Findings:
 
     def to_json(self, *, indent: int | None = 2) -> str:
         return json.dumps(self.to_dict(), indent=indent, allow_nan=False, ensure_ascii=False)
+
+    # -- reports (laid out from the report model, audit.report) --------------------------------------
+
+    def to_text(self) -> str:
+        """The full text report (the content of ``report.txt``)."""
+        from .render.text import render_text
+
+        return render_text(self)
+
+    def to_markdown(self) -> str:
+        """The Markdown report (``report.md``); figures are not linked (they are not written)."""
+        from .render.markdown import render_markdown
+        from .report import build_report
+
+        return render_markdown(build_report(self))
+
+    def to_html(self) -> str:
+        """The self-contained HTML report (``report.html``); figures embedded when the audit
+        was run with ``figures=True``."""
+        from .report.files import html_with_figures
+
+        return html_with_figures(self)
+
+    def _repr_html_(self) -> str:
+        """Notebooks show the HTML report (without drawing figures: call to_html() for them)."""
+        from .render.html import render_html
+        from .report import build_report
+
+        return render_html(build_report(self))
+
+    #: the columns of :meth:`to_frame`, in order (fixed, whatever the options)
+    FRAME_COLUMNS = ("method", "effect", "statistic_name", "statistic", "df1", "df2", "p", "resamples",
+                     "partial_eta_sq", "trusted", "trust_reason", "agrees_with_claim")
+
+    def to_frame(self):
+        """A tidy pandas table of the methods: one row per method and effect.
+
+        Columns (:attr:`FRAME_COLUMNS`): method, effect ('AB', 'A', 'B'), statistic_name,
+        statistic, df1, df2, p, resamples, partial_eta_sq (where the method gives one,
+        else missing), trusted, trust_reason, agrees_with_claim (missing without a verdict
+        or a claim about that effect).
+        """
+        import pandas as pd
+
+        rows = []
+        for d in self._method_dicts():
+            eta = (d.get("extra") or {}).get("partial_eta_sq")
+            rows.append({
+                "method": d["id"], "effect": d["effect"], "statistic_name": d["statistic_name"],
+                "statistic": d["statistic"], "df1": d["df1"], "df2": d["df2"], "p": d["p"],
+                "resamples": d["resamples"], "partial_eta_sq": eta, "trusted": d["trusted"],
+                "trust_reason": d["trust_reason"], "agrees_with_claim": d["agrees_with_claim"],
+            })
+        frame = pd.DataFrame(rows, columns=list(self.FRAME_COLUMNS))
+        for c in ("statistic", "df1", "df2", "p", "partial_eta_sq"):
+            frame[c] = pd.to_numeric(frame[c], errors="coerce").astype("float64")
+        frame["resamples"] = frame["resamples"].astype("Int64")
+        for c in ("trusted", "agrees_with_claim"):
+            frame[c] = frame[c].astype("boolean")
+        return frame

@@ -56,7 +56,7 @@ def test_every_accepted_design_runs_end_to_end(case, tmp_path):
             if row["effect"] != "residual" and row["p"] is None:
                 assert row["note"]
     text = render_text(f)
-    assert "CAUTIONS" in text
+    assert "Cautions" in text
     assert write_figures(f.figure_data, tmp_path)
 
 

@@ -1,4 +1,4 @@
-"""The terminal report: sections in order, severity as words, cautions always shown.
+"""The full text report: sections in order, severity as words, cautions always shown.
 
 common practice: severity is carried by words, not colour alone; the standing cautions
 (an audit supports judgement, independence cannot be checked from data, regulatory
@@ -22,16 +22,22 @@ def test_sections_in_order_and_severity_words():
     f = audit.check(FIXTURE, response="loaf_volume_ml", factors=("flour", "hydration"), order="bake_order",
                     resamples=199, seed=3)
     text = render_text(f)
-    heads = ["DESIGN", "CLASSICAL TWO-WAY ANOVA", "ASSUMPTION AND DESIGN CHECKS",
-             "THE TESTS REFITTED BY OTHER METHODS", "CAUTIONS"]
+    heads = ["1 \u00b7 Verdict", "The claim against every method", "Assumption and design checks", "Design",
+             "Classical ANOVA, all three SS types", "Result lines (APA style)", "Provenance", "Cautions"]
     pos = [text.index(h) for h in heads]
     assert pos == sorted(pos)
-    words = {"[  clear]", "[  minor]", "[concern]", "[critical]", "[not run]"}
-    assert sum(text.count(w) for w in words) == len(f.diagnostics) == 10
+    assert "----" not in text and "CAUTIONS" not in text  # no all-caps headings with dashed underlines
+    lines = text.splitlines()
+    start = lines.index("3 \u00b7 Assumption and design checks")
+    graded = [x for x in lines[start:start + 80]
+              if x.startswith("  ") and x.split("  ")[1:] and any(
+                  f"  {g}  " in x for g in ("clear", "minor", "concern", "critical", "not run"))]
+    assert len(graded) == len(f.diagnostics) == 10
     flat = " ".join(text.split())
     assert "cannot be checked from the data" in flat
     assert "does not replace it" in flat
-    assert "(not valid for AB)" in text  # rank transform is always marked
+    assert "rank-transform: ranking turns main effects into interaction" in flat  # why it is not trusted
+    assert "Type I (sequential" in text and "Type II (each" in text and "Type III (sum-to-zero" in text
 
 
 def test_summary_mode_report_names_what_needs_raw_data():

@@ -1,0 +1,64 @@
+"""The self-contained HTML report (``report.html``).
+
+Lays out the report model (:mod:`audit.report.model`) with a jinja2 template
+(``templates/report.html.j2``) whose autoescaping is on: every column, level and
+file name is user input and renders as text (a level named
+``<script>alert(1)</script>`` shows those characters).  Control characters in
+strings are shown escaped (``\\x1b``) before the HTML escaping.
+
+One file: the figures are embedded as base64 ``data:`` URIs of the PNG files the
+figure writer produced; no script, font or style is loaded from anywhere, so the
+page reads offline, on a phone (responsive CSS) and in print (``@media print``).
+Severity is a word with a colour swatch beside it, never colour alone.
+"""
+
+from __future__ import annotations
+
+import base64
+import os
+
+from .text import sanitize
+
+__all__ = ["render_html", "read_images"]
+
+_ENV = None
+
+
+def _env():
+    global _ENV
+    if _ENV is None:
+        import jinja2
+        import markupsafe
+
+        _ENV = jinja2.Environment(
+            loader=jinja2.PackageLoader("audit.render", "templates"),
+            autoescape=True,  # every template, whatever its name: user strings are never markup
+            undefined=jinja2.StrictUndefined,
+            finalize=lambda x: x if isinstance(x, markupsafe.Markup) or not isinstance(x, str) else sanitize(x),
+            trim_blocks=True, lstrip_blocks=True,
+        )
+    return _ENV
+
+
+def read_images(report, folder) -> dict:
+    """{figure key: base64 text} of the report's figures found in ``folder``."""
+    out = {}
+    for fig in report.figures:
+        path = os.path.join(os.fspath(folder), fig.file)
+        if os.path.isfile(path):
+            with open(path, "rb") as fh:
+                out[fig.key] = base64.b64encode(fh.read()).decode("ascii")
+    return out
+
+
+def render_html(report, images: dict | None = None) -> str:
+    """The HTML report of a report model.
+
+    Parameters
+    ----------
+    report : Report
+    images : dict, optional
+        {figure key: base64 PNG text} (see :func:`read_images`); a figure
+        without one is shown by its caption only.
+    """
+    return _env().get_template("report.html.j2").render(report=report, images=images or {})

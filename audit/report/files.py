@@ -1,0 +1,76 @@
+"""Write the report files of an audit into a folder (the CLI's ``--report`` builds on it).
+
+The folder is a temporary one inside the CLI's replace-as-one-unit machinery;
+this module only writes the files: the figures (by the figure writer), then
+``report.txt``, ``report.md`` and ``report.html`` (figures embedded).
+"""
+
+from __future__ import annotations
+
+import os
+
+__all__ = ["REPORT_FILES", "write_report_files", "html_with_figures"]
+
+#: the report files besides the figures and the findings JSON
+REPORT_FILES = {"text": "report.txt", "markdown": "report.md", "html": "report.html"}
+
+
+def _write(path: str, text: str) -> None:
+    with open(path, "w", encoding="utf-8", newline="\n") as fh:
+        fh.write(text)
+
+
+def write_report_files(findings, folder, *, report_dir: str | None = None, figures: bool = True):
+    """Write the figures and the three report files into ``folder``.
+
+    Parameters
+    ----------
+    findings : Findings
+    folder : path
+        An existing, writable folder (the CLI passes its temporary folder).
+    report_dir : str, optional
+        The folder's final name, for the terminal summary's pointer.
+    figures : bool
+        Draw the figures (needs ``findings.figure_data``).
+
+    Returns
+    -------
+    report : Report
+        The report model (the terminal summary is laid out from it).
+    names : list of str
+        The file names written, figures included.
+    """
+    from ..render.html import read_images, render_html
+    from ..render.markdown import render_markdown
+    from ..render.text import render_report_text
+    from .build import build_report, figures_from_files
+
+    folder = os.fspath(folder)
+    drawn = []
+    if figures and findings.figure_data:
+        from ..render.figures import write_figures
+
+        drawn = [os.path.basename(p) for p in write_figures(findings.figure_data, folder)]
+    report = build_report(findings, figures=figures_from_files(drawn), report_dir=report_dir)
+    _write(os.path.join(folder, REPORT_FILES["text"]), render_report_text(report))
+    _write(os.path.join(folder, REPORT_FILES["markdown"]), render_markdown(report))
+    _write(os.path.join(folder, REPORT_FILES["html"]), render_html(report, read_images(report, folder)))
+    return report, [*REPORT_FILES.values(), *drawn]
+
+
+def html_with_figures(findings) -> str:
+    """The self-contained HTML report; figures drawn into a temporary folder when the
+    findings carry figure data."""
+    import tempfile
+
+    from ..render.html import read_images, render_html
+    from .build import build_report, figures_from_files
+
+    if not findings.figure_data:
+        return render_html(build_report(findings))
+    from ..render.figures import write_figures
+
+    with tempfile.TemporaryDirectory(prefix="twoway-audit-") as tmp:
+        drawn = [os.path.basename(p) for p in write_figures(findings.figure_data, tmp)]
+        report = build_report(findings, figures=figures_from_files(drawn))
+        return render_html(report, read_images(report, tmp))
