@@ -64,7 +64,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="the two factor columns (always treated as categorical)")
     c.add_argument("--alpha", type=float, default=0.05, help="significance level (default 0.05)")
     c.add_argument("--levels", action="append", type=_levels, default=[], metavar="COL=L1,L2,...",
-                   help="level order for a factor (repeatable; default: order of first appearance)")
+                   help="level order for a factor (repeatable; default: numeric for levels such as 4h, 12h, "
+                        "else order of first appearance)")
     c.add_argument("--order", metavar="COL", help="run-order column (independence checks)")
     c.add_argument("--unit", metavar="COL", help="experimental-unit column (pseudo-replication check)")
     c.add_argument("--sheet", metavar="NAME|NUMBER", help="sheet of an .xlsx workbook (needed when it has several)")

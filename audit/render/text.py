@@ -85,6 +85,7 @@ def _design_lines(f: Findings) -> list[str]:
     out.append(f"Response: {sanitize(f.response)}    N used: {d.n}")
     out.append(f"Factor A: {sa} ({len(la)} levels: {', '.join(map(sanitize, la))})")
     out.append(f"Factor B: {sb} ({len(lb)} levels: {', '.join(map(sanitize, lb))})")
+    out.append("Level order: " + "; ".join(f"{sanitize(k)} {v}" for k, v in d.level_order.items()))
     ratio = f", largest/smallest cell = {d.size_ratio:.3g}" if d.size_ratio else ""
     out.append(f"Balance: {d.balance}{ratio}; empty cells: {len(d.empty_cells) or 'none'}; "
                f"cells with n = 1: {len(d.single_cells) or 'none'}")
