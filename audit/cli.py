@@ -94,6 +94,11 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--json", metavar="PATH", help="write the findings JSON to PATH ('-' for stdout only); never onto the input file")
     c.add_argument("--report", metavar="DIR", help="write report.txt, findings.json and the figures into DIR, replaced as a whole "
                         "(DIR must be new, empty or an earlier report)")
+    d = sub.add_parser("demo", help="run the full audit on bundled invented datasets, one per verdict",
+                       description="Run the full audit on the bundled invented datasets, each built to show one "
+                                   "verdict; exit 0 when every dataset gets the verdict it was built to show.")
+    d._sub = "demo"
+    d.add_argument("--report", metavar="DIR", help="also write one report folder per dataset under DIR")
     return p
 
 
@@ -130,9 +135,80 @@ def _fail(message: str) -> int:
     return 2
 
 
+def _report_known() -> set[str]:
+    """The file names a report folder may hold (an earlier report is replaced as a whole)."""
+    from .render.figures import FIGURE_FILES
+
+    return {REPORT_TEXT, REPORT_JSON, *FIGURE_FILES.values()}
+
+
+def _write_report(folder, findings, text: str, js: bytes, *, known, written: list, json_name=None) -> None:
+    """Write one report folder (report text, findings JSON, figures), replaced as a whole."""
+    from ._io import replace_folder
+    from .render.figures import write_figures
+
+    def build(tmp: str) -> list[str]:
+        with open(os.path.join(tmp, REPORT_TEXT), "w", encoding="utf-8") as fh:
+            fh.write(text)
+        with open(os.path.join(tmp, REPORT_JSON), "wb") as fh:
+            fh.write(js)
+        figs = write_figures(findings.figure_data, tmp)
+        names = [REPORT_TEXT, REPORT_JSON, *(os.path.basename(p) for p in figs)]
+        if json_name is not None and json_name not in names:
+            with open(os.path.join(tmp, json_name), "wb") as fh:
+                fh.write(js)
+            names.append(json_name)
+        return names
+
+    replace_folder(folder, build, known=known, on_done=lambda: written.append(f"report folder {folder!r}"))
+
+
+def _run_demo(args, written: list) -> int:
+    """The full audit on the bundled invented datasets (see :mod:`audit.demo`)."""
+    import textwrap
+
+    from ._io import check_folder_target
+    from .demo import DEMO_DATASETS, DEMO_RESAMPLES, DEMO_SEED, run_demo, terminal_lines
+    from .render.text import render_text
+
+    known = _report_known()
+    if args.report:
+        for ds in DEMO_DATASETS:  # every target is checked before any audit runs
+            check_folder_target(os.path.join(args.report, ds.name), known=known)
+    out = sys.stdout
+    out.write(f"twoway-audit demo: the full audit on {len(DEMO_DATASETS)} invented datasets, each built to show "
+              f"one verdict\n(seed {DEMO_SEED}, {DEMO_RESAMPLES:,} resamples per method)\n")
+    rows = []
+    for i, res in enumerate(run_demo(figures=bool(args.report)), 1):
+        ds, f = res.dataset, res.findings
+        out.write(f"\n=== {i}. {ds.file}: built to show '{ds.shows}' ===\n")
+        out.write("\n".join(textwrap.wrap(ds.scenario, 78)) + "\n")
+        out.write(f"Audit: {ds.response} by {ds.factors[0]} x {ds.factors[1]}\n\n")
+        out.write("\n".join(_clean(x) for x in terminal_lines(f)) + "\n")
+        out.flush()
+        if args.report:
+            folder = os.path.join(args.report, ds.name)
+            _write_report(folder, f, render_text(f), (f.to_json() + "\n").encode("utf-8"), known=known,
+                          written=written)
+            out.write(f"Report: {folder}\n")
+        rows.append((ds.name, ds.shows, f.verdict or "-", "yes" if res.as_built else "NO"))
+    header = ("dataset", "built to show", "verdict obtained", "as built")
+    widths = [max(len(r[c]) for r in (header, *rows)) for c in range(4)]
+    out.write("\nSummary\n")
+    for r in (header, *rows):
+        out.write("  ".join(x.ljust(w) for x, w in zip(r, widths)).rstrip() + "\n")
+    ok = all(r[3] == "yes" for r in rows)
+    out.write("\n" + ("Every dataset got the verdict it was built to show." if ok else
+                       "Some datasets did not get the verdict they were built to show.") + "\n")
+    out.write("The datasets are invented. An automated audit supports a statistician's judgement;\n"
+              "it does not replace it.\n")
+    out.flush()
+    return 0 if ok else 1
+
+
 def _run_check(args, written: list) -> int:
     from ._io import (MANIFEST, check_file_target, check_folder_target, refuse_folder_overlap, refuse_input_overlap,
-                      replace_folder, write_file)
+                      write_file)
     inputs = [args.data]
     known = {REPORT_TEXT, REPORT_JSON}
     json_name = None  # set when --json names a file directly inside the report folder: written with it
@@ -149,9 +225,7 @@ def _run_check(args, written: list) -> int:
         refuse_input_overlap(args.json, inputs, option="--json")
         check_file_target(args.json)
     if args.report:
-        from .render.figures import FIGURE_FILES
-
-        known |= set(FIGURE_FILES.values())
+        known |= _report_known()
         refuse_input_overlap(args.report, inputs, option="--report")
         refuse_folder_overlap(args.report, inputs)
         check_folder_target(args.report, known=known)
@@ -180,23 +254,7 @@ def _run_check(args, written: list) -> int:
         sys.stdout.write(text)
     sys.stdout.flush()
     if args.report:
-        from .render.figures import write_figures
-
-        def build(tmp: str) -> list[str]:
-            with open(os.path.join(tmp, REPORT_TEXT), "w", encoding="utf-8") as fh:
-                fh.write(text)
-            with open(os.path.join(tmp, REPORT_JSON), "wb") as fh:
-                fh.write(js)
-            figs = write_figures(findings.figure_data, tmp)
-            names = [REPORT_TEXT, REPORT_JSON, *(os.path.basename(p) for p in figs)]
-            if json_name is not None and json_name not in names:
-                with open(os.path.join(tmp, json_name), "wb") as fh:
-                    fh.write(js)
-                names.append(json_name)
-            return names
-
-        replace_folder(args.report, build, known=known,
-                       on_done=lambda: written.append(f"report folder {args.report!r}"))
+        _write_report(args.report, findings, text, js, known=known, written=written, json_name=json_name)
     if args.json and args.json != "-" and json_name is None:
         refuse_input_overlap(args.json, inputs, option="--json")
         write_file(args.json, js, on_done=lambda: written.append(f"findings JSON {args.json!r}"))
@@ -224,6 +282,8 @@ def main(argv: list[str] | None = None) -> int:
             return 2
         if args.command == "check":
             return _run_check(args, written)
+        if args.command == "demo":
+            return _run_demo(args, written)
     except AuditInputError as exc:
         return _fail(str(exc))
     except (_Stopped, KeyboardInterrupt) as exc:
