@@ -176,8 +176,8 @@ def _run_demo(args, written: list) -> int:
         for ds in DEMO_DATASETS:  # every target is checked before any audit runs
             check_folder_target(os.path.join(args.report, ds.name), known=known)
     out = sys.stdout
-    out.write(f"twoway-audit demo: the full audit on {len(DEMO_DATASETS)} invented datasets, each built to show "
-              f"one verdict\n(seed {DEMO_SEED}, {DEMO_RESAMPLES:,} resamples per method)\n")
+    out.write(f"twoway-audit demo: the full audit on {len(DEMO_DATASETS)} invented datasets, each built to\n"
+              f"show one verdict (seed {DEMO_SEED}, {DEMO_RESAMPLES:,} resamples per method)\n")
     rows = []
     for i, res in enumerate(run_demo(figures=bool(args.report)), 1):
         ds, f = res.dataset, res.findings
@@ -200,8 +200,8 @@ def _run_demo(args, written: list) -> int:
     ok = all(r[3] == "yes" for r in rows)
     out.write("\n" + ("Every dataset got the verdict it was built to show." if ok else
                        "Some datasets did not get the verdict they were built to show.") + "\n")
-    out.write("The datasets are invented. An automated audit supports a statistician's judgement;\n"
-              "it does not replace it.\n")
+    out.write("The datasets are invented. An automated audit supports a statistician's\n"
+              "judgement; it does not replace it.\n")
     out.flush()
     return 0 if ok else 1
 
