@@ -81,8 +81,10 @@ def check(
         Significance level for every decision.
     levels : dict, optional
         {factor: [level, ...]} (or a sequence of (factor, [level, ...]) pairs)
-        to fix a level order (default: first appearance); every level must be
-        listed once.
+        to fix a level order; every level must be listed once.  Default:
+        numeric when every level is a number with the same unit text around it
+        (``4h, 12h, 16h``), else first appearance; the order used is recorded in
+        ``design.level_order``.
     order : str, optional
         Run-order column (used by the independence checks).
     unit : str, optional
@@ -144,7 +146,8 @@ def check(
                sheet=sheet, encoding=encoding, decimal=decimal)
     fit = fit_observations(obs, alpha=alpha)
     design = describe_design(
-        fit.cells, dropped=obs.dropped.to_dict(obs.levels_a, obs.levels_b), centring=obs.centring
+        fit.cells, dropped=obs.dropped.to_dict(obs.levels_a, obs.levels_b), centring=obs.centring,
+        level_order=obs.level_order,
     )
     design = dataclasses.replace(design, notes=(*obs.notes, *design.notes)) if obs.notes else design
     return _assemble(fit, design, mode="data", source=(obs.source.path, obs.source.sha256),

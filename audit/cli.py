@@ -64,7 +64,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="the two factor columns (always treated as categorical)")
     c.add_argument("--alpha", type=float, default=0.05, help="significance level (default 0.05)")
     c.add_argument("--levels", action="append", type=_levels, default=[], metavar="COL=L1,L2,...",
-                   help="level order for a factor (repeatable; default: order of first appearance)")
+                   help="level order for a factor (repeatable; default: numeric for levels such as 4h, 12h, "
+                        "else order of first appearance)")
     c.add_argument("--order", metavar="COL", help="run-order column (independence checks)")
     c.add_argument("--unit", metavar="COL", help="experimental-unit column (pseudo-replication check)")
     c.add_argument("--sheet", metavar="NAME|NUMBER", help="sheet of an .xlsx workbook (needed when it has several)")
@@ -94,6 +95,11 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--report", metavar="DIR", help="write report.html, report.md, report.txt, findings.json and the figures "
                         "into DIR, replaced as a whole (DIR must be new, empty or an earlier report)")
     c.add_argument("--full", action="store_true", help="print the whole text report (report.txt) instead of the summary")
+    d = sub.add_parser("demo", help="run the full audit on bundled invented datasets, one per verdict",
+                       description="Run the full audit on the bundled invented datasets, each built to show one "
+                                   "verdict; exit 0 when every dataset gets the verdict it was built to show.")
+    d._sub = "demo"
+    d.add_argument("--report", metavar="DIR", help="also write one report folder per dataset under DIR")
     return p
 
 
@@ -134,9 +140,81 @@ def _fail(message: str) -> int:
     return 2
 
 
+def _report_known() -> set[str]:
+    """The file names a report folder may hold (an earlier report is replaced as a whole)."""
+    from .render.figures import FIGURE_FILES
+
+    return {*REPORT_NAMES, *FIGURE_FILES.values()}
+
+
+def _write_report(folder, findings, js: bytes, *, known, written: list, json_name=None):
+    """Write one report folder (report.html, report.md, report.txt, findings.json and the
+    figures), replaced as a whole; returns the report model."""
+    from ._io import replace_folder
+    from .report.files import write_report_files
+
+    model = None
+
+    def build(tmp: str) -> list[str]:
+        nonlocal model
+        model, names = write_report_files(findings, tmp, report_dir=folder)
+        with open(os.path.join(tmp, REPORT_JSON), "wb") as fh:
+            fh.write(js)
+        names.insert(3, REPORT_JSON)
+        if json_name is not None and json_name not in names:
+            with open(os.path.join(tmp, json_name), "wb") as fh:
+                fh.write(js)
+            names.append(json_name)
+        return names
+
+    replace_folder(folder, build, known=known, on_done=lambda: written.append(f"report folder {folder!r}"))
+    return model
+
+
+def _run_demo(args, written: list) -> int:
+    """The full audit on the bundled invented datasets (see :mod:`audit.demo`)."""
+    import textwrap
+
+    from ._io import check_folder_target
+    from .demo import DEMO_DATASETS, DEMO_RESAMPLES, DEMO_SEED, run_demo, terminal_lines
+
+    known = _report_known()
+    if args.report:
+        for ds in DEMO_DATASETS:  # every target is checked before any audit runs
+            check_folder_target(os.path.join(args.report, ds.name), known=known)
+    out = sys.stdout
+    out.write(f"twoway-audit demo: the full audit on {len(DEMO_DATASETS)} invented datasets, each built to\n"
+              f"show one verdict (seed {DEMO_SEED}, {DEMO_RESAMPLES:,} resamples per method)\n")
+    rows = []
+    for i, res in enumerate(run_demo(figures=bool(args.report)), 1):
+        ds, f = res.dataset, res.findings
+        out.write(f"\n=== {i}. {ds.file}: built to show '{ds.shows}' ===\n")
+        out.write("\n".join(textwrap.wrap(ds.scenario, 78)) + "\n")
+        out.write(f"Audit: {ds.response} by {ds.factors[0]} x {ds.factors[1]}\n\n")
+        out.write("\n".join(_clean(x) for x in terminal_lines(f)) + "\n")
+        out.flush()
+        if args.report:
+            folder = os.path.join(args.report, ds.name)
+            _write_report(folder, f, (f.to_json() + "\n").encode("utf-8"), known=known, written=written)
+            out.write(f"Report: {folder}\n")
+        rows.append((ds.name, ds.shows, f.verdict or "-", "yes" if res.as_built else "NO"))
+    header = ("dataset", "built to show", "verdict obtained", "as built")
+    widths = [max(len(r[c]) for r in (header, *rows)) for c in range(4)]
+    out.write("\nSummary\n")
+    for r in (header, *rows):
+        out.write("  ".join(x.ljust(w) for x, w in zip(r, widths)).rstrip() + "\n")
+    ok = all(r[3] == "yes" for r in rows)
+    out.write("\n" + ("Every dataset got the verdict it was built to show." if ok else
+                       "Some datasets did not get the verdict they were built to show.") + "\n")
+    out.write("The datasets are invented. An automated audit supports a statistician's\n"
+              "judgement; it does not replace it.\n")
+    out.flush()
+    return 0 if ok else 1
+
+
 def _run_check(args, written: list) -> int:
     from ._io import (MANIFEST, check_file_target, check_folder_target, refuse_folder_overlap, refuse_input_overlap,
-                      replace_folder, write_file)
+                      write_file)
     inputs = [args.data]
     known = set(REPORT_NAMES)
     json_name = None  # set when --json names a file directly inside the report folder: written with it
@@ -153,9 +231,7 @@ def _run_check(args, written: list) -> int:
         refuse_input_overlap(args.json, inputs, option="--json")
         check_file_target(args.json)
     if args.report:
-        from .render.figures import FIGURE_FILES
-
-        known |= set(FIGURE_FILES.values())
+        known |= _report_known()
         refuse_input_overlap(args.report, inputs, option="--report")
         refuse_folder_overlap(args.report, inputs)
         check_folder_target(args.report, known=known)
@@ -178,22 +254,7 @@ def _run_check(args, written: list) -> int:
     js = (findings.to_json() + "\n").encode("utf-8")
     model = None
     if args.report:
-        from .report.files import write_report_files
-
-        def build(tmp: str) -> list[str]:
-            nonlocal model
-            model, names = write_report_files(findings, tmp, report_dir=args.report)
-            with open(os.path.join(tmp, REPORT_JSON), "wb") as fh:
-                fh.write(js)
-            names.insert(3, REPORT_JSON)
-            if json_name is not None and json_name not in names:
-                with open(os.path.join(tmp, json_name), "wb") as fh:
-                    fh.write(js)
-                names.append(json_name)
-            return names
-
-        replace_folder(args.report, build, known=known,
-                       on_done=lambda: written.append(f"report folder {args.report!r}"))
+        model = _write_report(args.report, findings, js, known=known, written=written, json_name=json_name)
     else:
         from .report import build_report
 
@@ -236,6 +297,8 @@ def main(argv: list[str] | None = None) -> int:
             return 2
         if args.command == "check":
             return _run_check(args, written)
+        if args.command == "demo":
+            return _run_demo(args, written)
     except AuditInputError as exc:
         return _fail(str(exc))
     except (_Stopped, KeyboardInterrupt) as exc:

@@ -15,6 +15,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .errors import AuditInputError, ColumnError, FactorError, ResponseError
+from .intake import order_levels
 
 __all__ = [
     "CellStats",
@@ -260,6 +261,16 @@ def cells_from_observations(
     )
 
 
+def _ordered_codes(col):
+    """Level codes and levels of a summary-table factor, in :func:`audit.intake.order_levels` order."""
+    import pandas as pd
+
+    codes, first = pd.factorize(col.astype(str), sort=False)
+    levels, _how = order_levels(first)
+    rank = np.array([levels.index(str(v)) for v in first], dtype=np.int64)
+    return rank[codes], levels
+
+
 def cells_from_summary(
     table,
     *,
@@ -288,8 +299,8 @@ def cells_from_summary(
             f"summary table: column {missing[0]!r} not found; expected columns {needed}, "
             f"found {list(map(str, table.columns))}; name the columns with factors=, mean=, sd=, n="
         )
-    a_codes, a_levels = pd.factorize(table[factors[0]].astype(str), sort=False)
-    b_codes, b_levels = pd.factorize(table[factors[1]].astype(str), sort=False)
+    a_codes, a_levels = _ordered_codes(table[factors[0]])
+    b_codes, b_levels = _ordered_codes(table[factors[1]])
     J, K = len(a_levels), len(b_levels)
     for name, L in ((factors[0], J), (factors[1], K)):
         if L < 2:
@@ -405,6 +416,9 @@ class DesignSummary:
         Statement of the exact decimal centring done at intake, if any.
     notes : list of str
         Plain statements about what is and is not estimable.
+    level_order : dict
+        {factor: how its levels were ordered}: 'given', 'numeric' or
+        'first appearance' (see :func:`audit.intake.order_levels`).
     """
 
     n: int
@@ -420,6 +434,7 @@ class DesignSummary:
     dropped_rows: dict
     centring: str | None = None
     notes: tuple[str, ...] = field(default_factory=tuple)
+    level_order: dict = field(default_factory=dict)
 
     def to_dict(self) -> dict:
         return {
@@ -436,11 +451,17 @@ class DesignSummary:
             "dropped_rows": self.dropped_rows,
             "centring": self.centring,
             "notes": list(self.notes),
+            "level_order": dict(self.level_order),
         }
 
 
-def describe_design(cells: CellStats, *, dropped: dict | None = None, centring: str | None = None) -> DesignSummary:
-    """Describe the layout: counts, empty and small cells, balance, connectedness."""
+def describe_design(cells: CellStats, *, dropped: dict | None = None, centring: str | None = None,
+                    level_order: tuple[str, str] | None = None) -> DesignSummary:
+    """Describe the layout: counts, empty and small cells, balance, connectedness.
+
+    ``level_order`` says how each factor's levels were ordered (default: worked
+    out from the levels themselves, as :func:`audit.intake.order_levels` does).
+    """
     c = cells.counts
     la, lb = cells.levels_a, cells.levels_b
     pairs = lambda mask: [[la[j], lb[k]] for j, k in zip(*np.nonzero(mask))]  # noqa: E731
@@ -482,4 +503,5 @@ def describe_design(cells: CellStats, *, dropped: dict | None = None, centring: 
         dropped_rows=dropped if dropped is not None else {"total": 0},
         centring=centring,
         notes=tuple(notes),
+        level_order=dict(zip(cells.factors, level_order or (order_levels(la)[1], order_levels(lb)[1]))),
     )

@@ -1,8 +1,11 @@
 """Stage 1 of the flow: read a long-format dataset and validate it at the edge.
 
 One row per observation: a numeric response and two factor columns.  Factors
-are always categorical (doses 0.5 / 1 / 2 are three levels), levels in order of
-first appearance unless an order is given.  Rows with a missing response or
+are always categorical (doses 0.5 / 1 / 2 are three levels).  Level order (see
+:func:`order_levels`): an order given with ``levels=`` / ``--levels``; else
+numeric when every level of the factor is a number with the same unit text
+before and after it (``4h, 12h, 16h``; ``0.5mg, 1mg, 2mg``; ``-5C, 10C``);
+else first appearance.  Rows with a missing response or
 factor are dropped and *counted* per cell; nothing is dropped silently.  The
 input file is only read, never written.
 
@@ -49,7 +52,8 @@ import numpy as np
 
 from .errors import AuditInputError, ColumnError, DataFileError, FactorError, OptionError, ResponseError
 
-__all__ = ["Observations", "DroppedRows", "read_table", "prepare", "load", "RESPONSE_NA_TOKENS"]
+__all__ = ["Observations", "DroppedRows", "read_table", "prepare", "load", "order_levels", "RESPONSE_NA_TOKENS",
+           "LEVEL_ORDERS"]
 
 TEXT_SUFFIXES = {".csv", ".tsv", ".tab", ".txt", ".dat"}
 SUPPORTED = sorted(TEXT_SUFFIXES | {".xlsx", ".parquet"})
@@ -59,6 +63,11 @@ CENTRING_THRESHOLD = 1e6
 RESPONSE_NA_TOKENS = frozenset({"na", "n/a", "nan", "."})
 _NUMBER_RE = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$")
 _DEC_COMMA_RE = re.compile(r"^[+-]?(\d+,\d*|,\d+)([eE][+-]?\d+)?$")
+#: a level that reads as a number with unit text around it: prefix and suffix hold no digits
+_UNIT_NUMBER_RE = re.compile(r"^(?P<pre>[^\d]*?)\s*(?P<num>[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)"
+                             r"\s*(?P<suf>[^\d]*)$")
+#: how a factor's level order was chosen (the design block's ``level_order`` values)
+LEVEL_ORDERS = ("given", "numeric", "first appearance")
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -148,6 +157,9 @@ class Observations:
     notes : tuple of str
         What intake decided on the user's behalf (merged spellings of one
         number, decimal commas, blank workbook cells), for the design notes.
+    level_order : (str, str)
+        How each factor's levels were ordered: 'given', 'numeric' or
+        'first appearance' (see :func:`order_levels`).
     """
 
     response: str
@@ -169,6 +181,7 @@ class Observations:
     source: Source
     duplicate_rows: int = 0
     notes: tuple[str, ...] = ()
+    level_order: tuple[str, str] = ("first appearance", "first appearance")
 
     @property
     def J(self) -> int:
@@ -704,6 +717,39 @@ def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.nd
     )
 
 
+def order_levels(levels) -> tuple[tuple[str, ...], str]:
+    """The default order of a factor's levels (given in order of first appearance).
+
+    Returns ``(levels, how)``: sorted by their number, ``how = "numeric"``, when every
+    level is a number with the same unit text before and after it (``"12h"``,
+    ``"0.5 mg"``, ``"10 %"``, ``"-5C"``, ``"week 3"``; spaces between number and unit
+    do not count); otherwise unchanged, ``how = "first appearance"``.  Text around the
+    number may hold no digits, so dates and ranges (``2024-01-05``, ``1-2``) stay text.
+    Levels spelling one number twice keep their first-appearance order among
+    themselves (the sort is stable).
+    """
+    levels = tuple(str(v) for v in levels)
+    keys = []
+    pattern = None
+    for v in levels:
+        m = _UNIT_NUMBER_RE.match(v.strip())
+        if m is None:
+            return levels, "first appearance"
+        unit = (m.group("pre").strip(), m.group("suf").strip())
+        if pattern is None:
+            pattern = unit
+        elif unit != pattern:
+            return levels, "first appearance"
+        try:
+            keys.append(Decimal(m.group("num")))
+        except InvalidOperation:  # pragma: no cover - the pattern admits only decimal numbers
+            return levels, "first appearance"
+    if len(levels) < 2:
+        return levels, "first appearance"
+    order = sorted(range(len(levels)), key=lambda i: keys[i])
+    return tuple(levels[i] for i in order), "numeric"
+
+
 def _text_and_missing(col) -> tuple[np.ndarray, np.ndarray]:
     """(values as text with None where missing, missing mask); see :func:`_as_level_text`."""
     txt = _as_level_text(col)
@@ -869,6 +915,7 @@ def prepare(
 
     codes = []
     level_sets = []
+    how_ordered = []
     for f in factors:
         txt = _merge_numeric_spellings(f, texts[f], levels.get(f), notes)
         present = pd.unique(pd.Series(txt[~miss[f]], dtype=object)).tolist()
@@ -886,9 +933,10 @@ def prepare(
                     f"--levels {f}: level {unknown[0]!r} does not occur in column {f!r} (its levels are "
                     f"{', '.join(repr(x) for x in present)}); fix the spelling or remove it"
                 )
-            lv = tuple(given)
+            lv, how = tuple(given), "given"
         else:
-            lv = tuple(present)
+            lv, how = order_levels(present)
+        how_ordered.append(how)
         lookup = {v: i for i, v in enumerate(lv)}
         c = pd.Series(txt, dtype=object).map(lookup).fillna(-1).to_numpy(dtype=np.int64)
         codes.append(c)
@@ -1006,6 +1054,7 @@ def prepare(
         source=source,
         duplicate_rows=dup,
         notes=tuple(notes),
+        level_order=(how_ordered[0], how_ordered[1]),
     )
 
 

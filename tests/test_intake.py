@@ -106,12 +106,13 @@ DOSE_ROWS = [(s, d, str(10 + i % 5 + 0.5 * (d == "2")))
              for i, (s, d) in enumerate([(s, d) for _ in range(3) for s in ("VC", "OJ") for d in ("1", "0.5", "2")])]
 
 
-def test_numeric_looking_levels_stay_categorical_in_order_of_first_appearance(tmp_path):
+def test_numeric_looking_levels_stay_categorical_in_numeric_order(tmp_path):
     path = write_text(tmp_path / "doses.csv", ",", rows=DOSE_ROWS, header=["supp", "dose", "len"])
     obs = load(path, response="len", factors=("supp", "dose"))
-    # doses 0.5 / 1 / 2 are three levels, in order of first appearance (issue 2)
-    assert obs.levels_b == ("1", "0.5", "2")
+    # doses 0.5 / 1 / 2 are three levels, sorted by their number; text levels keep first appearance
+    assert obs.levels_b == ("0.5", "1", "2")
     assert obs.levels_a == ("VC", "OJ")
+    assert obs.level_order == ("first appearance", "numeric")
     an = fit_observations(obs).anova
     assert an.tables["II"].row("B").df == 2  # a factor, not a 1-df linear trend
 
@@ -134,8 +135,8 @@ def test_numeric_factor_column_from_binary_formats(tmp_path, fmt):
         data = str(tmp_path / "d.xlsx")
         f.to_excel(data, index=False)
     obs = load(data, response="len", factors=("supp", "dose"))
-    # whole numbers print without '.0'
-    assert obs.levels_b == ("1", "0.5", "2")
+    # whole numbers print without '.0'; numbers sort numerically
+    assert obs.levels_b == ("0.5", "1", "2")
 
 
 def test_user_given_level_order():
@@ -143,6 +144,7 @@ def test_user_given_level_order():
                levels={"hive": ["warre", "top-bar", "langstroth"], "site": ["orchard", "meadow"]})
     assert obs.levels_a == ("warre", "top-bar", "langstroth")
     assert obs.levels_b == ("orchard", "meadow")
+    assert obs.level_order == ("given", "given")
     names_a = [obs.levels_a[c] for c in obs.a]
     assert names_a == [r[0] for r in ROWS]
     names_b = [obs.levels_b[c] for c in obs.b]
