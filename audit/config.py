@@ -219,18 +219,18 @@ def _strip_prefix(message: str, key: str) -> str:
     return message[len(key) + 2:] if message.startswith(key + ": ") else message
 
 
-def _text(v, *, shown, audit, key, allow_none=False):
+def _text(v, *, file, audit, key, allow_none=False):
     if v is None and allow_none:
         return None
     if not isinstance(v, str) or not v.strip():
-        raise ConfigError(f"expected a non-empty string, found {v!r}", file=shown, audit=audit, key=key)
+        raise ConfigError(f"expected a non-empty string, found {v!r}", file=file, audit=audit, key=key)
     return v
 
 
-def _whole(v, *, shown, audit, key, lo=0, hi=None, hint=""):
+def _whole(v, *, file, audit, key, lo=0, hi=None, hint=""):
     if isinstance(v, bool) or not isinstance(v, int) or v < lo or (hi is not None and v > hi):
         rng = f"from {lo:,} to {hi:,}" if hi is not None else f">= {lo}"
-        raise ConfigError(f"expected a whole number {rng}, found {v!r}{hint}", file=shown, audit=audit, key=key)
+        raise ConfigError(f"expected a whole number {rng}, found {v!r}{hint}", file=file, audit=audit, key=key)
     return v
 
 
@@ -334,8 +334,9 @@ def load_config(path=None) -> RunConfig:
     return RunConfig(file=shown, path=abspath, folder=folder, root=root, audits=tuple(specs))
 
 
-def _path(value, *, shown, audit, key, folder, root) -> tuple[str, str]:
-    value = _text(value, shown=shown, audit=audit, key=key)
+def _path(value, *, file, audit, key, folder, root) -> tuple[str, str]:
+    shown = file
+    value = _text(value, file=file, audit=audit, key=key)
     full = os.path.normpath(os.path.join(os.path.realpath(folder), value))
     real = os.path.realpath(full)
     if not _inside(real, root):
@@ -364,8 +365,8 @@ def _audit(raw: dict, i: int, shared: dict, *, shown, folder, root) -> AuditSpec
                               key=key)
     if "name" not in raw:
         raise ConfigError("missing; give every audit a name", file=shown, audit=label, key="name")
-    name = _text(raw["name"], shown=shown, audit=label, key="name")
-    kw = {"shown": shown, "audit": name}
+    name = _text(raw["name"], file=shown, audit=label, key="name")
+    kw = {"file": shown, "audit": name}
     has_data, has_summary = "data" in raw, "summary" in raw
     if has_data == has_summary:
         raise ConfigError("give exactly one of 'data' (one row per observation) or 'summary' (a cell table)",
