@@ -226,7 +226,7 @@ def _run_run(args, written: list) -> int:
 
     if args.jobs < 1:
         raise OptionError(f"--jobs: expected a whole number >= 1, found {args.jobs}; try 2")
-    config = load_config(args.config)
+    config = load_config(args.config, claims=not args.cache)  # with a cache: claims of audits to run, later
     inputs = [config.path, *(a.path for a in config.audits)]
     outputs = [(opt, path) for opt, path in (("--junit", args.junit), ("--markdown", args.markdown),
                                              ("--json", args.json)) if path]

@@ -43,8 +43,14 @@ from dataclasses import dataclass
 
 from .errors import ConfigError, OptionError
 
-__all__ = ["AuditSpec", "RunConfig", "load_config", "find_config", "DEFAULT_FAIL_ON", "DEFAULT_SEED",
-           "AUDIT_KEYS", "SHARED_KEYS"]
+__all__ = ["AuditSpec", "RunConfig", "load_config", "find_config", "check_claims", "DEFAULT_FAIL_ON",
+           "DEFAULT_SEED", "AUDIT_KEYS", "SHARED_KEYS", "VERDICTS"]
+
+# Kept here (equal to audit.verdict.conclude.VERDICTS and audit.api.MAX_CALIBRATION, which a test
+# checks) so that reading a config, and a fully cached run, load none of the numerical modules.
+#: the verdicts, as in :data:`audit.verdict.conclude.VERDICTS`
+VERDICTS = ("holds", "holds-with-caveats", "fragile", "does-not-hold", "not-reproducible", "cannot-judge")
+_MAX_CALIBRATION = 100_000
 
 #: verdicts that fail an audit unless its ``fail_on`` says otherwise
 DEFAULT_FAIL_ON = ("does-not-hold", "not-reproducible", "fragile")
@@ -270,7 +276,7 @@ def _read(path: str, shown: str) -> dict:
         raise _toml_error(exc, text, shown) from None
 
 
-def load_config(path=None) -> RunConfig:
+def load_config(path=None, *, claims: bool = True) -> RunConfig:
     """Read and check a configuration.
 
     Parameters
@@ -326,12 +332,43 @@ def load_config(path=None) -> RunConfig:
     names: set[str] = set()
     for i, raw in enumerate(audits):
         spec = _audit(raw, i, shared, shown=shown, folder=folder, root=root)
+        if claims:
+            check_claims(shown, [spec])
         if spec.name in names:
             raise ConfigError("two audits have this name; give each audit its own name", file=shown,
                               audit=spec.name, key="name")
         names.add(spec.name)
         specs.append(spec)
     return RunConfig(file=shown, path=abspath, folder=folder, root=root, audits=tuple(specs))
+
+
+def check_claims(file: str, specs) -> None:
+    """Parse the claims and equivalence bounds of ``specs``; ConfigError naming
+    the file, the audit and the key when one cannot be read.
+
+    Parameters
+    ----------
+    file : str
+        The config file as shown to the user.
+    specs : iterable of AuditSpec
+    """
+    specs = [s for s in specs if s.claim is not None or s.equivalence is not None]
+    if not specs:
+        return
+    from .verdict.judge import parse_claims, parse_equivalence
+
+    for spec in specs:
+        if spec.claim is not None:
+            try:
+                parse_claims(list(spec.claim), factors=spec.factors)
+            except OptionError as exc:
+                raise ConfigError(_strip_prefix(str(exc), "claim"), file=file, audit=spec.name, key="claim") from None
+        if spec.equivalence is not None:
+            try:
+                parse_equivalence(spec.equivalence)
+            except OptionError as exc:
+                raise ConfigError(_strip_prefix(str(exc), "equivalence"), file=file, audit=spec.name,
+                                  key="equivalence") from None
 
 
 def _path(value, *, file, audit, key, folder, root) -> tuple[str, str]:
@@ -353,8 +390,6 @@ def _path(value, *, file, audit, key, folder, root) -> tuple[str, str]:
 
 
 def _audit(raw: dict, i: int, shared: dict, *, shown, folder, root) -> AuditSpec:
-    from .verdict.conclude import VERDICTS
-
     label = f"#{i + 1}"
     name = raw.get("name")
     if isinstance(name, str) and name.strip():
@@ -409,9 +444,7 @@ def _audit(raw: dict, i: int, shared: dict, *, shown, folder, root) -> AuditSpec
     if out.get("seed") is None:
         out["seed"] = DEFAULT_SEED
     if "calibration" in merged:
-        from .api import MAX_CALIBRATION
-
-        out["calibration"] = _whole(merged["calibration"], **kw, key="calibration", hi=MAX_CALIBRATION,
+        out["calibration"] = _whole(merged["calibration"], **kw, key="calibration", hi=_MAX_CALIBRATION,
                                     hint="; try 2000 (0 turns the size check off)")
 
     claim = merged.get("claim")
@@ -421,23 +454,11 @@ def _audit(raw: dict, i: int, shared: dict, *, shown, folder, root) -> AuditSpec
         if not isinstance(claim, list) or not claim or not all(isinstance(c, str) for c in claim):
             raise ConfigError(f"expected a reported test line, 'present', 'absent', or a list of them; found "
                               f"{merged['claim']!r}", **kw, key="claim")
-        from .verdict.judge import parse_claims
-
-        try:
-            parse_claims(claim, factors=factors)
-        except OptionError as exc:
-            raise ConfigError(_strip_prefix(str(exc), "claim"), **kw, key="claim") from None
         claim = tuple(claim)
     equivalence = merged.get("equivalence")
     if equivalence is not None:
         if isinstance(equivalence, bool) or not isinstance(equivalence, (int, float, str)):
             raise ConfigError(f"expected a number or 'eta2=X', found {equivalence!r}", **kw, key="equivalence")
-        from .verdict.judge import parse_equivalence
-
-        try:
-            parse_equivalence(equivalence)
-        except OptionError as exc:
-            raise ConfigError(_strip_prefix(str(exc), "equivalence"), **kw, key="equivalence") from None
 
     fail_on = merged.get("fail_on", list(DEFAULT_FAIL_ON))
     if isinstance(fail_on, str):

@@ -22,7 +22,7 @@ import re
 import time
 from dataclasses import dataclass
 
-from .config import AuditSpec, RunConfig
+from .config import VERDICTS, AuditSpec, RunConfig, check_claims
 
 __all__ = ["AuditResult", "RunOutcome", "run_config", "cache_key", "render_line", "render_junit",
            "render_markdown", "render_json"]
@@ -183,8 +183,6 @@ def _cache_file(folder: str, name: str) -> str:
 
 def _cache_load(path: str, key: str, name: str) -> dict | None:
     """The stored findings when the entry exists, parses and carries this key; else None."""
-    from .verdict.conclude import VERDICTS
-
     try:
         with open(path, encoding="utf-8") as fh:
             doc = json.load(fh)
@@ -255,6 +253,7 @@ def run_config(config: RunConfig, *, jobs: int = 1, cache: str | None = None, on
             if f is not None:
                 ready[i] = _result(s, {"findings": f}, cached=True, seconds=time.perf_counter() - t)
     todo = [i for i in range(len(specs)) if i not in ready]
+    check_claims(config.file, [specs[i] for i in todo])  # before any audit runs (a cached one parsed before)
 
     def store(i: int, raw: dict) -> AuditResult:
         s = specs[i]

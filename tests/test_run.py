@@ -316,3 +316,31 @@ def test_standalone_file_shared_settings_and_levels(tmp_path):
     assert a["ordered"].seed == 3 and a["ordered"].levels == (("proof_temp", ("26C", "18C")),)
     assert a["crumb"].fail_on == ("does-not-hold", "holds-with-caveats")
     assert a["volume"].fail_on == ("does-not-hold", "not-reproducible", "fragile")
+
+
+def test_config_constants_match_the_library():
+    from audit import config
+    from audit.api import MAX_CALIBRATION
+    from audit.verdict.conclude import VERDICTS
+
+    assert config.VERDICTS == VERDICTS and config._MAX_CALIBRATION == MAX_CALIBRATION
+
+
+def test_fully_cached_run_loads_no_numerical_module_and_bad_claim_still_exits_2(tmp_path):
+    repo = _fast_repo(tmp_path)
+    cache = str(tmp_path / "cache")
+    code = ("import sys; from audit.cli import main; c = main(['run', 'audits.toml', '--cache', %r]); "
+            "print('numerical:', sorted(m for m in ('numpy', 'scipy', 'pandas') if m in sys.modules)); "
+            "sys.exit(c)" % cache)
+    env = {**os.environ, "PYTHONPATH": ROOT}
+    first = subprocess.run([sys.executable, "-c", code], cwd=repo, env=env, capture_output=True, text=True)
+    again = subprocess.run([sys.executable, "-c", code], cwd=repo, env=env, capture_output=True, text=True)
+    assert first.returncode == again.returncode == 1, first.stderr + again.stderr
+    assert "(cached)" not in first.stdout and again.stdout.count("(cached)") == 3
+    assert "numerical: []" in again.stdout
+    # a claim that cannot be read is a configuration error with a cache too (that audit is not cached)
+    text = (repo / "audits.toml").read_text("utf-8").replace('claim = "absent"', 'claim = "absent-ish"')
+    (repo / "audits.toml").write_text(text, "utf-8")
+    r = _cli(["run", "audits.toml", "--cache", cache, "--json", str(tmp_path / "x.json")], cwd=repo)
+    assert r.returncode == 2 and "audits.toml: audit 'crumb': key 'claim'" in r.stderr
+    assert r.stdout == "" and not (tmp_path / "x.json").exists()
