@@ -285,6 +285,10 @@ def load_config(path=None, *, claims: bool = True) -> RunConfig:
         A ``pyproject.toml`` (its ``[tool.twoway-audit]`` table is read), a
         standalone TOML file (its top level is read), or a folder holding a
         ``pyproject.toml``.  Default: ``pyproject.toml`` in the current folder.
+    claims : bool, default True
+        Also parse every claim and equivalence bound now.  False leaves that
+        to :func:`check_claims` (the runner calls it for the audits it has to
+        run, so a fully cached run loads no numerical module).
 
     Returns
     -------
