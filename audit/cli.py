@@ -100,7 +100,24 @@ def build_parser() -> argparse.ArgumentParser:
                                    "verdict; exit 0 when every dataset gets the verdict it was built to show.")
     d._sub = "demo"
     d.add_argument("--report", metavar="DIR", help="also write one report folder per dataset under DIR")
+    _add_run_parser(sub)
     return p
+
+
+def _add_run_parser(sub) -> None:
+    r = sub.add_parser("run", help="run the audits declared in pyproject.toml [tool.twoway-audit] or a TOML file",
+                       description="Run every audit declared in a configuration file; exit 0 when none fails, "
+                                   "1 when any fails, 2 for a configuration error.")
+    r._sub = "run"
+    r.add_argument("config", metavar="CONFIG", nargs="?", default=None,
+                   help="a TOML file of [[audit]] tables, a pyproject.toml, or a folder holding one "
+                        "(default: ./pyproject.toml with a [tool.twoway-audit] table)")
+    r.add_argument("--junit", metavar="PATH", help="write a JUnit XML file (one test case per audit)")
+    r.add_argument("--markdown", metavar="PATH", help="write a Markdown summary (a table fit for a pull-request comment)")
+    r.add_argument("--json", metavar="PATH", help="write every audit's findings JSON, keyed by audit name")
+    r.add_argument("--jobs", type=int, default=1, metavar="N", help="run audits in N processes (default 1)")
+    r.add_argument("--cache", metavar="DIR", help="store findings in DIR and reuse them while the input, settings "
+                                                  "and versions are unchanged")
 
 
 REPORT_TEXT = "report.txt"
@@ -276,6 +293,54 @@ def _run_check(args, written: list) -> int:
     return findings.exit_status(strict=args.strict)
 
 
+def _run_run(args, written: list) -> int:
+    from ._io import check_file_target, refuse_input_overlap, write_file
+    from .config import load_config
+    from .errors import OptionError
+
+    if args.jobs < 1:
+        raise OptionError(f"--jobs: expected a whole number >= 1, found {args.jobs}; try 2")
+    config = load_config(args.config, claims=not args.cache)  # with a cache: claims of audits to run, later
+    inputs = [config.path, *(a.path for a in config.audits)]
+    outputs = [(opt, path) for opt, path in (("--junit", args.junit), ("--markdown", args.markdown),
+                                             ("--json", args.json)) if path]
+    seen: dict[str, str] = {}
+    for opt, path in outputs:
+        refuse_input_overlap(path, inputs, option=opt)
+        check_file_target(path)
+        real = os.path.realpath(path)
+        if real in seen:
+            raise OptionError(f"{opt} {path!r} is also given to {seen[real]}; give each output its own file")
+        seen[real] = opt
+    if args.cache:
+        if os.path.exists(args.cache) and not os.path.isdir(args.cache):
+            raise OutputError(f"--cache {args.cache!r} exists and is not a folder; choose a folder name")
+        refuse_input_overlap(args.cache, inputs, option="--cache")
+
+    from .runner import render_json, render_junit, render_line, render_markdown, run_config
+
+    def show(r):
+        sys.stdout.write(render_line(r) + "\n")
+        sys.stdout.flush()
+
+    outcome = run_config(config, jobs=args.jobs, cache=args.cache, on_result=show)
+    n = len(outcome.results)
+    sys.stdout.write(f"{n} audit{'s' if n != 1 else ''}: {outcome.failures} failed, {outcome.errors} could not run, "
+                     f"{n - outcome.failures - outcome.errors} passed\n")
+    sys.stdout.flush()
+    for r in outcome.results:
+        if r.error is not None:
+            sys.stderr.write(f"{PROG}: error: {_clean(config.file)}: audit {_clean(repr(r.name))}: {_clean(r.error)}\n")
+    for opt, path, render in (("--junit", args.junit, render_junit), ("--markdown", args.markdown, render_markdown),
+                              ("--json", args.json, render_json)):
+        if path:
+            data = render(outcome)
+            refuse_input_overlap(path, inputs, option=opt)
+            write_file(path, data if isinstance(data, bytes) else data.encode("utf-8"),
+                       on_done=lambda opt=opt, path=path: written.append(f"{opt} file {path!r}"))
+    return outcome.exit_status()
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; returns the exit status: 0 the conclusion holds
     (with or without caveats), 1 it is fragile, does not hold or cannot be
@@ -299,6 +364,8 @@ def main(argv: list[str] | None = None) -> int:
             return _run_check(args, written)
         if args.command == "demo":
             return _run_demo(args, written)
+        if args.command == "run":
+            return _run_run(args, written)
     except AuditInputError as exc:
         return _fail(str(exc))
     except (_Stopped, KeyboardInterrupt) as exc:

@@ -16,6 +16,7 @@ __all__ = [
     "FactorError",
     "OptionError",
     "OutputError",
+    "ConfigError",
 ]
 
 
@@ -46,3 +47,30 @@ class OptionError(AuditInputError):
 class OutputError(AuditInputError):
     """An output path cannot be written safely (it is an input, a folder that is
     not ours, a symbolic link leading elsewhere, or the disk is full)."""
+
+
+class ConfigError(AuditInputError):
+    """A declared-audits file (``[tool.twoway-audit]`` in pyproject.toml, or a
+    standalone TOML file) is malformed.  The message names the file, the audit
+    and the key; the same are kept as attributes.
+
+    Attributes
+    ----------
+    file : str
+        The configuration file, as shown to the user.
+    audit : str or None
+        The audit's name (None for a problem outside every audit).
+    key : str or None
+        The key at fault (None when no key applies).
+    """
+
+    def __init__(self, message: str, *, file: str, audit: str | None = None, key: str | None = None):
+        where = [f"{file}"]
+        if audit is not None:
+            where.append(f"audit {audit!r}")
+        if key is not None:
+            where.append(f"key {key!r}")
+        super().__init__(": ".join(where) + ": " + message)
+        self.file = file
+        self.audit = audit
+        self.key = key
