@@ -259,21 +259,29 @@ def test_sigterm_during_figure_writing_leaves_no_temp_files(first_report, tmp_pa
     assert no_temp_files(tmp_path) and inp.unchanged()
 
 
-def test_concurrent_runs_never_mix(first_report, tmp_path):
-    inputs = [Input(tmp_path / "v0.csv"), Input(tmp_path / "v1.csv", DATA.replace("8.3", "9.3"))]
-    r = run("check", "v1.csv", *OPTS, *QUICK, "--report", "ref1", cwd=tmp_path)
-    assert r.returncode == 0, r.stderr
-    ref = [snapshot(first_report / "rep"), snapshot(tmp_path / "ref1")]
-    ref[0]["report.txt"] = ref[0]["report.txt"].replace(b"Data: v.csv", b"Data: v0.csv")
+def test_concurrent_runs_never_mix(tmp_path):
+    # references: each input audited alone, with the same relative names as in the race below
+    texts = [DATA, DATA.replace("8.3", "9.3")]
+    ref = []
+    for i, text in enumerate(texts):
+        d = tmp_path / f"alone{i}"
+        d.mkdir()
+        Input(d / f"v{i}.csv", text)
+        r = run("check", f"v{i}.csv", *OPTS, *QUICK, "--no-timestamp", "--report", "rep", cwd=d)
+        assert r.returncode == 0, r.stderr
+        ref.append(snapshot(d / "rep"))
     assert ref[0]["cell-means.png"] != ref[1]["cell-means.png"]
+    race = tmp_path / "race"
+    race.mkdir()
+    inputs = [Input(race / f"v{i}.csv", text) for i, text in enumerate(texts)]
     cmd = [sys.executable, "-m", "audit", "check"]
-    procs = [subprocess.Popen([*cmd, f"v{i}.csv", *OPTS, *QUICK, "--report", "rep"], cwd=tmp_path,
+    procs = [subprocess.Popen([*cmd, f"v{i}.csv", *OPTS, *QUICK, "--no-timestamp", "--report", "rep"], cwd=race,
                               env=ENV, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE) for i in range(2)]
     for p in procs:
         _, err = p.communicate(timeout=120)
         assert p.returncode == 0, err
-    assert snapshot(tmp_path / "rep") in ref  # one run's complete set, never a mix
-    assert no_temp_files(tmp_path)
+    assert snapshot(race / "rep") in ref  # one run's complete set, never a mix
+    assert no_temp_files(race)
     assert all(i.unchanged() for i in inputs)
 
 
