@@ -15,7 +15,9 @@ the sample, so the verdict does not read them), the log and Box-Cox re-tests
 (the profile likelihood needs rows), trimmed Welch-James (trimmed means need
 order statistics), rank and aligned-rank tests, permutation and wild-bootstrap
 tests (the verdict's votes come from the exact methods).  The size check runs
-from the exact cell statistics with the sample's residual shape.  The
+from the exact cell statistics: with the sample's residual shape when the
+sample holds every row, else with normal errors drawn as cell sufficient
+statistics (resampling residuals into every row would cost R x N draws).  The
 independence checks need the order of every row and are not run.
 """
 
@@ -176,7 +178,11 @@ def findings_from_scan(scan: Scan, *, alpha, resamples, seed, diagnostics, metho
         from ..verdict.judge import judge
 
         if calibration:
-            calib = size_check(hybrid, alpha=fit_m.alpha, replications=calibration, seed=seed)
+            # resampling the sample's residuals into every row of every replication is O(R N): when the
+            # sample is every row use it (the data-mode check), else draw the cells' sufficient statistics
+            # under normal errors (O(R m); with cells this large their means are near normal anyway)
+            whole = scan.info["sample_rows"] == N
+            calib = size_check(hybrid if whole else fit_m, alpha=fit_m.alpha, replications=calibration, seed=seed)
         prov["calibration_replications"] = calibration
         voting = tuple(r for r in meths if r.id not in SAMPLE_METHODS)
         judgement = judge(fit_m, diagnostics=diags, methods=voting, claims=claim or (), calibration=calib,
