@@ -93,6 +93,28 @@ def _exact_homogeneity_tests(cm, fit_s) -> dict:
     return out
 
 
+def _with_sample_methods(judgement, meths, voting, sentence, alpha):
+    """The judgement's per-method trust and agreement, aligned with every
+    method listed: the sample-based ones are listed as not voting."""
+    from ..decision import decision
+    from ..verdict.trust import MethodTrust
+
+    pos = {id(r): i for i, r in enumerate(voting)}
+    present = {r.effect: r.present for r in judgement.claims}
+    trust, agrees = [], []
+    for m in meths:
+        if id(m) in pos:
+            trust.append(judgement.trust[pos[id(m)]])
+            agrees.append(judgement.agrees[pos[id(m)]])
+        else:
+            trust.append(MethodTrust(method=m.id, effect=m.effect, trusted=False, rule="engine-sample",
+                                     reason=f"Ran {sentence}: shown for comparison; the verdict's votes come from "
+                                            "the methods computed from every row."))
+            agrees.append(None if (m.p is None or present.get(m.effect) is None)
+                          else decision(m.p, alpha) == present[m.effect])
+    return dataclasses.replace(judgement, trust=tuple(trust), agrees=tuple(agrees))
+
+
 def findings_from_scan(scan: Scan, *, alpha, resamples, seed, diagnostics, methods, figures, progress, claim,
                        calibration, equivalence, timestamp, source_path):
     from ..api import _fragility_block, _provenance
@@ -121,7 +143,7 @@ def findings_from_scan(scan: Scan, *, alpha, resamples, seed, diagnostics, metho
     design = dataclasses.replace(design, notes=(*design.notes, (
         f"Read through the {scan.info['name']} engine: the ANOVA, Welch-James, HC3/HC4, balance, missingness, "
         "variance checks and residual skewness/kurtosis come from every row's cell moments; checks that need "
-        f"rows ran {sentence} and say so.")))
+        f"rows ran {sentence} (each says so).")))
 
     diags: tuple = ()
     if diagnostics:
@@ -187,6 +209,7 @@ def findings_from_scan(scan: Scan, *, alpha, resamples, seed, diagnostics, metho
         voting = tuple(r for r in meths if r.id not in SAMPLE_METHODS)
         judgement = judge(fit_m, diagnostics=diags, methods=voting, claims=claim or (), calibration=calib,
                           equivalence=equivalence)
+        judgement = _with_sample_methods(judgement, meths, voting, sentence, fit_m.alpha)
     prov["seed"] = seed
     fig = None
     if figures:
