@@ -65,6 +65,9 @@ def check(
     calibration: int | None = None,
     equivalence=None,
     timestamp: bool = True,
+    engine: str | None = None,
+    spark_master: str | None = None,
+    sample_per_cell: int | None = None,
 ) -> Findings:
     """Audit the two-way ANOVA of a long-format dataset.
 
@@ -128,6 +131,17 @@ def check(
     timestamp : bool, default True
         Record the time of the run in ``provenance`` (False for byte-identical
         reruns).
+    engine : {'auto', 'memory', 'duckdb', 'spark'}, optional
+        Where the data are read: in memory, or by an SQL engine that returns
+        per-cell moments and a seeded sample (``mode`` 'moments', see
+        :mod:`audit.engines`).  Default 'auto': DuckDB for globs, lists of
+        files and files above :data:`audit.engines.AUTO_ENGINE_BYTES`, else
+        memory.  With spark, ``data`` is a table name or a path.
+    spark_master : str, optional
+        Spark master URL (e.g. 'local[2]'); default: the active session or the
+        session's defaults.
+    sample_per_cell : int, optional
+        Rows per cell in the engine's seeded sample (default 2000).
 
     Returns
     -------
@@ -142,6 +156,15 @@ def check(
     resamples = check_resamples(resamples)
     seed = check_seed(seed)
     claim, calibration, equivalence = _verdict_options(claim, calibration, equivalence, factors)
+    from .engines import choose_engine
+
+    chosen = choose_engine(data, engine)
+    if chosen != "memory":
+        return _check_engine(data, chosen, spark_master=spark_master, sample_per_cell=sample_per_cell,
+                             response=response, factors=factors, levels=levels, order=order, unit=unit,
+                             alpha=alpha, resamples=resamples, seed=seed, diagnostics=diagnostics, methods=methods,
+                             figures=figures, progress=progress, claim=claim, calibration=calibration,
+                             equivalence=equivalence, timestamp=timestamp)
     obs = load(data, response=response, factors=factors, levels=levels, order=order, unit=unit,
                sheet=sheet, encoding=encoding, decimal=decimal)
     fit = fit_observations(obs, alpha=alpha)
@@ -154,6 +177,41 @@ def check(
                      claim=claim, calibration=calibration, equivalence=equivalence, timestamp=timestamp,
                      resamples=resamples, seed=seed, diagnostics=diagnostics, methods=methods,
                      figures=figures, progress=progress)
+
+
+def _check_engine(data, engine, *, spark_master, sample_per_cell, response, factors, levels, order, unit, alpha,
+                  resamples, seed, diagnostics, methods, figures, progress, claim, calibration, equivalence,
+                  timestamp) -> Findings:
+    """The engine path: per-cell moments and a seeded sample (audit/engines)."""
+    from .engines import open_backend
+    from .engines.audit import findings_from_scan
+    from .engines.scan import DEFAULT_SAMPLE_PER_CELL, run_scan
+    from .errors import OptionError
+    from .methods import new_seed
+
+    for name, val in (("order", order), ("unit", unit)):
+        if val is not None:
+            raise OptionError(f"{name}: not available with engine {engine}; the independence checks need every "
+                              f"row in order; drop --{name} or use --engine memory")
+    k = DEFAULT_SAMPLE_PER_CELL if sample_per_cell is None else sample_per_cell
+    if isinstance(k, bool) or not isinstance(k, int) or k < 10:
+        raise OptionError(f"sample_per_cell: expected a whole number >= 10, found {k!r}; try {DEFAULT_SAMPLE_PER_CELL}")
+    if not (isinstance(factors, (tuple, list)) and len(factors) == 2):
+        raise OptionError(f"factors: expected two column names, found {factors!r}")
+    seed = new_seed() if seed is None else seed
+    if isinstance(levels, (list, tuple)):
+        levels = dict(levels)
+    backend = open_backend(engine, data, spark_master=spark_master)
+    try:
+        scan = run_scan(backend, response=response, factors=tuple(factors), levels=levels, sample_per_cell=k,
+                        seed=seed, progress=progress is not False)
+    finally:
+        backend.close()
+    src = data if isinstance(data, str) else (", ".join(map(str, data)) if isinstance(data, (list, tuple)) else str(data))
+    return findings_from_scan(scan, alpha=alpha, resamples=resamples, seed=seed, diagnostics=diagnostics,
+                              methods=methods, figures=figures, progress=progress, claim=claim,
+                              calibration=calibration, equivalence=equivalence, timestamp=timestamp,
+                              source_path=src)
 
 
 def _fragility_block(diags: tuple[Diagnostic, ...]) -> dict | None:

@@ -86,6 +86,13 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--equivalence", metavar="BOUND",
                    help="also test that the interaction is smaller than BOUND (RMS interaction term in "
                         "response units, or eta2=X)")
+    c.add_argument("--engine", choices=("auto", "memory", "duckdb", "spark"), default="auto",
+                   help="where the data are read: memory, duckdb (Parquet/CSV files or globs, out of core) or spark "
+                        "(a table name or a path); auto: duckdb for globs and files above 256 MiB")
+    c.add_argument("--spark-master", metavar="URL", help="Spark master for --engine spark, e.g. local[2] "
+                   "(default: the session's defaults)")
+    c.add_argument("--sample-per-cell", type=int, default=None, metavar="N",
+                   help="rows per cell in the engine's seeded sample for the row-based checks (default 2000)")
     c.add_argument("--strict", action="store_true", help="exit 1 for 'holds with caveats' too")
     c.add_argument("--no-timestamp", action="store_true",
                    help="leave the time of the run out of the findings (byte-identical reruns)")
@@ -266,7 +273,8 @@ def _run_check(args, written: list) -> int:
             resamples=args.resamples, seed=args.seed, diagnostics=not args.no_diagnostics,
             methods=not args.no_methods, figures=bool(args.report), progress=sys.stderr.isatty(),
             claim=args.claim or None, calibration=args.calibration, equivalence=args.equivalence,
-            timestamp=not args.no_timestamp,
+            timestamp=not args.no_timestamp, engine=args.engine, spark_master=args.spark_master,
+            sample_per_cell=args.sample_per_cell,
         )
     js = (findings.to_json() + "\n").encode("utf-8")
     model = None

@@ -19,6 +19,7 @@ from .intake import order_levels
 
 __all__ = [
     "CellStats",
+    "CellMoments",
     "cell_moments",
     "cell_moments_scaled",
     "pow2_scale",
@@ -190,6 +191,58 @@ class CellStats:
 
     def cell_label(self, j: int, k: int) -> str:
         return f"{self.levels_a[j]} x {self.levels_b[k]}"
+
+
+@dataclass(frozen=True, kw_only=True)
+class CellMoments:
+    """Per-cell moments beyond :class:`CellStats`, as a scan of data where it
+    lives computes them (``audit/engines``: one set of definitions, one SQL
+    query per engine dialect).
+
+    Every array is (J, K) and, except the counts, in units of ``unit`` (an exact
+    power of two) relative to ``cells.offset``: the response-scale value is
+    ``offset + unit * x`` for locations, ``unit**p * x`` for p-th power sums.
+    Empty cells hold NaN (0 for sums).
+
+    Attributes
+    ----------
+    cells : CellStats
+        Counts, means and centred SS (its ``standard`` copy is in ``unit``).
+    m3, m4 : ndarray
+        Centred third and fourth power sums, sum (y - cell mean)^p.
+    minimum, maximum, median : ndarray
+        Cell extremes and median (the median averages the two middle values).
+    absdev_median_mean, absdev_median_css : ndarray
+        Mean and centred SS of |y - cell median| (Brown-Forsythe).
+    absdev_mean_mean, absdev_mean_css : ndarray
+        Mean and centred SS of |y - cell mean| (Levene).
+    missing_response : ndarray of int
+        Rows per cell whose factors are known and whose response is missing.
+    missing_factor : int
+        Rows with a missing factor value.
+    unit : float
+        The exact power of two of every array above.
+    """
+
+    cells: CellStats
+    m3: np.ndarray
+    m4: np.ndarray
+    minimum: np.ndarray
+    maximum: np.ndarray
+    median: np.ndarray
+    absdev_median_mean: np.ndarray
+    absdev_median_css: np.ndarray
+    absdev_mean_mean: np.ndarray
+    absdev_mean_css: np.ndarray
+    missing_response: np.ndarray
+    missing_factor: int
+    unit: float
+
+    def __post_init__(self) -> None:
+        for name in ("m3", "m4", "minimum", "maximum", "median", "absdev_median_mean", "absdev_median_css",
+                     "absdev_mean_mean", "absdev_mean_css"):
+            object.__setattr__(self, name, _frozen(np.asarray(getattr(self, name), dtype=float)))
+        object.__setattr__(self, "missing_response", _frozen(np.asarray(self.missing_response, dtype=np.int64)))
 
 
 def cell_moments(y: np.ndarray, cell: np.ndarray, m: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

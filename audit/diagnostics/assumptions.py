@@ -240,8 +240,13 @@ def _residuals_used(fit: Fit) -> tuple[np.ndarray, np.ndarray, list]:
     return fit.resid_full[keep], cell[keep], _cell_labels(fit, fit.cells.counts == 1)
 
 
-def normality(fit: Fit) -> Diagnostic:
+def normality(fit: Fit, *, shape: dict | None = None) -> Diagnostic:
     """Normality of the full-model residuals, graded by size (see module table).
+
+    ``shape``: skewness and kurtosis computed elsewhere (the
+    :func:`skew_kurtosis` keys), used for the size band instead of those of
+    ``fit``'s residuals: an engine scan passes the values pooled from every
+    row's cell moments while the tests run on its sample.
 
     values keys: n, excluded_single_cells, shapiro {statistic, p} or None,
     shapiro_reason, dagostino_k2 {statistic, p} or None, dagostino_reason,
@@ -279,7 +284,9 @@ def normality(fit: Fit) -> Diagnostic:
         v["dagostino_k2"] = None
         v["dagostino_reason"] = f"D'Agostino-Pearson K^2 not computed: n = {n} is below {K2_MIN_N}"
     v["anderson"] = _anderson(r)
-    sk = skew_kurtosis(r)
+    sk = skew_kurtosis(r) if shape is None else shape
+    if shape is not None:
+        v["shape_n"] = shape.get("n")
     for key in ("skewness", "skewness_se", "excess_kurtosis", "excess_kurtosis_se"):
         v[key] = _num(sk[key])
     G1 = abs(sk["skewness"] or 0.0)
@@ -708,7 +715,7 @@ def word_homogeneity(g: HomogeneityGrade, v: dict, alpha: float) -> str:
     return f"Homogeneity: {what}{ttxt}: {cons}."
 
 
-def homogeneity(fit: Fit) -> Diagnostic:
+def homogeneity(fit: Fit, *, tests: dict | None = None) -> Diagnostic:
     """Equality of variances across cells, graded by the size of the bias it
     causes in the classical interaction F (see module table).
 
@@ -721,6 +728,11 @@ def homogeneity(fit: Fit) -> Diagnostic:
     f_level_null [2.5%, 97.5%] under equal variances, f_level_reason, grade
     {basis, band, chance, tests}, within_chance,
     reason (summary mode).
+
+    ``tests``: values for any of levene_mean, brown_forsythe,
+    fligner_killeen, bartlett_adjusted computed elsewhere (an engine scan:
+    exact from cell moments, or on its sample), used in place of their
+    data-mode computation.
     """
     unit = fit.cells.standardised().unit   # exact power of two: ratios and tests are scale-free
     fit = fit.standardised()
@@ -748,6 +760,11 @@ def homogeneity(fit: Fit) -> Diagnostic:
     else:
         v["levene_mean"] = v["brown_forsythe"] = v["fligner_killeen"] = None
         v["reason"] = f"Levene, Brown-Forsythe and Fligner-Killeen {NEEDS_DATA}"
+    if tests:
+        for key in ("levene_mean", "brown_forsythe", "fligner_killeen", "bartlett_adjusted"):
+            if key in tests:
+                v[key] = tests[key]
+        v["reason"] = tests.get("reason", v["reason"])
     imax, imin = int(np.argmax(sd)), int(np.argmin(sd))
     v["sd_max_cell"] = labels[imax] + [_num(float(sd[imax]) * unit)]
     v["sd_min_cell"] = labels[imin] + [_num(float(sd[imin]) * unit)]
