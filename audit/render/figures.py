@@ -85,7 +85,7 @@ def _new_figure(width: float, height: float, *, nrows: int = 1, ncols: int = 1, 
 def _save(fig, outdir: str, name: str) -> str:
     final = os.path.join(outdir, name)
     atomic_write_with(final, lambda tmp: fig.savefig(tmp, format="png", dpi=_DPI,
-                                                     pil_kwargs={"compress_level": 3}), suffix=".png")
+                                                     pil_kwargs={"compress_level": 1}), suffix=".png")
     return final
 
 
@@ -100,14 +100,15 @@ def _fmt_tick_p(x: float, _pos=None) -> str:
 
 def _p_axis(axis, lo: float | None = None, hi: float | None = None) -> None:
     """Log p-value axis with plain tick labels; a range under two decades also labels 2x and 5x."""
-    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter, NullLocator
 
     axis.set_major_locator(LogLocator(base=10.0, numticks=8))
     axis.set_major_formatter(FuncFormatter(_fmt_tick_p))
     if lo is not None and hi is not None and 0 < lo < hi and hi / lo < 100:
         axis.set_minor_locator(LogLocator(base=10.0, subs=(2.0, 5.0), numticks=8))
         axis.set_minor_formatter(FuncFormatter(_fmt_tick_p))
-    else:
+    else:  # no minor ticks: each would be one more tick object to lay out
+        axis.set_minor_locator(NullLocator())
         axis.set_minor_formatter(NullFormatter())
 
 
@@ -143,7 +144,7 @@ def _box_distance(box, x: float, y: float) -> float:
 
 
 def place_labels(anchors, sizes, bounds, *, avoid=(), pad: float = 2.0,
-                 radii=(4.0, 12.0, 24.0, 40.0, 60.0, 85.0)):
+                 radii=(4.0, 12.0, 24.0, 40.0, 60.0, 85.0), leader_from: float = 10.0):
     """Deterministic label placement that never overlaps.
 
     Parameters
@@ -163,15 +164,18 @@ def place_labels(anchors, sizes, bounds, *, avoid=(), pad: float = 2.0,
         Distances tried from the point, nearest first; at each, eight
         directions (up-right, down-right, up-left, down-left, right, left,
         up, down; above and below also shifted to either side).
+    leader_from : float
+        Labels set at this distance or further get a leader line to their
+        point (drawn by the caller); nearer ones must be unambiguous.
 
     Returns
     -------
     list of (x0, y0, x1, y1) or None
         Each label's box, or None where no free spot was found.  No two boxes
         returned overlap (with ``pad``), none covers an ``avoid`` box, all lie
-        inside ``bounds``, and each is nearer to its own point than to any
-        other point labelled by at least 10 pixels (so it is not read as another
-        point's).
+        inside ``bounds``, and each label set nearer than ``leader_from`` is
+        nearer to its own point than to any other point labelled by at least
+        10 pixels (so it is not read as another point's).
     """
     dirs = ((1, 1), (1, -1), (-1, 1), (-1, -1), (1, 0), (-1, 0), (0, 1), (0, -1))
     placed: list = []
@@ -197,7 +201,7 @@ def place_labels(anchors, sizes, bounds, *, avoid=(), pad: float = 2.0,
                 if any(_boxes_overlap(box, a) for a in avoid):
                     continue
                 own = _box_distance(box, ax, ay)
-                if any(_box_distance(box, qx, qy) < own + 10.0 for k, (qx, qy) in enumerate(anchors)
+                if r < leader_from and any(_box_distance(box, qx, qy) < own + 10.0 for k, (qx, qy) in enumerate(anchors)
                        if k != i and (qx, qy) != (ax, ay)):
                     continue  # nearer to another point than to its own: it would be read as that point's
                 found = box
@@ -234,7 +238,8 @@ def _label_points(ax, xs, ys, labels, *, fontsize: float = 8.0, priority=None, m
         w, h, _d = renderer.get_text_width_height_descent(pts[i][2], prop, ismath=False)
         sizes.append((w + 2.0, h + 2.0))
     bb = ax.bbox
-    boxes = place_labels([tuple(disp[i]) for i in order_try], sizes, (bb.x0, bb.y0, bb.x1, bb.y1), avoid=avoid)
+    boxes = place_labels([tuple(disp[i]) for i in order_try], sizes, (bb.x0 + 2, bb.y0 + 2, bb.x1 - 2, bb.y1 - 2),
+                         avoid=avoid)
     inv = ax.transData.inverted()
     missed = []
     for i, box in zip(order_try, boxes):
@@ -243,7 +248,7 @@ def _label_points(ax, xs, ys, labels, *, fontsize: float = 8.0, priority=None, m
             continue
         px, py = disp[i]
         tx, ty = inv.transform((box[0] + 1.0, box[1] + 1.0))
-        far = min(abs(box[0] - px), abs(box[2] - px)) > 6 or min(abs(box[1] - py), abs(box[3] - py)) > 6
+        far = _box_distance(box, px, py) >= 8.0  # set at radius 12 or more: joined by a leader line
         cx = min(max(px, box[0]), box[2])
         cy = min(max(py, box[1]), box[3])
         ax.text(tx, ty, pts[i][2], fontsize=fontsize, ha="left", va="bottom", color=colour, zorder=5)
@@ -254,7 +259,7 @@ def _label_points(ax, xs, ys, labels, *, fontsize: float = 8.0, priority=None, m
 
 
 def _footnote(fig, text: str, y: float = 0.012) -> None:
-    fig.text(0.01, y, text, fontsize=8, ha="left", va="bottom", color="0.2", wrap=True)
+    fig.text(0.01, y, text, fontsize=8, ha="left", va="bottom", color="0.2")
 
 
 def _finish_limits(ax) -> None:
@@ -454,7 +459,7 @@ def _spread(fd: dict, outdir: str) -> str:
     ax.set_xlabel(f"cell mean of {resp}")
     ax.set_ylabel(f"cell SD of {resp}")
     ax.set_ylim(bottom=0)
-    ax.margins(x=0.18, y=0.12)
+    ax.margins(x=0.18, y=0.15)
     ax.set_title("Cell SD against cell mean (a rising trend suggests a log or power scale)", fontsize=10)
     ax.legend(fontsize=8, loc="lower right")
     ax.grid(True, alpha=0.3)
@@ -481,7 +486,7 @@ def _sd_n(fd: dict, outdir: str) -> str | None:
     ax.set_xlabel("cell size n (observations in the cell)")
     ax.set_ylabel(f"cell SD of {d['response']}")
     ax.set_ylim(bottom=0)
-    ax.margins(x=0.18, y=0.12)
+    ax.margins(x=0.18, y=0.15)
     ax.set_title("Are large variances paired with small or with large cells?\n"
                  "Falling trend: classical F liberal; rising trend: conservative (Box 1954)", fontsize=11)
     ax.legend(fontsize=8, loc="lower right")
@@ -653,7 +658,9 @@ def write_figures(figure_data: dict, outdir) -> list[str]:
 
     fd = _clean_strings(figure_data)
     written = []
-    with matplotlib.rc_context({"text.parse_math": False}), warnings.catch_warnings():
+    # a fixed title height (no search for overlapping tick labels: there are none at the top)
+    rc = {"text.parse_math": False, "axes.titley": 1.0}
+    with matplotlib.rc_context(rc), warnings.catch_warnings():
         warnings.filterwarnings("ignore", message=r"Glyph \d+ .*missing from", category=UserWarning)
         warnings.filterwarnings("ignore", message=r"Matplotlib currently does not support", category=UserWarning)
         for draw in (_methods_p, _cell_means, _residual_qq, _spread, _sd_n, _loo, _boxcox):
