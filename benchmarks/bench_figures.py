@@ -6,7 +6,7 @@ Invented scenario: drying time of a varnish, resin (4 levels) x coat thickness
 
 Target: the figures add under 1 s (and ``check --report`` stays within 1.3 times ``check``).
 
-Run from the repository root:  python benchmarks/bench_figures.py [--repeats 3] [--resamples 9999]
+Run from the repository root:  python benchmarks/bench_figures.py [--repeats 3] [--resamples 9999] [--cpu]
 """
 
 from __future__ import annotations
@@ -26,12 +26,15 @@ from audit.render.figures import write_figures  # noqa: E402
 from bench_calibration import make_frame  # noqa: E402
 
 
+CLOCK = time.perf_counter
+
+
 def best(fn, repeats: int) -> float:
     times = []
     for _ in range(repeats):
-        t = time.perf_counter()
+        t = CLOCK()
         fn()
-        times.append(time.perf_counter() - t)
+        times.append(CLOCK() - t)
     return min(times)
 
 
@@ -39,7 +42,12 @@ def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--repeats", type=int, default=3)
     ap.add_argument("--resamples", type=int, default=9999)
+    ap.add_argument("--cpu", action="store_true",
+                    help="measure process CPU time instead of wall time (steadier on a busy machine)")
     args = ap.parse_args()
+    global CLOCK
+    if args.cpu:
+        CLOCK = time.process_time
     frame = make_frame()
     kw = dict(response="drying_min", factors=("resin", "coat"), resamples=args.resamples, seed=1)
     with tempfile.TemporaryDirectory() as tmp:
@@ -53,7 +61,8 @@ def main() -> None:
         t0 = best(lambda: audit.check(frame, **kw), args.repeats)
         t1 = best(with_figures, args.repeats)
         n_files = len(write_figures(f.figure_data, tmp))
-    print(f"N = {len(frame):,}, B = {args.resamples:,}, best of {args.repeats}")
+    print(f"N = {len(frame):,}, B = {args.resamples:,}, best of {args.repeats}, "
+          f"{'CPU' if args.cpu else 'wall'} time")
     print(f"check alone                          : {t0:6.2f} s")
     print(f"check + figure_data + write_figures  : {t1:6.2f} s  ({n_files} PNG files)")
     print(f"added by the figures                 : {t1 - t0:6.2f} s  (target < 1 s)")
