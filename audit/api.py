@@ -274,7 +274,7 @@ def _assemble(fit, design, *, mode, source, resamples, seed, diagnostics, method
     if figures:
         from .diagnostics.plotdata import figure_data
 
-        fig = figure_data(fit, diags)
+        fig = figure_data(fit, diags, methods=meths, judgement=judgement)
     return Findings(
         mode=mode,
         alpha=fit.alpha,

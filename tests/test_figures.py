@@ -141,7 +141,8 @@ def test_write_all_figures(tmp_path, fit):
     backend = matplotlib.get_backend()
     out = tmp_path / "report"
     paths = write_figures(figure_data(fit, [_fake_influence(fit), _fake_scale()]), out)
-    assert [os.path.basename(p) for p in paths] == list(FIGURE_FILES.values())
+    # without method results there is no method p-value figure; every other figure is written
+    assert [os.path.basename(p) for p in paths] == [v for k, v in FIGURE_FILES.items() if k != "methods_p"]
     assert all(_is_png(p) and os.path.getsize(p) > 10_000 for p in paths)
     assert not [n for n in os.listdir(out) if n.startswith(".tmp-")]  # atomic writes leave no temp files
     assert matplotlib.get_backend() == backend  # the caller's backend is untouched
@@ -166,3 +167,186 @@ def test_unusable_report_folder(tmp_path, fit):
     blocker.write_text("x")
     with pytest.raises(OptionError, match="report folder"):
         write_figures(figure_data(fit, []), blocker / "sub")
+
+
+# --------------------------------------------------------------------------- the figures' content
+
+DEMO = os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "fixtures", "demo")
+
+
+@pytest.fixture(scope="module")
+def reading():
+    # invented demo data (fixtures/make_demo.py): one row carries the interaction
+    from audit.api import check
+
+    return check(os.path.join(DEMO, "reading_programme.csv"), response="score_gain", factors=("programme", "term"),
+                 resamples=199, seed=3, figures=True, calibration=0)
+
+
+def _capture(monkeypatch):
+    from audit.render import figures as F
+
+    figs = {}
+
+    def keep(fig, outdir, name):
+        figs[name] = fig
+        return os.path.join(outdir, name)
+
+    monkeypatch.setattr(F, "_save", keep)
+    return figs
+
+
+def test_every_figure_written_from_findings(tmp_path, reading):
+    paths = write_figures(reading.figure_data, tmp_path)
+    assert [os.path.basename(p) for p in paths] == list(FIGURE_FILES.values())
+    assert all(_is_png(p) for p in paths)
+
+
+def test_method_p_data_come_from_the_findings(reading):
+    d = reading.figure_data["methods_p"]
+    ab = [(m, t) for m, t in zip(reading.methods, reading.judgement.trust) if m.effect == "AB"]
+    assert [r["method"] for r in d["rows"]] == [m.id for m, _ in ab]
+    for r, (m, t) in zip(d["rows"], ab):
+        assert r["p"] == m.p and r["trusted"] is t.trusted and r["reason"] == t.reason
+        assert r["p_interval"] == (list(m.p_interval) if m.p_interval else None)
+        assert r["resamples"] == m.resamples
+    assert any(r["p_interval"] for r in d["rows"]) and any(r["trusted"] is False for r in d["rows"])
+
+
+def test_method_p_figure_marks_trust_by_label_and_shape(tmp_path, reading, monkeypatch):
+    figs = _capture(monkeypatch)
+    write_figures(reading.figure_data, tmp_path)
+    ax = figs[FIGURE_FILES["methods_p"]].axes[0]
+    ticks = [t.get_text() for t in ax.get_yticklabels()]
+    for r, t in zip(reading.figure_data["methods_p"]["rows"], ticks):
+        assert r["method"] in t and ("NOT trusted" in t) == (r["trusted"] is False)
+    labels = figs[FIGURE_FILES["methods_p"]].legends[0].get_texts()
+    words = " ".join(t.get_text() for t in labels)
+    assert "open triangle" in words and "filled circle" in words and "Monte Carlo" in words and "alpha" in words
+    assert ax.get_xscale() == "log"
+
+
+def test_flipping_rows_stand_out_and_are_labelled(tmp_path, reading, monkeypatch):
+    infl = reading.diagnostic("influence").values
+    d = reading.figure_data["loo"]
+    assert d["flipping_rows"] == infl["flipping_rows"] and d["n_flipping"] == infl["n_flipping"] > 0
+    figs = _capture(monkeypatch)
+    write_figures(reading.figure_data, tmp_path)
+    fig = figs[FIGURE_FILES["loo"]]
+    ax = fig.axes[0]
+    labels = {t.get_text() for t in ax.texts} | {t.get_text() for t in fig.texts}
+    text = " ".join(labels)
+    for r in d["flipping_rows"]:  # each flipping row's line number is written beside its point (or listed)
+        assert str(r) in labels or str(r) in text
+    legend = " ".join(t.get_text() for t in fig.legends[0].get_texts())
+    assert "FLIPS" in legend and f"({d['n_flipping']} of {d['n']})" in legend
+    # the flagged points have their own marker (a larger diamond), ordinary rows a small grey circle
+    sizes = sorted({float(c.get_sizes()[0]) for c in ax.collections if len(c.get_offsets())})
+    assert len(sizes) == 2
+
+
+def _text_boxes(fig, ax):
+    fig.canvas.draw()
+    r = fig.canvas.get_renderer()
+    return [t.get_window_extent(r) for t in ax.texts]
+
+
+def test_place_labels_never_overlap_in_a_crowded_6x5_design():
+    from audit.render.figures import place_labels
+
+    rng = np.random.default_rng(11)  # invented: 30 cells crowded into a small region, long labels
+    anchors = [(float(x), float(y)) for x, y in zip(rng.uniform(200, 420, 30), rng.uniform(150, 300, 30))]
+    sizes = [(float(w), 12.0) for w in rng.uniform(40, 110, 30)]
+    bounds = (60.0, 50.0, 700.0, 460.0)
+    avoid = [(x - 3, y - 3, x + 3, y + 3) for x, y in anchors]
+    boxes = place_labels(anchors, sizes, bounds, avoid=avoid)
+    placed = [b for b in boxes if b is not None]
+    assert len(placed) >= 15
+    for i, a in enumerate(placed):
+        assert bounds[0] <= a[0] and a[2] <= bounds[2] and bounds[1] <= a[1] and a[3] <= bounds[3]
+        assert not any(not (a[2] <= v[0] or v[2] <= a[0] or a[3] <= v[1] or v[3] <= a[1]) for v in avoid)
+        for b in placed[i + 1:]:
+            assert a[2] + 2 <= b[0] or b[2] + 2 <= a[0] or a[3] + 2 <= b[1] or b[3] + 2 <= a[1]
+    # deterministic: the same input gives the same boxes
+    assert place_labels(anchors, sizes, bounds, avoid=avoid) == boxes
+
+
+def test_cell_labels_do_not_overlap_in_the_drawn_figures(tmp_path, monkeypatch):
+    # invented 6 x 5 design whose cells have nearly equal means and SDs (a crowded plot)
+    rng = np.random.default_rng(2)
+    fr = pd.DataFrame({FA: np.repeat([f"stock-{i}" for i in range(6)], 25),
+                       FB: np.tile([f"prune-{k}" for k in range(5)], 30)})
+    fr[RESP] = 50 + rng.normal(0, 1, len(fr))
+    f = fit_observations(load(fr, response=RESP, factors=(FA, FB)))
+    figs = _capture(monkeypatch)
+    write_figures(figure_data(f, []), tmp_path)
+    for name, which in ((FIGURE_FILES["spread"], -1), (FIGURE_FILES["sd_n"], 0)):
+        fig = figs[name]
+        ax = fig.axes[which]
+        boxes = _text_boxes(fig, ax)
+        assert boxes
+        for i, a in enumerate(boxes):
+            for b in boxes[i + 1:]:
+                assert not a.overlaps(b), name
+        shown = {t.get_text() for t in ax.texts}
+        listed = " ".join(t.get_text() for t in fig.texts)
+        assert len(shown) + listed.count(" x ") >= min(30, len(shown) + 1) or "more" in listed
+
+
+def test_cell_means_keep_one_colour_set_per_factor(tmp_path, fit, monkeypatch):
+    import matplotlib.colors as mc
+
+    figs = _capture(monkeypatch)
+    write_figures(figure_data(fit, []), tmp_path)
+    ax1, ax2 = figs[FIGURE_FILES["cell_means"]].axes[:2]
+    c1 = {mc.to_hex(l.get_color()) for l in ax1.get_lines() if l.get_marker() not in (None, "None", "")}
+    c2 = {mc.to_hex(l.get_color()) for l in ax2.get_lines() if l.get_marker() not in (None, "None", "")}
+    assert c1 and c2 and not (c1 & c2)  # the two factors never share a colour
+
+
+def test_qq_counts_in_legend_and_normality_grade(tmp_path, monkeypatch):
+    # invented: exponential errors leave the band; the legend counts the points outside
+    rng = np.random.default_rng(3)
+    fr = pd.DataFrame({FA: np.repeat(["x", "y"], 60), FB: np.tile(["p", "q", "r"], 40),
+                       RESP: rng.exponential(size=120)})
+    from audit.diagnostics import run_diagnostics
+
+    f = fit_observations(load(fr, response=RESP, factors=(FA, FB)))
+    fd = figure_data(f, run_diagnostics(f))
+    assert fd["qq"]["check"]["grade"] in ("clear", "minor", "concern", "critical")
+    figs = _capture(monkeypatch)
+    write_figures(fd, tmp_path)
+    fig = figs[FIGURE_FILES["residual_qq"]]
+    legend = " ".join(t.get_text() for t in fig.axes[0].get_legend().get_texts())
+    n, k = fd["qq"]["n"], fd["qq"]["outside"]
+    assert f"OUTSIDE the band ({k} of {n})" in legend and f"inside the band ({n - k} of {n})" in legend
+    assert "Normality check grade" in " ".join(t.get_text() for t in fig.texts)
+
+
+def test_boxcox_p_curve_matches_statsmodels(reading):
+    smf = pytest.importorskip("statsmodels.formula.api")
+    import statsmodels.api as sm
+
+    d = reading.figure_data["boxcox"]
+    pc = d["p_curve"]
+    lo, hi = d["window"]
+    assert lo <= min(0.0, d["lambda_ci"][0]) and hi >= max(1.0, d["lambda_ci"][1])
+    fr = pd.read_csv(os.path.join(DEMO, "reading_programme.csv"))
+    for lam in (0.0, 1.0, 0.5):
+        if not lo <= lam <= hi:
+            continue
+        y = fr["score_gain"].to_numpy(float)
+        z = np.log(y) if lam == 0 else (y ** lam - 1) / lam
+        g = fr.assign(z=z)
+        # reference: statsmodels anova_lm (Type II) of the transformed response
+        ref = sm.stats.anova_lm(smf.ols("z ~ C(programme) * C(term)", data=g).fit(), typ=2)
+        p_ref = ref.loc["C(programme):C(term)", "PR(>F)"]
+        i = int(np.argmin(np.abs(np.array(pc["lambda"]) - lam)))
+        if abs(pc["lambda"][i] - lam) < 1e-12:
+            assert pc["p"][i] == pytest.approx(p_ref, rel=1e-8)
+    # the scale diagnostic's decision change (p crosses alpha) is among the crossings found
+    alpha = reading.alpha
+    for c in pc["crossings"]:
+        assert lo <= c <= hi
+    ps = np.array(pc["p"])
+    assert bool(pc["crossings"]) == bool(((ps < alpha) != (ps[0] < alpha)).any())

@@ -33,7 +33,7 @@ from ..fit import Fit
 from .assumptions import _num
 
 __all__ = ["thin_keep_extremes", "cell_means_ci", "qq_points", "spread_vs_fitted", "sd_vs_n", "loo_points", "boxcox_profile",
-           "figure_data"]
+           "methods_p", "boxcox_p_curve", "figure_data"]
 
 MAX_POINTS = 5000
 
@@ -197,7 +197,9 @@ def loo_points(diagnostics, max_points: int = MAX_POINTS) -> dict | None:
     diagnostic (values 'loo_p', 'rows', 'alpha'); None when absent.
 
     Returns {rows, p, alpha, n, n_below_alpha, n_undefined, thinned, p_full,
-    row_kind}; above ``max_points`` rows the drawing keeps the smallest and
+    row_kind, flipping_rows, n_flipping}: ``flipping_rows`` are the rows whose
+    deletion alone flips the decision at alpha (as listed by the diagnostic, up
+    to its cap; ``n_flipping`` counts all of them); above ``max_points`` rows the drawing keeps the smallest and
     largest p-values and evenly spaced rows between (counts are of all rows)."""
     d = _find(diagnostics, "influence")
     if d is None:
@@ -220,13 +222,19 @@ def loo_points(diagnostics, max_points: int = MAX_POINTS) -> dict | None:
     n_below = v.get("n_loo_below_alpha")
     if n_below is None:
         n_below = int(sum(1 for _, q in pairs if alpha is not None and q < alpha))
+    flipping = [int(r) for r in (v.get("flipping_rows") or [])]
+    n_flipping = v.get("n_flipping")
+    if n_flipping is None:
+        n_flipping = len(flipping)
     thinned = ps.size > max_points or not complete
     if ps.size > max_points:  # keep the extremes of p (the rows that matter) and evenly spaced rows between
         keep = thin_keep_extremes(ps, max_points)
+        keep = np.union1d(keep, np.flatnonzero(np.isin(rows, flipping)))  # every listed flipping row is drawn
         rows, ps = rows[keep], ps[keep]
     return {"rows": rows.tolist(), "p": ps.tolist(), "alpha": alpha, "n": n_all - n_undefined,
             "n_below_alpha": int(n_below), "n_undefined": n_undefined, "thinned": bool(thinned),
-            "p_full": v.get("p_full"), "row_kind": v.get("row_kind")}
+            "p_full": v.get("p_full"), "row_kind": v.get("row_kind"),
+            "flipping_rows": flipping, "n_flipping": int(n_flipping)}
 
 
 def boxcox_profile(diagnostics) -> dict | None:
@@ -253,20 +261,132 @@ def boxcox_profile(diagnostics) -> dict | None:
             "lambda_ci": list(ci) if ci else None, "cutoff": lmax - float(stats.chi2.ppf(0.95, 1)) / 2.0}
 
 
-def figure_data(fit: Fit, diagnostics) -> dict:
+def boxcox_p_curve(fit: Fit, lo: float, hi: float, points: int = 81) -> dict | None:
+    """Classical interaction p-value of the Box-Cox transformed response at
+    ``points`` evenly spaced lambdas in [lo, hi] (0 and 1 added when inside).
+
+    Each p is the interaction F test of the cell-means model from the cell
+    counts, means and centred sums of squares of (y/g)^lambda (the same cell
+    statistics path as the ``scale`` diagnostic; no model refit).  Returns
+    {lambda, p, crossings} (``crossings``: lambdas where p crosses alpha, by
+    linear interpolation of log p between grid points) or None in summary
+    mode or for a response that is not strictly positive.
+    """
+    from ..core import additive_design
+    from .influence import cell_sums, interaction_test
+
+    if fit.obs is None or not (lo < hi):
+        return None
+    y = np.asarray(fit.obs.y_original, dtype=float)
+    if y.size == 0 or not (y > 0).all():
+        return None
+    cells = fit.cells
+    JK = cells.J * cells.K
+    X = additive_design(cells.J, cells.K)
+    ly = np.log(y)
+    ly = ly - ly.mean()  # scaling by the geometric mean leaves F unchanged and keeps the values moderate
+    lams = np.linspace(lo, hi, points)
+    lams = np.union1d(lams, [t for t in (0.0, 1.0) if lo <= t <= hi])
+    ps = []
+    for lam in lams:
+        z = ly if abs(lam) < 1e-12 else np.expm1(lam * ly) / lam
+        ps.append(float(interaction_test(*cell_sums(z, fit.obs.cell, JK), X)[3]))
+    ps = np.array(ps)
+    alpha = fit.alpha
+    crossings = []
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lp = np.log(ps)
+    for i in range(lams.size - 1):
+        a, b = ps[i], ps[i + 1]
+        if not (np.isfinite(lp[i]) and np.isfinite(lp[i + 1])):
+            continue
+        if (a < alpha) != (b < alpha):
+            t = (np.log(alpha) - lp[i]) / (lp[i + 1] - lp[i])
+            crossings.append(float(lams[i] + t * (lams[i + 1] - lams[i])))
+    return {"lambda": _lst(lams), "p": _lst(ps), "crossings": crossings}
+
+
+def _focus_window(d: dict) -> tuple[float, float]:
+    """The lambda range the Box-Cox figure shows: lambda-hat, its interval, 0 and 1,
+    with a margin, inside the profile grid."""
+    lam = d["lambda"]
+    pts = [0.0, 1.0]
+    if d.get("lambda_hat") is not None:
+        pts.append(float(d["lambda_hat"]))
+    if d.get("lambda_ci"):
+        pts.extend(float(x) for x in d["lambda_ci"])
+    a, b = min(pts), max(pts)
+    pad = max(0.25, 0.15 * (b - a))
+    return max(min(lam), a - pad), min(max(lam), b + pad)
+
+
+def methods_p(methods, judgement, alpha: float, effect: str = "AB") -> dict | None:
+    """Every method's p-value for ``effect`` (default the interaction), with its
+    trust from the verdict.
+
+    Returns {alpha, effect, rows: [{method, p, p_interval, resamples, trusted,
+    reason, agrees, note}]} in the order of ``Findings.methods``, or None when
+    no method ran.  ``trusted`` is None when there is no verdict; ``note`` is
+    the first note of a method that gave no p (why)."""
+    if not methods:
+        return None
+    trust = getattr(judgement, "trust", None) or ()
+    agrees = getattr(judgement, "agrees", None) or ()
+    rows = []
+    for i, m in enumerate(methods):
+        if m.effect != effect:
+            continue
+        t = trust[i] if i < len(trust) else None
+        rows.append({
+            "method": m.id, "p": _num(m.p) if m.p is not None else None,
+            "p_interval": [_num(x) for x in m.p_interval] if m.p_interval else None,
+            "resamples": m.resamples,
+            "trusted": None if t is None else bool(t.trusted),
+            "reason": None if t is None else t.reason,
+            "agrees": agrees[i] if i < len(agrees) else None,
+            "note": (m.notes[0] if m.notes else "no p-value") if m.p is None else None,
+        })
+    if not rows:
+        return None
+    return {"alpha": alpha, "effect": effect, "rows": rows}
+
+
+def _normality_check(diagnostics) -> dict | None:
+    d = _find(diagnostics, "normality")
+    if d is None:
+        return None
+    v = _values(d)
+    sev = d.get("severity") if isinstance(d, dict) else d.severity
+    return {"grade": sev, "skewness": v.get("skewness"), "excess_kurtosis": v.get("excess_kurtosis")}
+
+
+def figure_data(fit: Fit, diagnostics, *, methods=None, judgement=None) -> dict:
     """Every coordinate the report figures draw, in one JSON-friendly dict.
 
     Keys: ``response``, ``alpha``, ``row_kind``, ``cell_means``, ``qq``,
-    ``spread``, ``sd_n``, ``loo``, ``boxcox`` (the last four may be None).
+    ``spread``, ``sd_n``, ``loo``, ``boxcox``, ``methods_p`` (all but the
+    first six may be None).  ``methods`` and ``judgement`` (the verdict) feed
+    ``methods_p``; ``qq`` carries the normality check's grade
+    (``qq['check']``), ``boxcox`` the interaction p against lambda
+    (``boxcox['p_curve']``) over the shown window (``boxcox['window']``).
     """
+    qq = qq_points(fit)
+    if qq is not None:
+        qq["check"] = _normality_check(diagnostics)
+    bc = boxcox_profile(diagnostics)
+    if bc is not None:
+        lo, hi = _focus_window(bc)
+        bc["window"] = [lo, hi]
+        bc["p_curve"] = boxcox_p_curve(fit, lo, hi)
     return {
         "response": fit.cells.response,
         "alpha": fit.alpha,
         "row_kind": fit.obs.row_kind if fit.obs is not None else "line",
         "cell_means": cell_means_ci(fit),
-        "qq": qq_points(fit),
+        "qq": qq,
         "spread": spread_vs_fitted(fit),
         "sd_n": sd_vs_n(fit),
         "loo": loo_points(diagnostics),
-        "boxcox": boxcox_profile(diagnostics),
+        "boxcox": bc,
+        "methods_p": methods_p(methods, judgement, fit.alpha),
     }
