@@ -9,6 +9,7 @@ from __future__ import annotations
 import dataclasses
 import datetime as _dt
 import math
+import os
 import platform
 import sys
 
@@ -142,6 +143,7 @@ def check(
     claim, calibration, equivalence = _verdict_options(claim, calibration, equivalence, factors)
     obs = load(data, response=response, factors=factors, levels=levels, order=order, unit=unit,
                sheet=sheet, encoding=encoding, decimal=decimal)
+    _refuse_cell_table(data, obs, sheet=sheet, encoding=encoding)
     fit = fit_observations(obs, alpha=alpha)
     design = describe_design(
         fit.cells, dropped=obs.dropped.to_dict(obs.levels_a, obs.levels_b), centring=obs.centring
@@ -151,6 +153,30 @@ def check(
                      claim=claim, calibration=calibration, equivalence=equivalence, timestamp=timestamp,
                      resamples=resamples, seed=seed, diagnostics=diagnostics, methods=methods,
                      figures=figures, progress=progress)
+
+
+def _refuse_cell_table(data, obs, *, sheet, encoding) -> None:
+    """Stop when a dataset given to :func:`check` is a table of cell statistics
+    (one row per cell and columns named like mean / sd / se / n): auditing its
+    means as raw observations would be wrong."""
+    import numpy as np
+
+    counts = np.bincount(obs.cell, minlength=obs.J * obs.K)
+    if not (counts == 1).all():
+        return
+    if isinstance(data, (str, os.PathLike)):
+        from .intake import read_table
+
+        columns = list(read_table(data, sheet=sheet, encoding=encoding)[0].columns)
+        path = os.fspath(data)
+    else:
+        columns, path = list(data.columns), None
+    from .errors import ColumnError
+    from .summary import cell_table_hint
+
+    hint = cell_table_hint(columns, factors=obs.factors, path=path, response=obs.response)
+    if hint:
+        raise ColumnError(hint)
 
 
 def _fragility_block(diags: tuple[Diagnostic, ...]) -> dict | None:
