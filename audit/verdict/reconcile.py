@@ -429,7 +429,13 @@ def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0
             else:
                 msg = (f"F {claim.F_relation} {_F_text(claim)} ({'rounding interval ' if claim.F_relation == '=' else ''}{shown}) is reproduced by no SS type: "
                        + ", ".join(f"Type {t} gives {available[t].F:.4f}" for t in available)
-                       + f"; the closest is {_types_text(closest.same_as)}.")
+                       + f"; the closest is {_types_text(closest.same_as)}")
+                if ranges:
+                    t0 = closest.ss_type if closest.ss_type in ranges else next(iter(ranges))
+                    a, b = ranges[t0]
+                    msg += (f"; even within the table's rounding the printed cell statistics allow only F from "
+                            f"{a:.4f} to {'unbounded' if b is None else f'{b:.4f}'} (Type {t0})")
+                msg += "."
                 ok = False
             checks.append(ReconcileCheck(item="F", ok=ok, severity="clear" if ok else "critical",
                                          expected=float(closest.F), found=(lo, hi), message=msg))
