@@ -119,7 +119,8 @@ class SummaryTable:
     ----------
     cells : CellStats
     columns : dict
-        {'mean': name, 'spread': name, 'n': name}: the table's columns used.
+        {'mean': name, 'spread': name, 'n': name}: the table's columns used
+        (in the JSON: 'mean_column', 'spread_column', 'n_column').
     spread : str
         'sd' or 'se': what the spread column holds (an SE is turned into the
         SD as SE * sqrt(n)).
@@ -159,7 +160,7 @@ class SummaryTable:
         return h(self.decimals.get("mean")), h(self.decimals.get("spread"))
 
     def to_dict(self) -> dict:
-        return {"columns": dict(self.columns), "spread": self.spread, "decimals": dict(self.decimals),
+        return {"columns": {f"{k}_column": v for k, v in self.columns.items()}, "spread": self.spread, "decimals": dict(self.decimals),
                 "decimals_source": self.decimals_source, "input": self.path, "notes": list(self.notes)}
 
 
