@@ -22,8 +22,9 @@ holds-with-caveats     agrees, with stated caveats (near alpha, removable,
                        a warning-level problem, few trusted methods, low
                        sensitivity for an "absent" claim, a resampled
                        decision not settled)
-fragile                one or two deletions flip the decision, or the
-                       trusted methods split around alpha
+fragile                one or two deletions flip the decision, the
+                       decision can change within a summary table's
+                       rounding, or the trusted methods split around alpha
 does-not-hold          every trusted method contradicts the claim
 not-reproducible       the reported test cannot be reproduced from the data
 cannot-judge           no trusted test of the effect (no error df and no
