@@ -321,8 +321,9 @@ def test_se_column_and_dataframe_decimals():
 def test_bundled_manuscript(capsys):
     # invented demo scenario: the interaction line cannot come from the printed table; the main
     # effects are Type III lines
-    side = json.load(open(os.path.join(FIXTURES, "manuscript_sleep_caffeine.json"), encoding="utf-8"))
-    argv = ["check-summary", os.path.join(FIXTURES, side["table"]), "--factors", *side["factors"],
+    DEMO = os.path.join(os.path.dirname(FIXTURES), "audit", "demo_data")
+    side = json.load(open(os.path.join(DEMO, "manuscript_sleep_caffeine.json"), encoding="utf-8"))
+    argv = ["check-summary", os.path.join(DEMO, side["table"]), "--factors", *side["factors"],
             "--mean", side["mean"], "--sd", side["sd"], "--n", side["n"], "--scale-items",
             str(side["scale"]["items"]), "--scale-min", str(side["scale"]["min"]), "--scale-max",
             str(side["scale"]["max"]), "--json", "-", *FAST]
