@@ -180,6 +180,8 @@ def granularity(table, *, items: int | None, scale_min: float | None = None,
     scale_min, scale_max : float, optional
         The scale's smallest and largest item response (both or neither).
 
+    Notes
+    -----
     values keys: ``items``, ``scale_min``, ``scale_max``, ``decimals``,
     ``cells`` (one dict per filled cell: ``a``, ``b``, ``n``, ``grim``,
     ``grimmer``, ``range``, ``message``), ``inconsistent`` (count).

@@ -306,6 +306,8 @@ def rounding(fit, *, mean_half: float | None, sd_low: np.ndarray, sd_high: np.nd
     decimals, decimals_source : optional
         Reported decimals and how they were found, echoed in ``values``.
 
+    Notes
+    -----
     values keys: ``available``, ``F``, ``p`` (from the table as printed), ``F_min``,
     ``F_max``, ``p_min``, ``p_max``, ``df1``, ``df2``, ``decision_can_change``,
     ``mean_half_unit``, ``ss_ab_min``, ``ss_ab_max``, ``sse_min``, ``sse_max``,
