@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as _dt
+import math
+import os
 import platform
 import sys
 
@@ -167,6 +169,7 @@ def check(
                              equivalence=equivalence, timestamp=timestamp)
     obs = load(data, response=response, factors=factors, levels=levels, order=order, unit=unit,
                sheet=sheet, encoding=encoding, decimal=decimal)
+    _refuse_cell_table(data, obs, sheet=sheet, encoding=encoding)
     fit = fit_observations(obs, alpha=alpha)
     design = describe_design(
         fit.cells, dropped=obs.dropped.to_dict(obs.levels_a, obs.levels_b), centring=obs.centring,
@@ -214,6 +217,30 @@ def _check_engine(data, engine, *, spark_master, sample_per_cell, response, fact
                               source_path=src)
 
 
+def _refuse_cell_table(data, obs, *, sheet, encoding) -> None:
+    """Stop when a dataset given to :func:`check` is a table of cell statistics
+    (one row per cell and columns named like mean / sd / se / n): auditing its
+    means as raw observations would be wrong."""
+    import numpy as np
+
+    counts = np.bincount(obs.cell, minlength=obs.J * obs.K)
+    if not (counts == 1).all():
+        return
+    if isinstance(data, (str, os.PathLike)):
+        from .intake import read_table
+
+        columns = list(read_table(data, sheet=sheet, encoding=encoding)[0].columns)
+        path = os.fspath(data)
+    else:
+        columns, path = list(data.columns), None
+    from .errors import ColumnError
+    from .summary import cell_table_hint
+
+    hint = cell_table_hint(columns, factors=obs.factors, path=path, response=obs.response)
+    if hint:
+        raise ColumnError(hint)
+
+
 def _fragility_block(diags: tuple[Diagnostic, ...]) -> dict | None:
     """The top-level ``fragility`` block of the JSON, from the fragility check's typed facts."""
     for d in diags:
@@ -240,7 +267,7 @@ def _verdict_options(claim, calibration, equivalence, factors):
 
 
 def _assemble(fit, design, *, mode, source, resamples, seed, diagnostics, methods, figures, progress,
-              claim=None, calibration=None, equivalence=None, timestamp=True) -> Findings:
+              claim=None, calibration=None, equivalence=None, timestamp=True, extra_diagnostics=()) -> Findings:
     """Run the later stages on a fit and collect everything into Findings."""
     from .methods import new_seed, run_methods
 
@@ -249,7 +276,7 @@ def _assemble(fit, design, *, mode, source, resamples, seed, diagnostics, method
     if diagnostics:
         from .diagnostics import run_diagnostics
 
-        diags = run_diagnostics(fit)
+        diags = run_diagnostics(fit) + tuple(extra_diagnostics)
     prov = _provenance(*source)
     if not timestamp:
         prov.pop("timestamp", None)
@@ -293,15 +320,74 @@ def _assemble(fit, design, *, mode, source, resamples, seed, diagnostics, method
     )
 
 
+def _scale_options(items, lo, hi):
+    """Check the scale options of the granularity checks at the edge."""
+    from .errors import OptionError
+
+    if items is None:
+        if lo is not None or hi is not None:
+            raise OptionError("scale_items: the scale's bounds were given without the number of integer items "
+                              "averaged into each score; add --scale-items L (API scale_items=), e.g. 1")
+        return None, None, None
+    if isinstance(items, bool) or not isinstance(items, int) or not 1 <= items <= 10_000:
+        raise OptionError(f"scale_items: expected a whole number of items from 1 to 10,000, found {items!r}")
+    if (lo is None) != (hi is None):
+        raise OptionError("scale_min/scale_max: give both ends of the item scale (--scale-min MIN --scale-max MAX) "
+                          "or neither")
+    if lo is not None:
+        try:
+            lo, hi = float(lo), float(hi)
+        except (TypeError, ValueError):
+            raise OptionError(f"scale_min/scale_max: expected numbers, found {lo!r} and {hi!r}") from None
+        if not (math.isfinite(lo) and math.isfinite(hi) and lo < hi):
+            raise OptionError(f"scale_min/scale_max: expected finite numbers with min < max, found {lo!r} and "
+                              f"{hi!r}; e.g. --scale-min 1 --scale-max 7")
+    return items, lo, hi
+
+
+def _reconciliation_diagnostic(judgement) -> Diagnostic | None:
+    """Every stated test's reconciliation checks as one graded finding (summary mode)."""
+    from .results import SEVERITIES
+
+    if judgement is None:
+        return None
+    recs = [c for c in judgement.claims if c.reconciliation is not None and c.reconciliation.checks]
+    if not recs:
+        return None
+    worst = "clear"
+    items = []
+    for c in recs:
+        r = c.reconciliation
+        for ch in r.checks:
+            if SEVERITIES.index(ch.severity) > SEVERITIES.index(worst):
+                worst = ch.severity
+            items.append({"effect": c.effect, "claim": c.claim.text, **ch.to_dict()})
+    lines = [f"{c.effect}: {c.reconciliation.message.rstrip('.')}" for c in recs]
+    values = {"checks": items,
+              "claims": [{"effect": c.effect, "claim": c.claim.text, "reproduced": c.reconciliation.reproduced,
+                          "reproducing_types": list(c.reconciliation.reproducing_types),
+                          "implied_n": c.reconciliation.implied_n} for c in recs]}
+    return Diagnostic(id="reconciliation", severity=worst, summary="Reconciliation: " + "; ".join(lines) + ".",
+                      values=values)
+
+
 def check_summary(
     table,
     *,
     factors: tuple[str, str],
     mean: str = "mean",
-    sd: str = "sd",
+    sd: str | None = None,
+    se: str | None = None,
     n: str = "n",
     response: str = "y",
     alpha: float = 0.05,
+    sheet: str | int | None = None,
+    encoding: str | None = None,
+    decimal: str | None = None,
+    decimals=None,
+    scale_items: int | None = None,
+    scale_min: float | None = None,
+    scale_max: float | None = None,
     diagnostics: bool = True,
     methods: bool = True,
     figures: bool = False,
@@ -311,37 +397,94 @@ def check_summary(
     seed: int | None = None,
     timestamp: bool = True,
 ) -> Findings:
-    """Audit from a table of cell means, SDs and sizes (one row per cell).
+    """Audit from a table of cell means, SDs (or SEs) and sizes, one row per cell:
+    a manuscript's table, reviewed without the raw data.
 
-    The classical ANOVA of every SS type is exact from these sufficient
-    statistics; checks that need the raw observations are not run.
+    The classical ANOVA of every SS type, Welch-James, HC3/HC4, SD ratios and
+    their pairing with the cell sizes and balance are exact from these
+    sufficient statistics (identical to :func:`check` on the same data).  The
+    size check of the verdict simulates normal errors with the table's cell
+    sizes and SDs.  Checks that need the raw observations are 'not-run' and
+    listed in the JSON's ``not_run``.  Added in summary mode: ``rounding`` (the
+    interaction F and p over every table that rounds to the reported one; the
+    counterpart of fragility), ``granularity`` (GRIM/GRIMMER with a scale) and,
+    with stated tests, ``reconciliation``.
 
     Parameters
     ----------
-    table : pandas.DataFrame
-        One row per cell with the two factor columns and ``mean``, ``sd``, ``n``.
+    table : str, path or pandas.DataFrame
+        One row per cell with the two factor columns, a mean, an SD or SE and
+        a size column (.csv/.tsv/.txt, .xlsx, .parquet, or a DataFrame).
     factors : (str, str)
-    mean, sd, n : str
-        Column names of the cell means, SDs (ddof 1) and sizes.
+    mean, n : str
+        Columns of the cell means and sizes.
+    sd, se : str, optional
+        Column of the SDs (ddof 1) or of the standard errors of the means
+        (SD = SE * sqrt(n)); one of them (default ``sd='sd'``).
     response : str
         Name to show for the response.
     alpha : float, default 0.05
+    sheet, encoding, decimal : optional
+        As in :func:`check`.
+    decimals : int or dict, optional
+        Reported decimals of the mean and SD/SE columns ({column: int}, or one
+        int for both).  Default: counted in the file's text; for a workbook,
+        Parquet file or DataFrame, from the shortest repr of the stored floats
+        (trailing zeros are lost there).
+    scale_items, scale_min, scale_max : optional
+        When each response is the mean of ``scale_items`` integer items on a
+        scale from ``scale_min`` to ``scale_max``: GRIM, GRIMMER and range checks.
     diagnostics, methods, figures : bool
         As in :func:`check`; only what cell statistics support is computed
-        (the others say they need the raw data).
+        (the others are 'not-run').
     claim, calibration, equivalence, seed, timestamp : optional
         As in :func:`check` (the size check uses normal errors here).
 
     Returns
     -------
     Findings
+        ``mode`` 'summary'.
     """
+    from .summary import read_summary
+
     alpha = check_alpha(alpha)
     seed = check_seed(seed)
     claim, calibration, equivalence = _verdict_options(claim, calibration, equivalence, factors)
-    cells = cells_from_summary(table, factors=tuple(factors), mean=mean, sd=sd, n=n, response=response)
+    scale_items, scale_min, scale_max = _scale_options(scale_items, scale_min, scale_max)
+    tab = read_summary(table, factors=factors, mean=mean, sd=sd, se=se, n=n, response=response, sheet=sheet,
+                       encoding=encoding, decimal=decimal, decimals=decimals)
+    cells = tab.cells
     fit = fit_cells(cells, alpha=alpha)
     design = describe_design(cells, dropped={"total": 0, "note": "summary table: rows dropped are unknown"})
-    return _assemble(fit, design, mode="summary", source=(None, None), resamples=0, seed=seed,
-                     diagnostics=diagnostics, methods=methods, figures=figures, progress=None,
-                     claim=claim, calibration=calibration, equivalence=equivalence, timestamp=timestamp)
+    if tab.notes:
+        design = dataclasses.replace(design, notes=(*tab.notes, *design.notes))
+    extra: tuple = ()
+    if diagnostics:
+        from .diagnostics.granularity import granularity
+        from .diagnostics.rounding import rounding
+
+        extra = (rounding(fit, mean_half=tab.half_units()[0], sd_low=_sd_bounds(tab, -1), sd_high=_sd_bounds(tab, 1),
+                          decimals=dict(tab.decimals), decimals_source=tab.decimals_source),
+                 granularity(tab, items=scale_items, scale_min=scale_min, scale_max=scale_max))
+    out = _assemble(fit, design, mode="summary", source=(tab.path, tab.sha256), resamples=0, seed=seed,
+                    diagnostics=diagnostics, methods=methods, figures=figures, progress=None,
+                    claim=claim, calibration=calibration, equivalence=equivalence, timestamp=timestamp,
+                    extra_diagnostics=extra)
+    recon = _reconciliation_diagnostic(out.judgement)
+    diags = out.diagnostics + ((recon,) if recon is not None else ())
+    return dataclasses.replace(out, diagnostics=diags, summary_input=tab.to_dict())
+
+
+def _sd_bounds(tab, side: int):
+    """Each cell's SD at the low (side -1) or high (+1) end of its rounding interval."""
+    import numpy as np
+
+    h = tab.half_units()[1]
+    v = np.asarray(tab.spread_values, dtype=float)
+    if h is None:
+        e = v
+    else:
+        e = np.maximum(v + side * h, 0.0)
+    if tab.spread == "se":
+        e = e * np.sqrt(np.asarray(tab.cells.counts, dtype=float))
+    return e

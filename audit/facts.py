@@ -10,11 +10,12 @@ error at the source instead of a silent ``None`` downstream.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 __all__ = [
     "HomogeneityFacts",
     "FragilityFacts",
+    "RoundingFacts",
     "InfluenceFacts",
     "ScaleFacts",
     "ShapeFacts",
@@ -140,6 +141,36 @@ class FragilityFacts:
     max_steps: int
     significant_before: bool | None
     stopped: str = ""
+
+
+@dataclass(frozen=True, kw_only=True)
+class RoundingFacts:
+    """The interaction test over every table that rounds to the reported one
+    (summary mode: the counterpart of fragility).
+
+    Attributes
+    ----------
+    decision_can_change : bool
+        The decision at alpha differs between the ends of the p range.
+    F_min, F_max : float or None
+        Range of the interaction F (F_max None: unbounded).
+    p_min, p_max : float
+        Range of its p.
+    significant : bool or None
+        The decision on the table as printed.
+    F_ranges : dict
+        {(effect, SS type): (F_min, F_max or None)} for every test the ANOVA
+        forms: the F values a reported test may have while the table rounds
+        to what is printed (read by the reconciliation).
+    """
+
+    decision_can_change: bool
+    F_min: float | None
+    F_max: float | None
+    p_min: float
+    p_max: float
+    significant: bool | None
+    F_ranges: dict = field(default_factory=dict)
 
 
 @dataclass(frozen=True, kw_only=True)

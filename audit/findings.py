@@ -16,7 +16,7 @@ import numpy as np
 
 from .core import AnovaResult
 from .design import CellStats, DesignSummary
-from .results import Diagnostic, MethodResult
+from .results import NOT_RUN, Diagnostic, MethodResult
 
 __all__ = ["Findings", "CAUTIONS", "to_jsonable", "SCHEMA_VERSION", "findings_schema"]
 
@@ -103,6 +103,26 @@ class Findings:
     figure_data: dict | None = field(default=None, repr=False, compare=False)
     judgement: object = None
     calibration: object = None
+    summary_input: dict | None = None
+
+    def not_run(self) -> list[dict]:
+        """The checks and methods that were not run on this input, each with its
+        reason: in summary mode, what the raw observations would add."""
+        out = [{"id": d.id, "kind": "diagnostic", "reason": d.summary} for d in self.diagnostics
+               if d.severity == NOT_RUN]
+        seen = set()
+        for m in self.methods:
+            if m.p is None and m.id not in seen and any("raw observations" in t for t in m.notes):
+                seen.add(m.id)
+                out.append({"id": m.id, "kind": "method", "reason": m.notes[0]})
+        if self.mode == "summary" and self.methods:
+            from .methods import RESAMPLING_IDS
+
+            for mid in RESAMPLING_IDS:
+                out.append({"id": mid, "kind": "method",
+                            "reason": "not computed: resampling needs the raw observations (only cell summaries "
+                                      "were given)"})
+        return out
 
     @property
     def verdict(self) -> str | None:
@@ -219,6 +239,8 @@ class Findings:
             "diagnostics": [x.to_dict() for x in self.diagnostics],
             "methods": self._method_dicts(),
             "fragility": self.fragility,
+            "not_run": self.not_run(),
+            "summary_input": self.summary_input,
             "cautions": list(self.cautions),
             "provenance": self.provenance,
         }

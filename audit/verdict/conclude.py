@@ -8,7 +8,8 @@ This module is the only place that decides.  It weighs, for the interaction
 * whether a reported test can be reproduced from the data (reconciliation);
 * the methods the trust rules keep (:mod:`audit.verdict.trust`): untrusted
   methods do not vote, and a split among trusted methods is itself a finding;
-* fragility and influence (a handful of deletions flip the decision), scale
+* fragility and influence (a handful of deletions flip the decision; in summary
+  mode, the decision can change within the table's rounding), scale
   dependence (a removable interaction), graded problems, closeness to alpha,
   and, for an "absent" claim, the design's sensitivity.
 
@@ -21,8 +22,9 @@ holds-with-caveats     agrees, with stated caveats (near alpha, removable,
                        a warning-level problem, few trusted methods, low
                        sensitivity for an "absent" claim, a resampled
                        decision not settled)
-fragile                one or two deletions flip the decision, or the
-                       trusted methods split around alpha
+fragile                one or two deletions flip the decision, the
+                       decision can change within a summary table's
+                       rounding, or the trusted methods split around alpha
 does-not-hold          every trusted method contradicts the claim
 not-reproducible       the reported test cannot be reproduced from the data
 cannot-judge           no trusted test of the effect (no error df and no
@@ -182,7 +184,7 @@ def _present_word(present: bool) -> str:
 
 
 def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, methods, trust, alpha: float,
-                 reconciliation=None, fragility=None, influence=None, scale=None, graded=(),
+                 reconciliation=None, fragility=None, influence=None, scale=None, graded=(), rounding=None,
                  sensitivity=None, cannot_reason: str | None = None) -> EffectVerdict:
     """Judge one effect (see the module docstring for the rules).
 
@@ -203,6 +205,8 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
     fragility : FragilityFacts, optional (interaction only)
     influence : InfluenceFacts, optional (interaction only)
     scale : ScaleFacts, optional (interaction only)
+    rounding : RoundingFacts, optional (interaction only, summary mode)
+        A decision that can change within the table's rounding is fragile.
     graded : sequence of (id, severity, summary)
         Diagnostics graded warning or serious, as caveats.
     sensitivity : object, optional
@@ -303,6 +307,14 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
         reasons.append(Reason(text=f"deleting a single observation (row {rows}) flips the {word} decision",
                               ref="diagnostic:influence", weight="decisive"))
         verdict = "fragile"
+    elif rounding is not None and rounding.decision_can_change:
+        hi = "unbounded" if rounding.F_max is None else f"{rounding.F_max:.4g}"
+        reasons.append(Reason(text=f"moving every reported mean and SD within half a unit of its last digit "
+                                   f"gives an interaction F from {rounding.F_min:.4g} to {hi} (p from "
+                                   f"{rounding.p_min:.3g} to {rounding.p_max:.3g}): the {word} decision at alpha "
+                                   f"{alpha:g} can change within the table's rounding", ref="diagnostic:rounding",
+                              weight="decisive"))
+        verdict = "fragile"
     if verdict == "fragile":
         reasons.append(Reason(text=f"the trusted methods agree with {claim_txt} on all the data: {listing(agree)}",
                               ref=f"method:{agree[0]}", weight="support"))
@@ -335,7 +347,7 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
                                    f"absence: {', '.join(conservative)}", ref=f"calibration:{conservative[0]}",
                               weight="caveat"))
     for did, sev, summ in graded:
-        if did in ("fragility", "influence", "scale") and effect == "AB":
+        if did in ("fragility", "influence", "scale", "rounding") and effect == "AB":
             continue  # weighed above
         caveats.append(Reason(text=f"{did} graded {sev}: {summ}", ref=f"diagnostic:{did}", weight="caveat"))
     lead = Reason(text=f"every trusted method agrees with {claim_txt}: {listing(agree)}",

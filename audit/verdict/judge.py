@@ -13,7 +13,8 @@ from dataclasses import dataclass
 
 from ..decision import decision
 from ..errors import OptionError
-from ..facts import FragilityFacts, HomogeneityFacts, IndependenceFacts, InfluenceFacts, ScaleFacts
+from ..facts import (FragilityFacts, HomogeneityFacts, IndependenceFacts, InfluenceFacts, RoundingFacts,
+                     ScaleFacts)
 from ..results import SEVERITIES
 from .claim import Claim, parse_claim
 from .conclude import EffectVerdict, Verdict, conclude, judge_effect
@@ -177,6 +178,7 @@ def judge(fit, *, diagnostics=(), methods=(), claims=(), calibration=None, equiv
     frag = _facts(diagnostics, FragilityFacts)
     infl = _facts(diagnostics, InfluenceFacts)
     scale = _facts(diagnostics, ScaleFacts)
+    rounding = _facts(diagnostics, RoundingFacts)
     self_checks = {(m.id, m.effect): m.self_check_ok for m in methods
                    if getattr(m, "self_check_ok", None) is not None}
     trust = assess_trust(methods, counts=cells.counts, alpha=alpha, homogeneity=homog, independence=indep,
@@ -193,7 +195,8 @@ def judge(fit, *, diagnostics=(), methods=(), claims=(), calibration=None, equiv
             records.append(ClaimRecord(effect="AB", source="classical-f", claim=None, present=decision(p, alpha),
                                        reconciliation=None))
             continue
-        rec = reconcile(c, anova=an, n_obs=int(cells.N), n_cells=int(cells.m), alpha=alpha) if c.has_test else None
+        rec = reconcile(c, anova=an, n_obs=int(cells.N), n_cells=int(cells.m), alpha=alpha,
+                        F_ranges=rounding.F_ranges if rounding is not None else None) if c.has_test else None
         records.append(ClaimRecord(effect=eff, source="stated", claim=c, present=decision_of_claim(c, alpha),
                                    reconciliation=rec))
 
@@ -233,6 +236,7 @@ def judge(fit, *, diagnostics=(), methods=(), claims=(), calibration=None, equiv
                           fragility=frag if rec.effect == "AB" else None,
                           influence=infl if rec.effect == "AB" else None,
                           scale=scale if rec.effect == "AB" else None,
+                          rounding=rounding if rec.effect == "AB" else None,
                           graded=graded if rec.effect == "AB" else (),
                           sensitivity=sensitivity, cannot_reason=cannot if rec.effect == "AB" else None)
         effects.append(ev)

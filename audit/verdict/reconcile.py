@@ -288,7 +288,8 @@ def _types_text(types) -> str:
 # ---------------------------------------------------------------------------
 
 
-def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0.05) -> Reconciliation:
+def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0.05,
+              F_ranges: dict | None = None) -> Reconciliation:
     """Reconcile a reported claim with the ANOVA recomputed from the data.
 
     Parameters
@@ -303,6 +304,11 @@ def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0
         The number of non-empty cells m.
     alpha : float, default 0.05
         Level used to read an ``ns`` claim (p >= alpha).
+    F_ranges : dict, optional
+        Summary mode: {(effect, SS type): (F_min, F_max or None)}, the F values
+        the data may have while their cell table rounds to what is printed
+        (:func:`audit.diagnostics.rounding.effect_F_ranges`).  A reported F (or
+        p) is then reproduced when its interval meets that range.
 
     Returns
     -------
@@ -326,6 +332,13 @@ def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0
         )
 
     rows = {t: anova.tables[t].row(claim.effect) for t in SS_TYPES}
+    ranges = {t: F_ranges[(claim.effect, t)] for t in SS_TYPES if F_ranges and (claim.effect, t) in F_ranges}
+
+    def meets(t, lo, hi):
+        if t not in ranges:
+            return False
+        a, b = ranges[t]
+        return a <= hi and (b is None or b >= lo)
     eff_df = int(rows["II"].df)
     err_df = int(anova.df_error)
     name = _effect_name(claim.effect)
@@ -391,7 +404,8 @@ def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0
                         f"({rows['II'].note or 'no test can be formed'}), so the reported F cannot be checked."))
         else:
             slo, shi = _slack(lo, hi)
-            reproducing = tuple(t for t, r in available.items() if slo <= r.F <= shi)
+            reproducing = tuple(t for t, r in available.items() if slo <= r.F <= shi or meets(t, slo, shi))
+            by_rounding = [t for t in reproducing if not slo <= available[t].F <= shi]
             coincide = len(closest.same_as) == len(available) == 3
             shown = _interval_text(lo, hi)
             if claim.F_relation != "=":
@@ -401,6 +415,11 @@ def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0
                          + ("; with every cell filled they coincide for the interaction" if coincide and claim.effect == "AB"
                             else "; the three types coincide here" if coincide else "")
                          + ")")
+                if by_rounding:
+                    a, b = ranges[by_rounding[0]]
+                    which += (f"{' only' if len(by_rounding) == len(reproducing) else ''} within the table's "
+                              f"rounding (the printed cell statistics allow F from {a:.4f} to "
+                              f"{'unbounded' if b is None else f'{b:.4f}'})")
                 others = [t for t in available if t not in reproducing]
                 msg = f"F {claim.F_relation} {_F_text(claim)} ({'rounding interval ' if claim.F_relation == '=' else ''}{shown}) is reproduced by {which}"
                 if others:
@@ -410,7 +429,13 @@ def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0
             else:
                 msg = (f"F {claim.F_relation} {_F_text(claim)} ({'rounding interval ' if claim.F_relation == '=' else ''}{shown}) is reproduced by no SS type: "
                        + ", ".join(f"Type {t} gives {available[t].F:.4f}" for t in available)
-                       + f"; the closest is {_types_text(closest.same_as)}.")
+                       + f"; the closest is {_types_text(closest.same_as)}")
+                if ranges:
+                    t0 = closest.ss_type if closest.ss_type in ranges else next(iter(ranges))
+                    a, b = ranges[t0]
+                    msg += (f"; even within the table's rounding the printed cell statistics allow only F from "
+                            f"{a:.4f} to {'unbounded' if b is None else f'{b:.4f}'} (Type {t0})")
+                msg += "."
                 ok = False
             checks.append(ReconcileCheck(item="F", ok=ok, severity="clear" if ok else "critical",
                                          expected=float(closest.F), found=(lo, hi), message=msg))
@@ -438,7 +463,13 @@ def reconcile(claim: Claim, *, anova, n_obs: int, n_cells: int, alpha: float = 0
             checks.append(ReconcileCheck(item="p", ok=ok, severity="clear" if ok else "critical",
                                          expected=(plo, phi), found=found, message=msg))
         elif available:
-            agree = tuple(t for t, r in available.items() if _p_consistent(claim, r.p, r.p, alpha))
+            def p_span(t, r):
+                if t in ranges:
+                    a, b = ranges[t]
+                    return (0.0 if b is None else _p_sf(b, eff_df, err_df)), _p_sf(a, eff_df, err_df)
+                return r.p, r.p
+
+            agree = tuple(t for t, r in available.items() if _p_consistent(claim, *p_span(t, r), alpha))
             ok = bool(agree)
             ps = ", ".join(f"Type {t} p = {_pfmt(r.p)}" for t, r in available.items())
             msg = (f"The reported p ({_reported_p_text(claim)}) "
