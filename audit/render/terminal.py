@@ -76,11 +76,16 @@ def render_terminal(report) -> str:
     if report.checks:
         checks.append("")
         checks.append("Checks (grade: clear, minor, concern, critical):")
+        graded = [c for c in report.checks if c.grade != "not-run"]
+        not_run = [c for c in report.checks if c.grade == "not-run"]
         nw = max(len(c.name) for c in report.checks)
         gw = max(len(c.grade_word) for c in report.checks)
-        for c in report.checks:
+        for c in graded:
             lead = f"{_IND}{sanitize(c.name).ljust(nw)}  {c.grade_word.ljust(gw)}  "
             checks.append(lead + _clip(sanitize(c.headline), WIDTH - 1 - len(lead)))
+        if not_run:  # one line: what could not be checked on this input (never shown like a grade)
+            checks += _wrap("Not run here: " + ", ".join(sanitize(c.name) for c in not_run)
+                            + " (they need the raw observations or an order/unit column)", _IND, _IND + "  ")
     tail = [""]
     if report.design_line:
         tail += _wrap(report.design_line, "Levels in the order used: ", _IND)
@@ -100,7 +105,7 @@ def render_terminal(report) -> str:
                 wrapped[1] = _clip(wrapped[1] + " \u2026", WIDTH - 1)
         left = len(items) - i
         room = budget - len(reasons) - (1 if left else 0)
-        if len(wrapped) > room:
+        if len(wrapped) > room and i > 1:  # the most important reason is always shown
             reasons += _wrap(f"... and {len(items) - i + 1} more reason(s) in the full report", _IND, _IND)
             break
         reasons += wrapped

@@ -174,6 +174,8 @@ def _method_rows(f: Findings, effect: str = "AB") -> tuple[MethodRow, ...]:
         elif t.trusted:
             short = "yes (conserv.)" if t.conservative else "yes"
             reason = t.reason
+        elif t.rule == "no-p" and f.mode == "summary" and any("raw" in n for n in m.notes):
+            short, reason = "not run", t.reason   # needs the raw observations: not a finding about the method
         else:
             short = "no: " + _TRUST_SHORT.get(t.rule or "", "see why")
             reason = t.reason
