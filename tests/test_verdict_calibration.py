@@ -271,3 +271,20 @@ def test_to_dict_is_json_safe():
     d = size_check(fit, replications=200, seed=1).to_dict()
     s = json.dumps(d, allow_nan=False)
     assert '"rows"' in s and d["rule"]["liberal_multiple"] == 1.5
+
+
+def test_two_per_cell_designs_do_not_crash_the_size_check():
+    # regression: with n = 2 the pooled standardised residuals are all +-1, so simulated cells often
+    # have zero variance and singular Welch-James / HC matrices; those datasets are left out (common practice)
+    import numpy as np
+    import pandas as pd
+
+    import audit
+
+    rng = np.random.default_rng(1)
+    rows = [(f"r{j}", f"c{k}", 5 + 0.01 * j + k + rng.normal()) for j in range(40) for k in range(2) for _ in range(2)]
+    f = audit.check(pd.DataFrame(rows, columns=["a", "b", "y"]), response="y", factors=("a", "b"), resamples=0,
+                    seed=1, diagnostics=False)
+    assert f.verdict is not None
+    statuses = {r.method: r.status for r in f.calibration.rows if r.effect == "AB"}
+    assert set(statuses) >= {"classical-f", "welch-james"}
