@@ -282,7 +282,6 @@ def boxcox_p_curve(fit: Fit, lo: float, hi: float, points: int = 81) -> dict | N
         return None
     cells = fit.cells
     JK = cells.J * cells.K
-    X = additive_design(cells.J, cells.K)
     ly = np.log(y)
     ly = ly - ly.mean()  # scaling by the geometric mean leaves F unchanged and keeps the values moderate
     lams = np.linspace(lo, hi, points)
@@ -290,7 +289,7 @@ def boxcox_p_curve(fit: Fit, lo: float, hi: float, points: int = 81) -> dict | N
     ps = []
     for lam in lams:
         z = ly if abs(lam) < 1e-12 else np.expm1(lam * ly) / lam
-        ps.append(float(interaction_test(*cell_sums(z, fit.obs.cell, JK), X)[3]))
+        ps.append(float(interaction_test(*cell_sums(z, fit.obs.cell, JK), cells.J, cells.K)[3]))
     ps = np.array(ps)
     alpha = fit.alpha
     crossings = []
