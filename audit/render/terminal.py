@@ -58,7 +58,8 @@ def _method_table(report) -> list[str]:
 
 def render_terminal(report) -> str:
     """The summary printed by ``check`` (see the module docstring)."""
-    top = [*_wrap(report.title, "", _IND), *_wrap(report.source, "", _IND), ""]
+    source = report.source if len(report.source) < WIDTH or not report.source_short else report.source_short
+    top = [*_wrap(report.title, "", _IND), *_wrap(source, "", _IND), ""]
     v = report.verdict
     verdict: list[str] = []
     if v is not None:
@@ -105,7 +106,7 @@ def render_terminal(report) -> str:
                 wrapped[1] = _clip(wrapped[1] + " \u2026", WIDTH - 1)
         left = len(items) - i
         room = budget - len(reasons) - (1 if left else 0)
-        if len(wrapped) > room and i > 1:  # the most important reason is always shown
+        if len(wrapped) > room and i > 2:  # the first two reasons (the decisive one and the first caveat) always show
             reasons += _wrap(f"... and {len(items) - i + 1} more reason(s) in the full report", _IND, _IND)
             break
         reasons += wrapped

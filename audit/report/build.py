@@ -641,6 +641,7 @@ def build_report(f: Findings, *, figures: dict | None = None, report_dir: str | 
     title = f"twoway-audit {f.provenance.get('version', '')}".strip() + \
         f": {f.response} by {a} × {b} (alpha {_alpha(f)})"
     source = f"Data: {src} ({fmt.count(f.design.n)} observations used)"
+    source_short = f"Data: {os.path.basename(str(src))} ({fmt.count(f.design.n)} observations used)"
     head, reasons = _verdict(f)
     rows = _method_rows(f) if f.methods else ()
     notes = _method_notes(f) if f.methods else ()
@@ -704,7 +705,7 @@ def build_report(f: Findings, *, figures: dict | None = None, report_dir: str | 
         state = {True: "present", False: "absent", None: "undetermined"}[rec.present]
         claim_short = (f"Interaction by method (claim: {state}"
                        + (", the classical F's decision)" if rec.source != "stated" else ", as stated)") + ":")
-    return Report(design_line=design_line, claim_short=claim_short, notes_short=tuple(short), where=where, caution_short=caution,
+    return Report(design_line=design_line, claim_short=claim_short, source_short=source_short, notes_short=tuple(short), where=where, caution_short=caution,
                   title=title, source=source, verdict=head, reasons=reasons, claim=_claim_line(f), methods=rows,
                   method_notes=notes, checks=checks, sections=tuple(sections), figures=tuple(all_figs),
                   cautions=tuple(f.cautions))

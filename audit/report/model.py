@@ -220,7 +220,7 @@ class Report:
     ----------
     title : str
     source : str
-        The data line (file, rows used, checksum).
+        The data line (file, rows used); ``source_short`` names the file without its folder.
     verdict : VerdictHead or None
     reasons : tuple of ReasonItem
     claim : str
@@ -261,6 +261,7 @@ class Report:
     where: str = ""
     caution_short: str = ""
     claim_short: str = ""
+    source_short: str = ""
 
     def section(self, id: str) -> Section:
         for s in self.sections:
