@@ -73,6 +73,9 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--resamples", type=int, default=9999, metavar="B",
                    help="resamples for each permutation/bootstrap method (default 9999; 0 skips them; "
                         f"at most {MAX_RESAMPLES:,})")
+    c.add_argument("--exact-resamples", action="store_true",
+                   help="draw all B resamples for every resampling method (default: each stops as soon as "
+                        "its decision at alpha is settled, with resampling risk at most 0.001)")
     c.add_argument("--seed", type=int, metavar="N", default=None,
                    help="seed of the resampling methods, 0 <= N < 2**63 (default: a fresh one, printed in "
                         "the findings)")
@@ -169,7 +172,7 @@ def _run_check(args, written: list) -> int:
             resamples=args.resamples, seed=args.seed, diagnostics=not args.no_diagnostics,
             methods=not args.no_methods, figures=bool(args.report), progress=sys.stderr.isatty(),
             claim=args.claim or None, calibration=args.calibration, equivalence=args.equivalence,
-            timestamp=not args.no_timestamp,
+            timestamp=not args.no_timestamp, exact_resamples=args.exact_resamples,
         )
     text = render_text(findings)
     js = (findings.to_json() + "\n").encode("utf-8")
