@@ -71,7 +71,8 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--encoding", metavar="CODEC", help="text encoding, e.g. latin-1 (default: UTF-8 or UTF-16 with BOM)")
     c.add_argument("--decimal", metavar="MARK", help="decimal mark of the numbers: . (default) or ,")
     c.add_argument("--resamples", type=int, default=9999, metavar="B",
-                   help="resamples for each permutation/bootstrap method (default 9999; 0 skips them; "
+                   help="largest number of resamples for each permutation/bootstrap method, each stopping once its "
+                        "decision is settled (default 9999; 0 skips them; "
                         f"at most {MAX_RESAMPLES:,})")
     c.add_argument("--exact-resamples", action="store_true",
                    help="draw all B resamples for every resampling method (default: each stops as soon as "

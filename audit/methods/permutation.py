@@ -18,9 +18,12 @@ approximations, all run on the chunked engine of :mod:`.resampling`:
   asymptotically valid with unequal variances and unequal cell sizes, where
   the two residual permutations are not (they assume exchangeable errors).
 
-Every result carries B, p = (1 + count)/(B + 1), the Monte Carlo SE and a 99%
-Clopper-Pearson interval for p.  With the same seed every effect of a method
-sees the same permutations.
+Every result carries the resamples used n, p = (1 + count)/(n + 1), the Monte
+Carlo SE and a 99% Clopper-Pearson interval for p; by default each effect stops
+as soon as its decision at alpha is settled (:mod:`.resampling`, Gandy 2009),
+``exact_resamples`` draws all B.  With the same seed every effect of every
+permutation method sees the same permutations (:func:`permutation_all` draws
+them once for all three methods).
 
 References
 ----------

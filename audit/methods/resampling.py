@@ -37,7 +37,13 @@ r x m hypothesis matrix on the cell means, z_c = S_c / sqrt(n_c)):
   permutation) and the HC3 Wald F: cell means S/n, within-cell SS
   SQ - S^2/n, then the batch Wald form of :mod:`audit.methods.wald`.
 
-p-values: p = (1 + #{stat* >= stat_obs}) / (B + 1) (Phipson & Smyth 2010);
+Shared draws and sequential stopping (:func:`run_jobs`): one stream of resamples serves
+several statistics (the three permutation methods share one permutation draw, the wild
+bootstrap's effects one sign draw), and by default each effect stops at the first resample
+where Gandy's (2009) boundaries (:class:`SequentialBoundaries`) settle its decision at alpha,
+with resampling risk at most :data:`SEQUENTIAL_RISK` for every true p; B is the maximum.
+
+p-values: p = (1 + #{stat* >= stat_obs}) / (B + 1) (Phipson & Smyth 2010), B the resamples used;
 resampled statistics within a relative 1e-9 of the observed one count as ties
 (>=), so rounding never decides a tie (common practice).
 
@@ -45,6 +51,8 @@ References
 ----------
 .. [1] Phipson, B. & Smyth, G. K. (2010). Permutation p-values should never be
        zero. Statistical Applications in Genetics and Molecular Biology 9(1).
+.. [3] Gandy, A. (2009). Sequential implementation of Monte Carlo tests with uniformly
+       bounded resampling risk. Journal of the American Statistical Association 104, 1504-1511.
 .. [2] Clopper, C. J. & Pearson, E. S. (1934). The use of confidence or
        fiducial limits illustrated in the case of the binomial. Biometrika 26.
 """
