@@ -754,7 +754,8 @@ def run_jobs(
     thr = []
     for j in jobs:
         obs = np.atleast_1d(np.asarray(j.observed, dtype=float))
-        thr.append(np.where(np.isfinite(obs), obs - TIE_RTOL * np.abs(obs), obs))
+        with np.errstate(invalid="ignore"):      # inf - inf in the branch np.where discards
+            thr.append(np.where(np.isfinite(obs), obs - TIE_RTOL * np.abs(obs), obs))
     if scheme == "sign":
         nwords = (N + 63) // 64
         sq0 = [np.add.reduceat((j.u * j.u)[None, :], starts, axis=1) if j.squares else None for j in jobs]
