@@ -70,6 +70,7 @@ def check(
     engine: str | None = None,
     spark_master: str | None = None,
     sample_per_cell: int | None = None,
+    exact_resamples: bool = False,
 ) -> Findings:
     """Audit the two-way ANOVA of a long-format dataset.
 
@@ -105,7 +106,8 @@ def check(
         file whose response values all use decimal commas is read with ','
         and a note).
     resamples : int, default 9999
-        Resamples for each permutation / bootstrap method (0 skips them).
+        The largest number of resamples for each permutation / bootstrap method
+        (0 skips them); each stops earlier once its decision at alpha is settled.
     seed : int, optional
         Seed of the resampling methods; when None a fresh one is drawn and
         recorded in ``provenance['seed']`` so the run can be repeated.
@@ -144,6 +146,10 @@ def check(
         session's defaults.
     sample_per_cell : int, optional
         Rows per cell in the engine's seeded sample (default 2000).
+    exact_resamples : bool, default False
+        Draw all ``resamples`` for every resampling method instead of stopping each
+        as soon as its decision at alpha is settled (sequential rule, resampling
+        risk 1e-3; see :mod:`audit.methods.resampling`).
 
     Returns
     -------
@@ -157,6 +163,9 @@ def check(
     alpha = check_alpha(alpha)          # every option is checked before any data is read
     resamples = check_resamples(resamples)
     seed = check_seed(seed)
+    if not isinstance(exact_resamples, bool):
+        from .errors import OptionError
+        raise OptionError(f"exact_resamples: expected True or False, found {exact_resamples!r}")
     claim, calibration, equivalence = _verdict_options(claim, calibration, equivalence, factors)
     from .engines import choose_engine
 
@@ -179,7 +188,7 @@ def check(
     return _assemble(fit, design, mode="data", source=(obs.source.path, obs.source.sha256),
                      claim=claim, calibration=calibration, equivalence=equivalence, timestamp=timestamp,
                      resamples=resamples, seed=seed, diagnostics=diagnostics, methods=methods,
-                     figures=figures, progress=progress)
+                     figures=figures, progress=progress, exact_resamples=exact_resamples)
 
 
 def _check_engine(data, engine, *, spark_master, sample_per_cell, response, factors, levels, order, unit, alpha,
@@ -267,7 +276,8 @@ def _verdict_options(claim, calibration, equivalence, factors):
 
 
 def _assemble(fit, design, *, mode, source, resamples, seed, diagnostics, methods, figures, progress,
-              claim=None, calibration=None, equivalence=None, timestamp=True, extra_diagnostics=()) -> Findings:
+              claim=None, calibration=None, equivalence=None, timestamp=True, extra_diagnostics=(),
+              exact_resamples=False) -> Findings:
     """Run the later stages on a fit and collect everything into Findings."""
     from .methods import new_seed, run_methods
 
@@ -283,8 +293,10 @@ def _assemble(fit, design, *, mode, source, resamples, seed, diagnostics, method
     if seed is None and ((methods and resamples and fit.has_data) or (methods and calibration)):
         seed = new_seed()
     if methods:
-        meths = run_methods(fit, resamples=resamples, seed=seed, progress=progress)
+        meths = run_methods(fit, resamples=resamples, seed=seed, progress=progress,
+                            exact_resamples=bool(exact_resamples))
         prov["resamples"] = resamples
+        prov["exact_resamples"] = bool(exact_resamples)
     prov["seed"] = seed
     calib = None
     judgement = None

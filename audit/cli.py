@@ -72,8 +72,12 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--encoding", metavar="CODEC", help="text encoding, e.g. latin-1 (default: UTF-8 or UTF-16 with BOM)")
     c.add_argument("--decimal", metavar="MARK", help="decimal mark of the numbers: . (default) or ,")
     c.add_argument("--resamples", type=int, default=9999, metavar="B",
-                   help="resamples for each permutation/bootstrap method (default 9999; 0 skips them; "
+                   help="largest number of resamples for each permutation/bootstrap method, each stopping once its "
+                        "decision is settled (default 9999; 0 skips them; "
                         f"at most {MAX_RESAMPLES:,})")
+    c.add_argument("--exact-resamples", action="store_true",
+                   help="draw all B resamples for every resampling method (default: each stops as soon as "
+                        "its decision at alpha is settled, with resampling risk at most 0.001)")
     c.add_argument("--seed", type=int, metavar="N", default=None,
                    help="seed of the resampling methods, 0 <= N < 2**63 (default: a fresh one, printed in "
                         "the findings)")
@@ -326,7 +330,7 @@ def _run_check(args, written: list, compute=None) -> int:
             methods=not args.no_methods, figures=bool(args.report), progress=sys.stderr.isatty(),
             claim=args.claim or None, calibration=args.calibration, equivalence=args.equivalence,
             timestamp=not args.no_timestamp, engine=args.engine, spark_master=args.spark_master,
-            sample_per_cell=args.sample_per_cell,
+            sample_per_cell=args.sample_per_cell, exact_resamples=args.exact_resamples,
         )
     js = (findings.to_json() + "\n").encode("utf-8")
     model = None

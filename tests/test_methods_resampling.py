@@ -195,7 +195,7 @@ def test_p_never_zero_and_interval():
     df = _normal_balanced(3, inter=25.0)          # an overwhelming interaction
     fit = _fit(df)
     for fn in (freedman_lane, ter_braak, studentized_permutation, wild_bootstrap):
-        r = fn(fit, resamples=199, seed=1)
+        r = fn(fit, resamples=199, seed=1, exact_resamples=True)
         assert r.p == 1 / 200 and r.extra["count"] == 0       # Phipson & Smyth (2010): never 0
         lo, hi = r.p_interval
         ci = stats.binomtest(0, 199).proportion_ci(confidence_level=0.99, method="exact")
@@ -211,7 +211,7 @@ def test_clopper_pearson_matches_scipy(k, n):
 
 def test_mc_se_and_unsettled_note():
     fit = _fit(_moore())
-    r = freedman_lane(fit, resamples=B_FAST, seed=3)
+    r = freedman_lane(fit, resamples=B_FAST, seed=3, exact_resamples=True)
     assert_allclose(r.mc_se, np.sqrt(r.p * (1 - r.p) / B_FAST), rtol=1e-12)
     assert r.p == (1 + r.extra["count"]) / (B_FAST + 1)
     few = freedman_lane(fit, resamples=9, seed=3)
@@ -288,8 +288,8 @@ def test_freedman_lane_invariant_to_additive_shifts():
 
 def test_studentized_all_shares_one_pass():
     fit = _fit(_moore())
-    all3 = studentized_permutation_all(fit, resamples=B_FAST, seed=4)
-    one = studentized_permutation(fit, effect="AB", resamples=B_FAST, seed=4)
+    all3 = studentized_permutation_all(fit, resamples=B_FAST, seed=4, exact_resamples=True)
+    one = studentized_permutation(fit, effect="AB", resamples=B_FAST, seed=4, exact_resamples=True)
     assert all3[2].p == one.p
     assert [r.effect for r in all3] == ["A", "B", "AB"]
     for r in all3:

@@ -49,24 +49,31 @@ def new_seed() -> int:
     return secrets.randbelow(2**31)
 
 
-def run_methods(fit: Fit, *, resamples: int = 9999, seed: int | None = None, progress=None) -> tuple[MethodResult, ...]:
+def run_methods(fit: Fit, *, resamples: int = 9999, seed: int | None = None, progress=None,
+                exact_resamples: bool = False) -> tuple[MethodResult, ...]:
     """Run every method on ``fit`` (interaction and main effects).
 
     Parameters
     ----------
     fit : Fit
     resamples : int, default 9999
-        B for each resampling method; 0 skips the resampling methods.
+        B, the largest number of resamples for each resampling method; 0 skips them.
     seed : int, optional
         Seed for the resampling methods (same seed, same numbers).  Each
-        resampling method uses this seed.
+        resampling method uses this seed; the three permutation methods share
+        one permutation draw (:func:`~audit.methods.permutation.permutation_all`,
+        the same numbers as separate runs with this seed).
+    exact_resamples : bool, default False
+        False: sequential stopping - each resampling method stops as soon as the
+        decision of each effect at alpha is settled (Gandy 2009, resampling risk
+        :data:`~audit.methods.resampling.SEQUENTIAL_RISK`); True: all B.
     progress : bool or callable, optional
         Passed to the resampling engine (a terminal bar when True).
     """
     from .bootstrap import wild_bootstrap_all
     from .classical import additive_f_all, classical_f_all
     from .hc import hc_wald_all
-    from .permutation import freedman_lane_all, studentized_permutation_all, ter_braak_all
+    from .permutation import permutation_all
     from .ranks import aligned_rank_transform_all, rank_transform_all
     from .tukey import tukey_one_df
     from .welch import welch_james_all, welch_james_trimmed_all
@@ -83,8 +90,11 @@ def run_methods(fit: Fit, *, resamples: int = 9999, seed: int | None = None, pro
     out += aligned_rank_transform_all(fit)
     if resamples > 0:
         seed = new_seed() if seed is None else seed
-        for run in (freedman_lane_all, ter_braak_all, studentized_permutation_all, wild_bootstrap_all):
-            out += run(fit, resamples=resamples, seed=seed, progress=progress)
+        for res in permutation_all(fit, resamples=resamples, seed=seed, progress=progress,
+                                   exact_resamples=exact_resamples):
+            out += res
+        out += wild_bootstrap_all(fit, resamples=resamples, seed=seed, progress=progress,
+                                  exact_resamples=exact_resamples)
     if fit.anova.df_error == 0:
         out.append(tukey_one_df(fit, effect="AB"))
         out += additive_f_all(fit)

@@ -34,13 +34,11 @@ import numpy as np
 
 from ..fit import Fit
 from ..results import MethodResult
-from .permutation import _cell_sums, _chunk, _merge, _prepare, _results
+from .permutation import Plan, _cell_sums, _merge, _prepare, _results, run_plans
 from .resampling import (
-    progress_fn,
-    resample_statistics,
+    Job,
     restricted_cell_fit,
     restricted_leverage,
-    seed_value,
     wald_statistic_maker,
 )
 from .welch import EFFECTS, WILD_SMALL_CELL_NOTE, small_cell_note
@@ -48,60 +46,71 @@ from .welch import EFFECTS, WILD_SMALL_CELL_NOTE, small_cell_note
 __all__ = ["wild_bootstrap", "wild_bootstrap_all"]
 
 
-def _wild(fit, effects, resamples, seed, progress, budget=None):
+def plan_wild(fit, effects, resamples) -> Plan:
     mid, name = "wild-bootstrap", "F"
     early, st = _prepare(fit, effects, resamples, mid, name,
                          need_two="the HC3 statistic (a cell with n = 1 has leverage 1/n = 1, weight 0/0)")
     if early is not None:
-        return early
+        return Plan(early=early, jobs=[], finish=None, layout=None, scheme="sign")
     B, Cs, ok, skipped, layout, y_sorted, means = st
     cs = layout.cell_sorted
     n = layout.counts
-    kw = {} if budget is None else {"budget": budget}
     # observed HC3 statistic of the data (all effects at once)
     y_c = y_sorted - float(np.mean(y_sorted))
     scale = float(y_c @ y_c) / layout.N
     obs_all = wald_statistic_maker(layout, Cs, kind="hc3", scale=scale)(*_cell_sums(y_c, layout, squares=True))[0]
-    prog = progress_fn(progress, mid, B * len(ok))
-    done = []
-    for i, (e, C) in enumerate(zip(ok, Cs)):
-        rng, seed_rec = seed_value(seed)                       # same signs for every effect
+    jobs, lev = [], []
+    for i, C in enumerate(Cs):
         mu_r = restricted_cell_fit(means, n, C)
         h = restricted_leverage(n, C)
         u = (y_sorted - mu_r[cs]) / np.sqrt(1.0 - h)[cs]
         fn = wald_statistic_maker(layout, [C], kind="hc3", scale=scale)
-        sub = None if prog is None else (lambda d, t, i=i: prog(i * B + d, B * len(ok)))
-        counts = resample_statistics(u, layout, fn, scheme="sign", resamples=B, rng=rng, squares=True,
-                                     progress=sub, observed=obs_all[i:i + 1], **kw)
-        extra = {"scheme": "Rademacher signs on restricted residuals e / sqrt(1 - h)", "hc": "HC3",
-                 "df_error": int(layout.N - layout.m), "max_leverage": float(h.max()),
-                 "robust_to_unequal_variances": True}
-        notes = [f"wild bootstrap: restricted fit ({'the additive model A + B' if e == 'AB' else 'the full model without ' + e}), "
-                 "residuals scaled by 1 / sqrt(1 - h) (its leverage) and multiplied by Rademacher signs; "
-                 "statistic: the HC3 Wald F in the cell-means model (V_jk = css_jk / (n_jk - 1)^2)",
-                 "valid under unequal variances of unknown form (Davidson & Flachaire 2008)"]
-        if small_cell_note(fit.cells, template=WILD_SMALL_CELL_NOTE):
-            notes.append(small_cell_note(fit.cells, template=WILD_SMALL_CELL_NOTE))
-        done += _results(mid, name, [e], [C], obs_all[i:i + 1], counts, B, seed_rec,
-                         _chunk(layout, B, kw, [fn], squares=True), fit.alpha, extra, notes, [C.shape[0]])
-    return _merge(effects, done, skipped)
+        jobs.append(Job(u=u, statistic=fn, observed=obs_all[i:i + 1], squares=True))
+        lev.append(float(h.max()))
+
+    def finish(tallies, seed_rec):
+        done = []
+        for i, (e, C, tally) in enumerate(zip(ok, Cs, tallies)):
+            extra = {"scheme": "Rademacher signs on restricted residuals e / sqrt(1 - h)", "hc": "HC3",
+                     "df_error": int(layout.N - layout.m), "max_leverage": lev[i],
+                     "robust_to_unequal_variances": True}
+            notes = [f"wild bootstrap: restricted fit ({'the additive model A + B' if e == 'AB' else 'the full model without ' + e}), "
+                     "residuals scaled by 1 / sqrt(1 - h) (its leverage) and multiplied by Rademacher signs; "
+                     "statistic: the HC3 Wald F in the cell-means model (V_jk = css_jk / (n_jk - 1)^2)",
+                     "valid under unequal variances of unknown form (Davidson & Flachaire 2008)"]
+            if small_cell_note(fit.cells, template=WILD_SMALL_CELL_NOTE):
+                notes.append(small_cell_note(fit.cells, template=WILD_SMALL_CELL_NOTE))
+            done += _results(mid, name, [e], [C], obs_all[i:i + 1], tally, B, seed_rec, fit.alpha, extra, notes,
+                             [C.shape[0]])
+        return _merge(effects, done, skipped)
+
+    return Plan(early=None, jobs=jobs, finish=finish, layout=layout, scheme="sign")
+
+
+def _wild(fit, effects, resamples, seed, progress, budget=None, exact=False):
+    """Every effect from ONE stream of sign rows (the same signs for each effect, as when
+    each effect re-seeded the generator: the numbers are the same)."""
+    return run_plans([plan_wild(fit, effects, resamples)], fit, resamples, seed, progress, label="wild-bootstrap",
+                     exact=exact, budget=budget)[0]
 
 
 def wild_bootstrap(fit: Fit, *, effect: str = "AB", resamples: int = 9999, seed: int | None = None,
-                   progress=None) -> MethodResult:
+                   progress=None, exact_resamples: bool = False) -> MethodResult:
     """Wild bootstrap (Rademacher, restricted residuals, HC3 Wald F) of one effect.
 
     Needs the raw observations, n >= 2 and nonzero variance in every filled
     cell.  statistic: the HC3 Wald F of the data (equals statsmodels
     anova_lm(robust="hc3") with sum-to-zero coding); df1: r; p resampled.
     ``extra``: seed, count, chunk_size, settled, p_interval_level, tie_rtol,
-    scheme, hc, df_error, max_leverage, robust_to_unequal_variances.
+    scheme, hc, df_error, max_leverage, robust_to_unequal_variances, max_resamples,
+    stopped_early, stopping_rule.  ``exact_resamples``: as
+    :func:`audit.methods.permutation.freedman_lane` (False: sequential stopping).
     """
-    return _wild(fit, (effect,), resamples, seed, progress)[0]
+    return _wild(fit, (effect,), resamples, seed, progress, exact=exact_resamples)[0]
 
 
 def wild_bootstrap_all(fit: Fit, *, resamples: int = 9999, seed: int | None = None, progress=None,
-                       effects=EFFECTS) -> tuple[MethodResult, ...]:
-    """Wild bootstrap results for ``effects`` (default A, B, AB), same signs for each."""
-    return _wild(fit, tuple(effects), resamples, seed, progress)
+                       effects=EFFECTS, exact_resamples: bool = False) -> tuple[MethodResult, ...]:
+    """Wild bootstrap results for ``effects`` (default A, B, AB), one sign draw shared by all."""
+    return _wild(fit, tuple(effects), resamples, seed, progress, exact=exact_resamples)
 

@@ -37,7 +37,13 @@ r x m hypothesis matrix on the cell means, z_c = S_c / sqrt(n_c)):
   permutation) and the HC3 Wald F: cell means S/n, within-cell SS
   SQ - S^2/n, then the batch Wald form of :mod:`audit.methods.wald`.
 
-p-values: p = (1 + #{stat* >= stat_obs}) / (B + 1) (Phipson & Smyth 2010);
+Shared draws and sequential stopping (:func:`run_jobs`): one stream of resamples serves
+several statistics (the three permutation methods share one permutation draw, the wild
+bootstrap's effects one sign draw), and by default each effect stops at the first resample
+where Gandy's (2009) boundaries (:class:`SequentialBoundaries`) settle its decision at alpha,
+with resampling risk at most :data:`SEQUENTIAL_RISK` for every true p; B is the maximum.
+
+p-values: p = (1 + #{stat* >= stat_obs}) / (B + 1) (Phipson & Smyth 2010), B the resamples used;
 resampled statistics within a relative 1e-9 of the observed one count as ties
 (>=), so rounding never decides a tie (common practice).
 
@@ -45,6 +51,8 @@ References
 ----------
 .. [1] Phipson, B. & Smyth, G. K. (2010). Permutation p-values should never be
        zero. Statistical Applications in Genetics and Molecular Biology 9(1).
+.. [3] Gandy, A. (2009). Sequential implementation of Monte Carlo tests with uniformly
+       bounded resampling risk. Journal of the American Statistical Association 104, 1504-1511.
 .. [2] Clopper, C. J. & Pearson, E. S. (1934). The use of confidence or
        fiducial limits illustrated in the case of the binomial. Biometrika 26.
 """
@@ -55,7 +63,7 @@ from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
-from scipy import stats
+from scipy import special
 
 from ..core import additive_design, type3_contrasts
 from ..decision import settled
@@ -85,6 +93,14 @@ __all__ = [
     "clopper_pearson",
     "check_resamples",
     "chunk_size",
+    "SEQUENTIAL_RISK",
+    "SPENDING_K",
+    "STOPPING_RULE",
+    "Job",
+    "Tally",
+    "SequentialBoundaries",
+    "boundaries",
+    "run_jobs",
 ]
 
 #: memory budget (bytes) for one chunk of resamples: the (b, N) draws, the (b, m)
@@ -97,6 +113,16 @@ CHUNK_BYTES = MEMORY_BUDGET
 P_INTERVAL_LEVEL = 0.99
 #: resampled statistics within this relative distance of the observed one count as ties
 TIE_RTOL = 1e-9
+#: resampling risk of the sequential stopping rule: for every true p, the probability that an
+#: early-stopped decision at alpha differs from the decision of infinitely many resamples
+SEQUENTIAL_RISK = 1e-3
+#: k of the spending sequence eps_n = eps n / (n + k) (the choice suggested by Gandy 2009)
+SPENDING_K = 1000
+#: name of the stopping rule recorded in ``extra['stopping_rule']``
+STOPPING_RULE = (f"sequential Monte Carlo test (Gandy 2009), resampling risk {SEQUENTIAL_RISK:g}, "
+                 f"spending eps n/(n + {SPENDING_K})")
+#: first chunk of a sequential run; later chunks double up to the memory budget's size
+FIRST_CHUNK = 128
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -555,11 +581,252 @@ def permute_shared(
     return outs
 
 
+# --------------------------------------------------------------------------- sequential stopping
+
+class SequentialBoundaries:
+    """Stopping boundaries of Gandy's (2009) sequential Monte Carlo test at level ``alpha``.
+
+    With S_n the number of exceedances among the first n resamples, the test stops at the
+    first n with S_n >= U_n (decision: p > alpha, not significant) or S_n <= L_n (decision:
+    p <= alpha, significant).  The boundaries are built recursively under p = alpha from a
+    spending sequence eps_n = eps n / (n + k), increasing to eps:
+
+        U_n = min{j: P(tau >= n, S_n >= j) + P(tau < n, S_tau >= U_tau) <= eps_n},
+        L_n = max{j: P(tau >= n, S_n <= j) + P(tau < n, S_tau <= L_tau) <= eps_n},
+
+    tracking the distribution of S_n on the continuation region L_n < S_n < U_n exactly
+    (a binomial step per n).  So P_alpha(hit U) <= eps and P_alpha(hit L) <= eps; as
+    P_p(hit U) grows and P_p(hit L) falls with p, for every true p the probability of a
+    stop on the wrong side of alpha is at most eps (Gandy 2009, theorem 1): the resampling
+    risk is uniformly bounded by eps.  The arrays grow on demand (:meth:`extend`), so a run
+    that stops after 300 resamples computes 300 steps.
+
+    References: Gandy, A. (2009). Sequential implementation of Monte Carlo tests with
+    uniformly bounded resampling risk. JASA 104, 1504-1511.
+    """
+
+    def __init__(self, alpha: float, risk: float = SEQUENTIAL_RISK, k: int = SPENDING_K):
+        self.alpha, self.risk, self.k = float(alpha), float(risk), int(k)
+        self.upper = np.array([1], dtype=np.int64)      # U_0 = 1 > S_0: no stop at n = 0
+        self.lower = np.array([-1], dtype=np.int64)
+        self._dist = np.ones(1)                          # P(tau > n, S_n = lo + i), n = self.n
+        self._lo = 0
+        self._spent = [0.0, 0.0]                         # P(stopped at U), P(stopped at L) so far
+
+    @property
+    def n(self) -> int:
+        return self.upper.size - 1
+
+    def extend(self, n_max: int) -> None:
+        """Compute the boundaries up to n = ``n_max``."""
+        n0 = self.n
+        if n_max <= n0:
+            return
+        a, eps, k = self.alpha, self.risk, self.k
+        U = np.empty(n_max + 1, dtype=np.int64)
+        L = np.empty(n_max + 1, dtype=np.int64)
+        U[:n0 + 1], L[:n0 + 1] = self.upper, self.lower
+        dist, lo = self._dist, self._lo
+        su, sl = self._spent
+        step = np.array([1.0 - a, a])
+        for n in range(n0 + 1, n_max + 1):
+            new = np.convolve(dist, step)                # S_n on the continuation region of n - 1
+            head = np.cumsum(new)                        # head[i] = P(S_n <= lo + i, not stopped)
+            total = head[-1]
+            e_n = eps * n / (n + k)
+            # U_n: first i with su + P(S_n >= lo + i) <= e_n, i.e. head[i - 1] >= su + total - e_n
+            iu = int(np.searchsorted(head, su + total - e_n, side="left")) + 1
+            if su + total - e_n <= 0.0:
+                iu = 0
+            # L_n: last i with sl + head[i] <= e_n
+            il = int(np.searchsorted(head, e_n - sl, side="right")) - 1
+            if iu < new.size:
+                su += float(total - (head[iu - 1] if iu > 0 else 0.0))
+            if il >= 0:
+                sl += float(head[il])
+            U[n], L[n] = lo + iu, lo + il
+            dist = new[il + 1:iu]
+            lo += il + 1
+        self.upper, self.lower, self._dist, self._lo, self._spent = U, L, dist, lo, [su, sl]
+
+    def first_stop(self, n: np.ndarray, S: np.ndarray) -> tuple[int, bool | None]:
+        """First position i where (n[i], S[i]) lies on a boundary, and the decision there
+        (True: significant); (-1, None) when none does.  A stop is taken only where the
+        reported p = (1 + S) / (n + 1) gives the same decision (always, for risks well
+        below 1/2; the check keeps the reported p and the stop consistent)."""
+        self.extend(int(n[-1]))
+        p = (1.0 + S) / (n + 1.0)
+        up = (S >= self.upper[n]) & (p >= self.alpha)
+        low = (S <= self.lower[n]) & (p < self.alpha)
+        hit = up | low
+        if not hit.any():
+            return -1, None
+        i = int(np.argmax(hit))
+        return i, bool(low[i])
+
+
+_BOUNDARIES: dict[tuple[float, float, int], SequentialBoundaries] = {}
+
+
+def boundaries(alpha: float, risk: float = SEQUENTIAL_RISK, k: int = SPENDING_K) -> SequentialBoundaries:
+    """The (cached, shared) :class:`SequentialBoundaries` for ``alpha`` and ``risk``."""
+    key = (float(alpha), float(risk), int(k))
+    if key not in _BOUNDARIES:
+        _BOUNDARIES[key] = SequentialBoundaries(*key)
+    return _BOUNDARIES[key]
+
+
+@dataclass(frozen=True, kw_only=True)
+class Job:
+    """One statistic to evaluate on every resample of one vector.
+
+    u : ndarray (N,), the vector to resample (cell-sorted); statistic : (S, SQ) -> (b, e);
+    observed : ndarray (e,), the observed statistics; squares : the statistic needs the
+    per-cell sums of squares SQ too.
+    """
+
+    u: np.ndarray
+    statistic: StatFn
+    observed: np.ndarray
+    squares: bool = False
+
+
+@dataclass(frozen=True, kw_only=True)
+class Tally:
+    """What a run keeps per effect of one job: exceedances ``counts`` among the ``used``
+    first resamples, whether the sequential rule ``stopped`` it early, and the largest
+    ``chunk`` drawn at once."""
+
+    counts: np.ndarray
+    used: np.ndarray
+    stopped: np.ndarray
+    chunk: int
+    exact: bool = False
+
+
+def run_jobs(
+    jobs: list[Job],
+    layout: Layout,
+    *,
+    scheme: str,
+    resamples: int,
+    rng: np.random.Generator,
+    alpha: float | None = None,
+    exact: bool = False,
+    risk: float = SEQUENTIAL_RISK,
+    budget: int = MEMORY_BUDGET,
+    progress: Callable[[int, int], None] | None = None,
+) -> list[Tally]:
+    """Run several statistics on ONE stream of resamples, with sequential stopping.
+
+    Every job sees the same resamples: scheme 'permute' draws one permutation of the row
+    indices per resample (``rng.permuted`` on a (b, N) block of ``arange(N)``, row by row,
+    so the same seed gives the same permutations whatever the chunk size) and gathers each
+    job's vector through it; scheme 'sign' draws one row of Rademacher signs per resample
+    (bits of the generator's raw 64-bit output) and multiplies each job's vector by it.
+    Sums of squares are invariant under sign flips, so the 'sign' scheme never recomputes them.
+
+    Sequential (default, ``exact`` False and ``alpha`` given): after each chunk every effect
+    still running is checked against :class:`SequentialBoundaries` at the first resample
+    where it crosses; it is then frozen at that resample (its count and ``used`` are those of
+    the first ``used`` resamples of the stream, i.e. exactly what a run with
+    ``resamples=used`` would give).  A job stops drawing when all its effects are frozen, the
+    run when every job has stopped or B is reached.  Chunks start at
+    :data:`FIRST_CHUNK` resamples and double up to the memory budget's size, so at most
+    about as many resamples are drawn past the stop as before it.
+
+    ``exact`` (or ``alpha`` None): all B resamples for every effect.
+    """
+    B = int(resamples)
+    N = layout.N
+    starts = layout.starts
+    if scheme not in ("permute", "sign"):
+        raise ValueError(f"scheme: expected 'permute' or 'sign', found {scheme!r}")
+    sequential = not exact and alpha is not None
+    rule = boundaries(alpha, risk) if sequential else None
+    squares = scheme == "permute" and any(j.squares for j in jobs)
+    b_max = chunk_size(N, B, squares=squares, budget=budget, m=layout.m,
+                       stat_bytes=max((_stat_bytes(j.statistic) for j in jobs), default=0),
+                       vectors=2 if scheme == "permute" else 1)
+    counts = [np.zeros(np.size(j.observed), dtype=np.int64) for j in jobs]
+    used = [np.zeros(np.size(j.observed), dtype=np.int64) for j in jobs]
+    stopped = [np.zeros(np.size(j.observed), dtype=bool) for j in jobs]
+    thr = []
+    for j in jobs:
+        obs = np.atleast_1d(np.asarray(j.observed, dtype=float))
+        with np.errstate(invalid="ignore"):      # inf - inf in the branch np.where discards
+            thr.append(np.where(np.isfinite(obs), obs - TIE_RTOL * np.abs(obs), obs))
+    if scheme == "sign":
+        nwords = (N + 63) // 64
+        sq0 = [np.add.reduceat((j.u * j.u)[None, :], starts, axis=1) if j.squares else None for j in jobs]
+    else:
+        base = np.arange(N, dtype=np.intp)
+    b = min(b_max, FIRST_CHUNK) if sequential else b_max
+    idx = W = None
+    done = 0
+    largest = 0
+    while done < B:
+        live = [k for k in range(len(jobs)) if not stopped[k].all()]
+        if not live:
+            break
+        bb = min(b, B - done)
+        largest = max(largest, bb)
+        if W is None or W.shape[0] < bb:
+            W = np.empty((bb, N))
+            idx = np.empty((bb, N), dtype=np.intp) if scheme == "permute" else None
+        Wb = W[:bb]
+        if scheme == "permute":
+            I = idx[:bb]
+            I[...] = base
+            rng.permuted(I, axis=1, out=I)
+        else:
+            raw = rng.bit_generator.random_raw((bb, nwords))
+            neg = np.unpackbits(raw.view(np.uint8), axis=1, count=N, bitorder="little").view(bool)
+            del raw
+        for k in live:
+            job = jobs[k]
+            if scheme == "permute":
+                np.take(job.u, I, out=Wb)
+                S = np.add.reduceat(Wb, starts, axis=1)
+                SQ = None
+                if job.squares:
+                    np.square(Wb, out=Wb)
+                    SQ = np.add.reduceat(Wb, starts, axis=1)
+            else:
+                np.copyto(Wb, job.u)
+                np.negative(Wb, out=Wb, where=neg)
+                S = np.add.reduceat(Wb, starts, axis=1)
+                SQ = None if sq0[k] is None else np.broadcast_to(sq0[k], S.shape)
+            E = np.asarray(job.statistic(S, SQ)).reshape(bb, -1) >= thr[k][None, :]
+            if not sequential:
+                counts[k] += np.count_nonzero(E, axis=0)
+                used[k] += bb
+                continue
+            for e in np.flatnonzero(~stopped[k]):
+                cs = counts[k][e] + np.cumsum(E[:, e], dtype=np.int64)
+                ns = used[k][e] + np.arange(1, bb + 1, dtype=np.int64)
+                i, _ = rule.first_stop(ns, cs)
+                if i >= 0:
+                    counts[k][e], used[k][e], stopped[k][e] = cs[i], ns[i], True
+                else:
+                    counts[k][e], used[k][e] = cs[-1], ns[-1]
+        done += bb
+        b = min(2 * b, b_max)
+        if progress is not None:
+            progress(done, B)
+    if progress is not None and done < B:
+        progress(B, B)
+    return [Tally(counts=counts[k], used=used[k], stopped=stopped[k], chunk=largest, exact=not sequential)
+            for k in range(len(jobs))]
+
+
 def clopper_pearson(k: int, n: int, level: float = P_INTERVAL_LEVEL) -> tuple[float, float]:
     """Exact (Clopper-Pearson) interval for a binomial proportion k / n."""
     a = 1.0 - level
-    lo = 0.0 if k == 0 else float(stats.beta.ppf(a / 2, k, n - k + 1))
-    hi = 1.0 if k == n else float(stats.beta.ppf(1 - a / 2, k + 1, n - k))
+    # the beta quantiles of the exact interval, by scipy.special.betaincinv (stats.beta.ppf's
+    # own routine, without its argument handling: this runs once per effect and method)
+    lo = 0.0 if k == 0 else float(special.betaincinv(k, n - k + 1, a / 2))
+    hi = 1.0 if k == n else float(special.betaincinv(k + 1, n - k, 1 - a / 2))
     return lo, hi
 
 
@@ -619,10 +886,25 @@ def progress_fn(progress, label: str, total: int):
     raise OptionError(f"progress: expected True, False, None or a callable(done, total), found {progress!r}")
 
 
-def p_notes(pinfo: dict, B: int, alpha: float) -> list[str]:
+def stopping_rule_text(tally=None) -> str:
+    """``extra['stopping_rule']``: the sequential rule, or 'none' for a run of all B."""
+    if tally is not None and getattr(tally, "exact", False):
+        return "none: all B resamples drawn (exact_resamples)"
+    return STOPPING_RULE
+
+
+def p_notes(pinfo: dict, B: int, alpha: float, *, max_resamples: int | None = None,
+            stopped_early: bool = False) -> list[str]:
+    """Notes on a resampled p from ``B`` resamples (of at most ``max_resamples``)."""
     lo, hi = pinfo["p_interval"]
     notes = [f"p = (1 + {pinfo['count']}) / ({B} + 1) from {B} resamples; Monte Carlo SE {pinfo['mc_se']:.2g}; "
              f"{P_INTERVAL_LEVEL:.0%} Clopper-Pearson interval for the p-value [{lo:.4g}, {hi:.4g}]"]
+    if stopped_early:
+        notes.append(f"stopped early after {B} of at most {max_resamples} resamples: the decision at alpha = "
+                     f"{alpha:g} is settled by the sequential rule (Gandy 2009; the probability that more "
+                     f"resamples would reverse it is at most {SEQUENTIAL_RISK:g}); the p-value itself is only as "
+                     "precise as its interval - use exact_resamples (--exact-resamples) for all B")
+        return notes
     if not pinfo["settled"]:
         notes.append(f"the {P_INTERVAL_LEVEL:.0%} interval for the p-value straddles alpha = {alpha:g}: the decision "
                      f"is not settled at B = {B}; draw more resamples")

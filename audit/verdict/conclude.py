@@ -222,6 +222,12 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
     tnames = tuple(m.id for m, _ in trusted)
 
     def out(verdict: str, agreeing=(), disagreeing=(), unsettled=()) -> EffectVerdict:
+        early = [f"{m.id} ({m.resamples} of {m.extra.get('max_resamples')})" for m, _t in trusted
+                 if m.extra.get("stopped_early") and m.id in (*agreeing, *disagreeing)]
+        if early:   # a decision from a sequential early stop is stated, never a caveat
+            reasons.append(Reason(text="decided by sequential stopping at alpha (probability at most 0.001 that "
+                                       "all resamples would reverse it): " + ", ".join(early),
+                                  ref=f"method:{early[0].split(' ')[0]}", weight="support"))
         return EffectVerdict(effect=effect, verdict=verdict, claim_present=claim_present,
                              claim_source=claim_source, trusted_methods=tnames, agreeing=tuple(agreeing),
                              disagreeing=tuple(disagreeing), unsettled=tuple(unsettled), reasons=tuple(reasons))
