@@ -52,7 +52,9 @@ def test_order_is_recorded_in_the_findings_and_printed():
     assert f.design.levels["wood"] == ("pine", "oak")
     d = json.loads(f.to_json())["design"]
     assert d["level_order"] == {"soak": "numeric", "wood": "first appearance"}
-    assert "Level order: soak numeric; wood first appearance" in render_text(f)
+    text = " ".join(render_text(f).split())
+    assert "soak: 3 levels, in this order (numeric): 4h, 12h, 16h" in text
+    assert "wood: 2 levels, in this order (first appearance): pine, oak" in text
 
 
 def test_given_order_overrides_and_is_recorded():

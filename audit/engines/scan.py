@@ -51,12 +51,15 @@ def _response_kind(backend, response: str) -> ResponseKind:
     if kind == "double":
         inf = "CAST('Infinity' AS DOUBLE)"
         yd = f"CAST({y} AS DOUBLE)"
-        rows = backend.query(f"SELECT {yd} FROM {src} WHERE {yd} IS NOT NULL AND NOT isnan({yd}) "
-                             f"AND abs({yd}) < {inf} LIMIT 1")
+        # MIN, not "LIMIT 1": a parallel scan returns an arbitrary first row, and the offset must
+        # not change between runs (the sample is reported relative to it)
+        rows = backend.query(f"SELECT MIN({yd}) FROM {src} WHERE {yd} IS NOT NULL AND NOT isnan({yd}) "
+                             f"AND abs({yd}) < {inf}")
+        rows = [r for r in rows if r[0] is not None]
         return ResponseKind("double", offset=float(rows[0][0]) if rows else 0.0)
     if kind[0] == "decimal":
-        rows = backend.query(f"SELECT CAST({y} AS {d.string_type}) FROM {src} WHERE {y} IS NOT NULL LIMIT 1")
-        text = rows[0][0] if rows else "0"
+        rows = backend.query(f"SELECT CAST(MIN({y}) AS {d.string_type}) FROM {src} WHERE {y} IS NOT NULL")
+        text = rows[0][0] if rows and rows[0][0] is not None else "0"
         return ResponseKind("decimal", scale=int(kind[1]), offset_text=text, offset=float(text))
     # text: decimal scale from the digits found, else parsed as double
     na = _na_clause(d, y)
@@ -67,7 +70,8 @@ def _response_kind(backend, response: str) -> ResponseKind:
         f"SUM(CASE WHEN lower({t}) LIKE '%e%' THEN 1 ELSE 0 END) FROM {src} WHERE NOT {na}")
     dec, intd, expo = rows[0] if rows else (0, 0, 0)
     dec, intd, expo = int(dec or 0), int(intd or 0), int(expo or 0)
-    first = backend.query(f"SELECT {t} FROM {src} WHERE NOT {na} AND try_cast({t} AS DOUBLE) IS NOT NULL LIMIT 1")
+    first = backend.query(f"SELECT MIN({t}) FROM {src} WHERE NOT {na} AND try_cast({t} AS DOUBLE) IS NOT NULL")
+    first = [r for r in first if r[0] is not None]
     if not first:
         raise ResponseError(f"response {response!r}: no numeric values found; expected numbers in the column")
     text = str(first[0][0])

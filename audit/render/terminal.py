@@ -89,14 +89,15 @@ def render_terminal(report) -> str:
                             + " (they need the raw observations or an order/unit column)", _IND, _IND + "  ")
     tail = [""]
     if report.design_line:
-        tail += _wrap(report.design_line, "Levels in the order used: ", _IND)
+        tail += _wrap(report.design_line, "Level order: ", _IND)
     tail += [*_wrap(report.where, "", _IND), *_wrap(report.caution_short, "", _IND)]
     effects = [ln for e in (v.effects if v is not None else ()) for ln in _wrap(e, _IND, _IND + "  ")][:2]
 
     # the reasons get the lines that are left (each at most two lines; the rest are counted)
     budget = MAX_LINES - len(top) - len(verdict) - len(methods) - len(checks) - len(tail) - len(effects)
     reasons: list[str] = []
-    items = report.reasons
+    order = {"decisive": 0, "caveat": 1}
+    items = sorted(report.reasons, key=lambda r: order.get(r.weight, 2))  # supporting lines last
     for i, r in enumerate(items, 1):
         wrapped = _wrap(r.short, f"{_IND}{i}. ", _IND + "   ")
         if len(wrapped) > 2:
@@ -106,7 +107,8 @@ def render_terminal(report) -> str:
                 wrapped[1] = _clip(wrapped[1] + " \u2026", WIDTH - 1)
         left = len(items) - i
         room = budget - len(reasons) - (1 if left else 0)
-        if len(wrapped) > room and i > 2:  # the first two reasons (the decisive one and the first caveat) always show
+        must = i == 1 or (i == 2 and r.weight == "caveat")  # the decisive reason and the first caveat always show
+        if len(wrapped) > room and not must:
             reasons += _wrap(f"... and {len(items) - i + 1} more reason(s) in the full report", _IND, _IND)
             break
         reasons += wrapped

@@ -368,13 +368,18 @@ def _grade_legend() -> str:
 
 # -- design and ANOVA --------------------------------------------------------------------------------
 
+def _why_order(d, factor) -> str:
+    """Why the levels come in this order: 'numeric', 'first appearance' or 'given'."""
+    return (getattr(d, "level_order", None) or {}).get(factor) or "first appearance"
+
+
 def _design_section(f: Findings) -> Section:
     d = f.design
     a, b = f.factors
     la, lb = d.levels[a], d.levels[b]
     lines = [f"Response: {f.response}; N used: {fmt.count(d.n)}.",
-             f"{a}: {len(la)} levels, in this order: {', '.join(map(str, la))}.",
-             f"{b}: {len(lb)} levels, in this order: {', '.join(map(str, lb))}."]
+             f"{a}: {len(la)} levels, in this order ({_why_order(d, a)}): {', '.join(map(str, la))}.",
+             f"{b}: {len(lb)} levels, in this order ({_why_order(d, b)}): {', '.join(map(str, lb))}."]
     ratio = f", largest/smallest cell {fmt.num(d.size_ratio, 3)}" if d.size_ratio else ""
     lines.append(f"Balance: {d.balance}{ratio}; empty cells: {len(d.empty_cells) or 'none'}; "
                  f"cells with one observation: {len(d.single_cells) or 'none'}.")
