@@ -693,11 +693,14 @@ def build_report(f: Findings, *, figures: dict | None = None, report_dir: str | 
         short.append("T/c: the Welch-James statistic over Johansen's c, referred to F(df1, df2).")
     res = [m for m in ms if m.resamples]
     if res:
-        B = res[0].resamples
+        Bs = sorted({m.resamples for m in res})
+        B = Bs[0]
         seed = f.provenance.get("seed")
-        short.append(f"Resampled p: B = {fmt.count(B)} each" + (f", seed {seed}" if seed is not None else "")
+        used = (f"B = {fmt.count(B)} each" if len(Bs) == 1
+                else f"B = {fmt.count(Bs[0])} to {fmt.count(Bs[-1])} (each stops once its decision is settled)")
+        short.append(f"Resampled p: {used}" + (f", seed {seed}" if seed is not None else "")
                      + f"; {fmt.p_cell(1.0 / (B + 1), B).split(' (B')[0]}"
-                     " is the floor 1/(B + 1).")
+                     " is the floor 1/(B + 1)" + (" at the smallest B." if len(Bs) > 1 else "."))
     if report_dir is not None:
         where = f"Full report: {os.path.join(report_dir, 'report.html')} (also .md, .txt, JSON, figures)."
     else:
