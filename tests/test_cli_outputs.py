@@ -212,7 +212,7 @@ def test_json_to_dev_stdout(tmp_path):
     r = run("check", "v.csv", *OPTS, *QUICK, "--json", "/dev/stdout", cwd=tmp_path)
     assert r.returncode == 0 and r.stderr == "", r.stderr
     text, _, js = r.stdout.partition("\n{")
-    assert "Verdict:" in text and "Levels in the order used" in text  # the summary first, then the JSON
+    assert "Verdict:" in text and "Level order:" in text  # the summary first, then the JSON
     assert findings_json("{" + js)["mode"] == "data"
     assert os.path.islink("/dev/stdout") and sorted(os.listdir("/dev")) == before
     assert inp.unchanged()
