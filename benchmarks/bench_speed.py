@@ -1,5 +1,5 @@
 """Benchmark: the whole audit (every diagnostic and method, B = 9,999 maximum) against a
-reference tree (by default the commit this branch started from), both measured in the same run.
+reference tree (by default ccc126b, main before this work), both measured in the same run.
 
 Invented scenarios (no real data):
 
@@ -16,7 +16,7 @@ the same machine at the same moment.
 
 Run from the repository root:
 
-    python benchmarks/bench_speed.py                      # reference: the merge base with main
+    python benchmarks/bench_speed.py                      # reference: ccc126b (main before this work)
     python benchmarks/bench_speed.py --ref <commit> --sizes 2004 100000
     python benchmarks/bench_speed.py --repeat 3           # best of 3 per size and tree
     python benchmarks/bench_speed.py --primitives         # ns per element of the draw primitives
@@ -161,7 +161,8 @@ def memory(N: int, mode: str) -> tuple[float, str]:
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    ap.add_argument("--ref", default=None, help="reference commit (default: git merge-base HEAD main)")
+    ap.add_argument("--ref", default="ccc126b", help="reference commit (default ccc126b: main before the "
+                    "shared draw and sequential stopping)")
     ap.add_argument("--sizes", type=int, nargs="+", default=[2004, 100000, 328521])
     ap.add_argument("--repeat", type=int, default=1)
     ap.add_argument("--memory", action="store_true", help="peak RSS at N = 1,000,000 instead")
@@ -179,8 +180,7 @@ def main() -> None:
             print(f"N = 1,000,000 (5 x 4), {mode}: peak RSS {mb:.0f} MB (max over children so far); "
                   f"seconds and verdict: {out}", flush=True)
         return
-    ref = args.ref or subprocess.run(["git", "merge-base", "HEAD", "main"], cwd=ROOT, check=True,
-                                     capture_output=True, text=True).stdout.strip()
+    ref = args.ref
     with tempfile.TemporaryDirectory() as reftree:
         subprocess.run(f"git archive {ref} | tar -x -C {reftree}", shell=True, cwd=ROOT, check=True)
         print(f"reference {ref[:10]} vs working tree {ROOT}")

@@ -168,8 +168,9 @@ def exit_status(verdict: str, *, strict: bool = False) -> int:
 
 
 def _settled(m, alpha: float) -> bool:
-    """A resampled p is settled when its Monte Carlo interval lies on one side of alpha."""
-    return settled(m.p_interval, alpha)
+    """A resampled p is settled when its Monte Carlo interval lies on one side of alpha, or when
+    the sequential rule stopped it early (its decision then has resampling risk <= 0.001)."""
+    return bool((m.extra or {}).get("stopped_early")) or settled(m.p_interval, alpha)
 
 
 def _fmt_p(p: float) -> str:
