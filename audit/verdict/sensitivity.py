@@ -177,6 +177,24 @@ def _prob(v) -> float | None:
     return min(max(v, 0.0), 1.0)
 
 
+def _noncentral_f_tail(x: float, df1: float, df2: float, nc: float, *, upper: bool):
+    """One tail of the noncentral F: scipy's noncentral F, else its noncentral chi-square limit
+    (df2 -> infinity) when scipy gives NaN or df2 is infinite; (None, None) when neither works."""
+    tail = "sf" if upper else "cdf"
+    with np.errstate(all="ignore"):
+        try:
+            if math.isfinite(df2):
+                v = _prob(getattr(stats.ncf, tail)(x, df1, df2, nc) if nc > 0
+                          else getattr(stats.f, tail)(x, df1, df2))
+                if v is not None:
+                    return v, _NCF
+            v = _prob(getattr(stats.ncx2, tail)(x * df1, df1, nc) if nc > 0
+                      else getattr(stats.chi2, tail)(x * df1, df1))
+            return (v, _NCX2) if v is not None else (None, None)
+        except (ValueError, OverflowError, ArithmeticError):
+            return None, None
+
+
 def noncentral_f_sf(x: float, df1: float, df2: float, nc: float) -> tuple[float | None, str | None]:
     """P(F'(df1, df2, nc) > x) and the method used (None, None when not computable).
 
@@ -193,16 +211,7 @@ def noncentral_f_sf(x: float, df1: float, df2: float, nc: float) -> tuple[float 
     -------
     (float or None, str or None)
     """
-    with np.errstate(all="ignore"):
-        try:
-            if math.isfinite(df2):
-                v = _prob(stats.ncf.sf(x, df1, df2, nc) if nc > 0 else stats.f.sf(x, df1, df2))
-                if v is not None:
-                    return v, _NCF
-            v = _prob(stats.ncx2.sf(x * df1, df1, nc) if nc > 0 else stats.chi2.sf(x * df1, df1))
-            return (v, _NCX2) if v is not None else (None, None)
-        except (ValueError, OverflowError, ArithmeticError):
-            return None, None
+    return _noncentral_f_tail(x, df1, df2, nc, upper=True)
 
 
 def noncentral_f_cdf(x: float, df1: float, df2: float, nc: float) -> tuple[float | None, str | None]:
@@ -221,16 +230,7 @@ def noncentral_f_cdf(x: float, df1: float, df2: float, nc: float) -> tuple[float
     -------
     (float or None, str or None)
     """
-    with np.errstate(all="ignore"):
-        try:
-            if math.isfinite(df2):
-                v = _prob(stats.ncf.cdf(x, df1, df2, nc) if nc > 0 else stats.f.cdf(x, df1, df2))
-                if v is not None:
-                    return v, _NCF
-            v = _prob(stats.ncx2.cdf(x * df1, df1, nc) if nc > 0 else stats.chi2.cdf(x * df1, df1))
-            return (v, _NCX2) if v is not None else (None, None)
-        except (ValueError, OverflowError, ArithmeticError):
-            return None, None
+    return _noncentral_f_tail(x, df1, df2, nc, upper=False)
 
 
 def _critical(alpha: float, df1: float, df2: float) -> float | None:
