@@ -201,6 +201,14 @@ def skew_kurtosis(x: np.ndarray) -> dict:
         return {"n": n, "skewness": None, "skewness_se": None, "excess_kurtosis": None, "excess_kurtosis_se": None}
     m3 = float(np.mean(d * d * d))
     m4 = float(np.mean((d * d) ** 2))
+    return shape_from_moments(n, m2, m3, m4)
+
+
+def shape_from_moments(n: int, m2: float, m3: float, m4: float) -> dict:
+    """Adjusted skewness G1, excess kurtosis G2 and their normal-theory SEs
+    from the central moments m2, m3, m4 of n values (n >= 4, m2 > 0); the
+    formulas of :func:`skew_kurtosis`, shared with the engines' pooled cell
+    moments."""
     g1 = m3 / m2 ** 1.5
     g2 = m4 / (m2 * m2) - 3.0
     G1 = g1 * math.sqrt(n * (n - 1.0)) / (n - 2.0)

@@ -254,13 +254,9 @@ def pooled_shape(cm: CellMoments) -> dict:
         return none
     m3 = float(cm.m3[use].sum()) / n
     m4 = float(cm.m4[use].sum()) / n
-    g1 = m3 / m2 ** 1.5
-    g2 = m4 / (m2 * m2) - 3.0
-    G1 = g1 * math.sqrt(n * (n - 1.0)) / (n - 2.0)
-    G2 = ((n + 1.0) * g2 + 6.0) * (n - 1.0) / ((n - 2.0) * (n - 3.0))
-    ses = math.sqrt(6.0 * n * (n - 1.0) / ((n - 2.0) * (n + 1.0) * (n + 3.0)))
-    sek = 2.0 * ses * math.sqrt((n * n - 1.0) / ((n - 3.0) * (n + 5.0)))
-    return {"n": n, "skewness": G1, "skewness_se": ses, "excess_kurtosis": G2, "excess_kurtosis_se": sek}
+    from ..diagnostics.assumptions import shape_from_moments
+
+    return shape_from_moments(n, m2, m3, m4)
 
 
 def levene_from_moments(n: np.ndarray, zbar: np.ndarray, zcss: np.ndarray) -> dict:
