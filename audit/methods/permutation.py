@@ -176,35 +176,6 @@ class _Setup(NamedTuple):
     means: np.ndarray
 
 
-def _prepare(fit: Fit, effects, resamples, mid: str, name: str, *, need_two: str | None):
-    """Checks, estimable hypotheses and the cell-sorted layout, shared by every
-    resampling method.  Returns (early, setup): ``early`` is the finished tuple of
-    results when nothing can be resampled (setup None then)."""
-    B, early = _checks(fit, effects, resamples, mid, name, need_two=need_two)
-    if early:
-        return tuple(early), None
-    Cs, ok, skipped = _split_estimable(fit, effects, mid, name, B)
-    if not ok:
-        return _merge(effects, [], skipped), None
-    layout = layout_from_fit(fit)
-    st = fit.cells.standardised()      # exact power-of-two scale: squares stay in range at every data scale
-    y_sorted = np.asarray(fit.obs.y, dtype=float)[layout.order] / st.unit
-    means = st.means.ravel()[layout.filled]
-    return None, _Setup(B, Cs, ok, skipped, layout, y_sorted, means)
-
-
-class _Setup(NamedTuple):
-    """What every resampling method needs once its inputs have passed the checks."""
-
-    B: int
-    Cs: list
-    ok: list
-    skipped: dict
-    layout: object
-    y_sorted: np.ndarray
-    means: np.ndarray
-
-
 class Plan(NamedTuple):
     """A resampling method ready to run: its ``jobs`` for :func:`resampling.run_jobs` and
     ``finish(tallies, seed_record)`` that turns their tallies into the method's results.
