@@ -179,10 +179,8 @@ def judge(fit, *, diagnostics=(), methods=(), claims=(), calibration=None, equiv
     infl = _facts(diagnostics, InfluenceFacts)
     scale = _facts(diagnostics, ScaleFacts)
     rounding = _facts(diagnostics, RoundingFacts)
-    self_checks = {(m.id, m.effect): m.self_check_ok for m in methods
-                   if getattr(m, "self_check_ok", None) is not None}
     trust = assess_trust(methods, counts=cells.counts, alpha=alpha, homogeneity=homog, independence=indep,
-                         calibration=calibration, self_checks=self_checks)
+                         calibration=calibration)
 
     by_effect = {c.effect: c for c in claims}
     records: list[ClaimRecord] = []

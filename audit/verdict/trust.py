@@ -61,9 +61,6 @@ TRUST_RULES: tuple[TrustRule, ...] = (
                    "are unreliable in factorial designs",
               source="Blair, Sawilowsky & Higgins 1987; Sawilowsky 1990; METHODS.md 10a (size .807 with "
                      "main effects)"),
-    TrustRule(id="self-check", methods=("aligned-rank-transform",),
-              when="the alignment self-check failed (the aligned responses carry other effects)",
-              source="Wobbrock, Findlater, Gergle & Higgins 2011"),
     TrustRule(id="pseudo-replication", methods=("*",),
               when="an experimental unit was observed more than once: every test here treats the "
                    "repeated observations as independent",
@@ -176,8 +173,7 @@ def _distorts_classical(h) -> bool:
     return bool(h is not None and h.distorts_classical)
 
 
-def _one(m, *, min_n: int, min_kept: int, unequal_n: bool, homog, indep, calib_row, calib_f, alpha: float,
-         self_check_ok) -> MethodTrust:
+def _one(m, *, min_n: int, min_kept: int, unequal_n: bool, homog, indep, calib_row, calib_f, alpha: float) -> MethodTrust:
     mid, eff = m.id, m.effect
 
     def no(rule: str, reason: str) -> MethodTrust:
@@ -189,9 +185,6 @@ def _one(m, *, min_n: int, min_kept: int, unequal_n: bool, homog, indep, calib_r
     if mid == "rank-transform" or not m.valid_for_interaction and eff == "AB":
         return no("rank-transform", "ranking turns main effects into interaction, so the rank transform does "
                                     "not test the interaction validly (Blair, Sawilowsky & Higgins 1987)")
-    if mid == "aligned-rank-transform" and self_check_ok is False:
-        return no("self-check", "the alignment self-check failed: the aligned responses still carry other "
-                                "effects")
     if indep is not None and indep.pseudo_replication:
         return no("pseudo-replication", "an experimental unit was observed more than once, so the "
                                         "observations are not independent")
@@ -250,8 +243,7 @@ def _one(m, *, min_n: int, min_kept: int, unequal_n: bool, homog, indep, calib_r
     return MethodTrust(method=mid, effect=eff, trusted=True, reason=reason, rule=None, conservative=conservative)
 
 
-def assess_trust(methods, *, counts, alpha: float, homogeneity=None, independence=None, calibration=None,
-                 self_checks: dict | None = None) -> tuple[MethodTrust, ...]:
+def assess_trust(methods, *, counts, alpha: float, homogeneity=None, independence=None, calibration=None) -> tuple[MethodTrust, ...]:
     """Apply the trust rules to every method result.
 
     Parameters
@@ -266,8 +258,6 @@ def assess_trust(methods, *, counts, alpha: float, homogeneity=None, independenc
         The size check; ``calibration.row(method, effect)`` returns a row
         with ``status`` and ``size``, or None when that method was not
         checked.
-    self_checks : dict, optional
-        {(method, effect): bool} for methods with a self-check.
 
     Returns
     -------
@@ -291,8 +281,6 @@ def assess_trust(methods, *, counts, alpha: float, homogeneity=None, independenc
 
     for m in methods:
         row = crow(m.id, m.effect)
-        sc = (self_checks or {}).get((m.id, m.effect))
         out.append(_one(m, min_n=min_n, min_kept=min_kept, unequal_n=unequal_n, homog=homogeneity, indep=independence,
-                        calib_row=row, calib_f=crow("classical-f", m.effect), alpha=alpha,
-                        self_check_ok=sc))
+                        calib_row=row, calib_f=crow("classical-f", m.effect), alpha=alpha))
     return tuple(out)
