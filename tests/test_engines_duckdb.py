@@ -169,3 +169,13 @@ def test_engine_missing_names_the_install(monkeypatch, parquet_path):
     monkeypatch.setattr(builtins, "__import__", fake)
     with pytest.raises(AuditInputError, match=r'pip install "\.\[duckdb\]"'):
         audit.check(parquet_path, response="strength", factors=("resin", "angle"), engine="duckdb")
+
+
+def test_duckdb_never_prints_its_own_progress_bar(parquet_path):
+    # DuckDB's built-in bar writes to stdout after 2 s of a query, which would corrupt
+    # `--json -` on a large file (seen in the 100M-row benchmark); our bar reads
+    # query_progress() and writes to stderr (common practice: machine output on stdout only)
+    b = DuckDBBackend(parquet_path)
+    got = dict(b.con.execute("select name, value from duckdb_settings() "
+                             "where name in ('enable_progress_bar', 'enable_progress_bar_print')").fetchall())
+    assert got == {"enable_progress_bar": "true", "enable_progress_bar_print": "false"}

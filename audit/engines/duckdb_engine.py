@@ -69,6 +69,10 @@ class DuckDBBackend:
         self.threads = threads or os.cpu_count() or 1
         self.con.execute(f"SET threads = {int(self.threads)}")
         self.con.execute("SET preserve_insertion_order = false")
+        # DuckDB's own bar writes to stdout, where it would corrupt `--json -`; our bar
+        # (TerminalProgress, on stderr) reads query_progress(), which needs the bar enabled
+        self.con.execute("SET enable_progress_bar = true")
+        self.con.execute("SET enable_progress_bar_print = false")
         if memory_limit:
             self.con.execute(f"SET memory_limit = {_sql_str(memory_limit)}")
         lst = "[" + ", ".join(_sql_str(f) for f in self.files) + "]"
