@@ -71,6 +71,7 @@ def check(
     spark_master: str | None = None,
     sample_per_cell: int | None = None,
     exact_resamples: bool = False,
+    on_figure_data=None,
 ) -> Findings:
     """Audit the two-way ANOVA of a long-format dataset.
 
@@ -150,6 +151,12 @@ def check(
         Draw all ``resamples`` for every resampling method instead of stopping each
         as soon as its decision at alpha is settled (sequential rule, resampling
         risk 1e-3; see :mod:`audit.methods.resampling`).
+    on_figure_data : callable, optional
+        With ``figures=True``: called with the figure data as parts of it become
+        ready, so that figures can be drawn while the audit runs; first with the
+        plots of the fitted model alone (``response``, ``alpha``, ``row_kind``,
+        ``cell_means``, ``spread``, ``sd_n``), last with all of it (the dict in
+        ``Findings.figure_data``).  The command line's ``--report`` uses it.
 
     Returns
     -------
@@ -166,6 +173,10 @@ def check(
     if not isinstance(exact_resamples, bool):
         from .errors import OptionError
         raise OptionError(f"exact_resamples: expected True or False, found {exact_resamples!r}")
+    if on_figure_data is not None and not callable(on_figure_data):
+        from .errors import OptionError
+        raise OptionError(f"on_figure_data: expected a function or None, found {type(on_figure_data).__name__}; "
+                          "pass a function that takes one dict")
     claim, calibration, equivalence = _verdict_options(claim, calibration, equivalence, factors)
     from .engines import choose_engine
 
@@ -188,7 +199,8 @@ def check(
     return _assemble(fit, design, mode="data", source=(obs.source.path, obs.source.sha256),
                      claim=claim, calibration=calibration, equivalence=equivalence, timestamp=timestamp,
                      resamples=resamples, seed=seed, diagnostics=diagnostics, methods=methods,
-                     figures=figures, progress=progress, exact_resamples=exact_resamples)
+                     figures=figures, progress=progress, exact_resamples=exact_resamples,
+                     on_figure_data=on_figure_data)
 
 
 def _check_engine(data, engine, *, spark_master, sample_per_cell, response, factors, levels, order, unit, alpha,
@@ -277,10 +289,16 @@ def _verdict_options(claim, calibration, equivalence, factors):
 
 def _assemble(fit, design, *, mode, source, resamples, seed, diagnostics, methods, figures, progress,
               claim=None, calibration=None, equivalence=None, timestamp=True, extra_diagnostics=(),
-              exact_resamples=False) -> Findings:
+              exact_resamples=False, on_figure_data=None) -> Findings:
     """Run the later stages on a fit and collect everything into Findings."""
     from .methods import new_seed, run_methods
 
+    model_part = None
+    if figures and on_figure_data is not None:
+        from .diagnostics.plotdata import model_figure_data
+
+        model_part = model_figure_data(fit)
+        on_figure_data(dict(model_part))
     diags: tuple = ()
     meths: tuple = ()
     if diagnostics:
@@ -313,7 +331,9 @@ def _assemble(fit, design, *, mode, source, resamples, seed, diagnostics, method
     if figures:
         from .diagnostics.plotdata import figure_data
 
-        fig = figure_data(fit, diags, methods=meths, judgement=judgement)
+        fig = figure_data(fit, diags, methods=meths, judgement=judgement, model_part=model_part)
+        if on_figure_data is not None:
+            on_figure_data(fig)
     return Findings(
         mode=mode,
         alpha=fit.alpha,

@@ -106,14 +106,33 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--report", metavar="DIR", help="write report.html, report.md, report.txt, findings.json and the figures "
                         "into DIR, replaced as a whole (DIR must be new, empty or an earlier report)")
     c.add_argument("--full", action="store_true", help="print the whole text report (report.txt) instead of the summary")
+    _add_figure_format(c)
     d = sub.add_parser("demo", help="run the full audit on bundled invented datasets, one per verdict",
                        description="Run the full audit on the bundled invented datasets, each built to show one "
                                    "verdict; exit 0 when every dataset gets the verdict it was built to show.")
     d._sub = "demo"
     d.add_argument("--report", metavar="DIR", help="also write one report folder per dataset under DIR")
+    _add_figure_format(d)
     _add_run_parser(sub)
     _add_check_summary(sub)
     return p
+
+
+def _add_figure_format(p) -> None:
+    p.add_argument("--figure-format", choices=("svg", "png"), default="svg",
+                   help="file format of the report's figures: svg (vector, default) or png (raster)")
+
+
+def _start_figure_workers(args):
+    """Figure-drawing processes, started before the heavy imports when a report is asked
+    for (their start-up overlaps the audit); a no-op context otherwise."""
+    import contextlib
+
+    if not getattr(args, "report", None):
+        return contextlib.nullcontext()
+    from .render.workers import FigureWorkers
+
+    return FigureWorkers(args.figure_format)
 
 
 def _add_run_parser(sub) -> None:
@@ -169,6 +188,7 @@ def _add_check_summary(sub) -> None:
     s.add_argument("--report", metavar="DIR", help="write report.html, report.md, report.txt, findings.json and the "
                                                    "figures into DIR")
     s.add_argument("--full", action="store_true", help="print the whole text report instead of the summary")
+    _add_figure_format(s)
 
 
 def _compute_summary(args):
@@ -222,12 +242,13 @@ def _fail(message: str) -> int:
 
 def _report_known() -> set[str]:
     """The file names a report folder may hold (an earlier report is replaced as a whole)."""
-    from .render.figures import FIGURE_FILES
+    from .render.figures import ALL_FIGURE_FILES
 
-    return {*REPORT_NAMES, *FIGURE_FILES.values()}
+    return {*REPORT_NAMES, *ALL_FIGURE_FILES}
 
 
-def _write_report(folder, findings, js: bytes, *, known, written: list, json_name=None):
+def _write_report(folder, findings, js: bytes, *, known, written: list, json_name=None, figure_format="svg",
+                  workers=None):
     """Write one report folder (report.html, report.md, report.txt, findings.json and the
     figures), replaced as a whole; returns the report model."""
     from ._io import replace_folder
@@ -237,7 +258,8 @@ def _write_report(folder, findings, js: bytes, *, known, written: list, json_nam
 
     def build(tmp: str) -> list[str]:
         nonlocal model
-        model, names = write_report_files(findings, tmp, report_dir=folder)
+        model, names = write_report_files(findings, tmp, report_dir=folder, figure_format=figure_format,
+                                          workers=workers)
         with open(os.path.join(tmp, REPORT_JSON), "wb") as fh:
             fh.write(js)
         names.insert(3, REPORT_JSON)
@@ -253,15 +275,22 @@ def _write_report(folder, findings, js: bytes, *, known, written: list, json_nam
 
 def _run_demo(args, written: list) -> int:
     """The full audit on the bundled invented datasets (see :mod:`audit.demo`)."""
-    import textwrap
-
     from ._io import check_folder_target
-    from .demo import DEMO_DATASETS, DEMO_RESAMPLES, DEMO_SEED, run_demo, terminal_lines
+    from .demo import DEMO_DATASETS
 
     known = _report_known()
     if args.report:
         for ds in DEMO_DATASETS:  # every target is checked before any audit runs
             check_folder_target(os.path.join(args.report, ds.name), known=known)
+    with _start_figure_workers(args) as workers:
+        return _demo_loop(args, written, known, workers)
+
+
+def _demo_loop(args, written: list, known, workers) -> int:
+    import textwrap
+
+    from .demo import DEMO_DATASETS, DEMO_RESAMPLES, DEMO_SEED, run_demo, terminal_lines
+
     out = sys.stdout
     out.write(f"twoway-audit demo: the full audit on {len(DEMO_DATASETS)} invented datasets, each built to\n"
               f"show one verdict (seed {DEMO_SEED}, {DEMO_RESAMPLES:,} resamples per method)\n")
@@ -275,7 +304,8 @@ def _run_demo(args, written: list) -> int:
         out.flush()
         if args.report:
             folder = os.path.join(args.report, ds.name)
-            _write_report(folder, f, (f.to_json() + "\n").encode("utf-8"), known=known, written=written)
+            _write_report(folder, f, (f.to_json() + "\n").encode("utf-8"), known=known, written=written,
+                          figure_format=args.figure_format, workers=workers)
             out.write(f"Report: {folder}\n")
         rows.append((ds.name, ds.shows, f.verdict or "-", "yes" if res.as_built else "NO"))
     header = ("dataset", "built to show", "verdict obtained", "as built")
@@ -301,9 +331,9 @@ def _run_check(args, written: list, compute=None) -> int:
     if args.json and args.json != "-" and args.report:
         if os.path.realpath(os.path.dirname(os.path.abspath(args.json))) == os.path.realpath(args.report):
             json_name = os.path.basename(args.json)
-            from .render.figures import FIGURE_FILES
+            from .render.figures import ALL_FIGURE_FILES
 
-            if json_name in {REPORT_TEXT, REPORT_MARKDOWN, REPORT_HTML, MANIFEST, *FIGURE_FILES.values()}:
+            if json_name in {REPORT_TEXT, REPORT_MARKDOWN, REPORT_HTML, MANIFEST, *ALL_FIGURE_FILES}:
                 raise OutputError(f"--json {args.json!r} is a file the report folder itself holds; "
                                   f"choose another name (the folder has its own {REPORT_JSON})")
             known.add(json_name)
@@ -316,6 +346,13 @@ def _run_check(args, written: list, compute=None) -> int:
         refuse_folder_overlap(args.report, inputs)
         check_folder_target(args.report, known=known)
 
+    with _start_figure_workers(args) as workers:
+        return _check_and_write(args, written, compute, inputs=inputs, known=known, json_name=json_name,
+                                workers=workers)
+
+
+def _check_and_write(args, written: list, compute, *, inputs, known, json_name, workers) -> int:
+    from ._io import refuse_input_overlap, write_file
     from .api import check  # the heavy imports only after the output paths passed
 
     with warnings.catch_warnings():
@@ -331,11 +368,13 @@ def _run_check(args, written: list, compute=None) -> int:
             claim=args.claim or None, calibration=args.calibration, equivalence=args.equivalence,
             timestamp=not args.no_timestamp, engine=args.engine, spark_master=args.spark_master,
             sample_per_cell=args.sample_per_cell, exact_resamples=args.exact_resamples,
+            on_figure_data=workers.early if getattr(workers, "parallel", False) else None,
         )
     js = (findings.to_json() + "\n").encode("utf-8")
     model = None
     if args.report:
-        model = _write_report(args.report, findings, js, known=known, written=written, json_name=json_name)
+        model = _write_report(args.report, findings, js, known=known, written=written, json_name=json_name,
+                              figure_format=args.figure_format, workers=workers)
     else:
         from .report import build_report
 

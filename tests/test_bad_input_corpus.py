@@ -941,4 +941,4 @@ def test_math_markup_level_names_in_figures(tmp_path):
     d = strict_json_loads((tmp_path / "rep" / "findings.json").read_text())
     strict_json_check(d)
     assert_interaction_matches(d, f)
-    assert any(name.endswith(".png") for name in os.listdir(tmp_path / "rep"))
+    assert any(name.endswith(".svg") for name in os.listdir(tmp_path / "rep"))

@@ -233,12 +233,18 @@ def test_disk_full_names_the_path(tmp_path):
 
 def test_failed_run_leaves_the_previous_report_whole(first_report, tmp_path):
     inp, first = copy_first(first_report, tmp_path)
-    assert {"report.txt", "findings.json", "cell-means.png", ".twoway-audit-report.json"} <= set(first)
+    assert {"report.txt", "findings.json", "cell-means.svg", ".twoway-audit-report.json"} <= set(first)
     # the second run fails after some figures are written: the disk fills up (the message names
     # the folder as typed, never the temporary file the error came from)
-    patch = ("import errno, audit.render.figures as F\n"
-             "def full(*a, **k):\n    raise OSError(errno.ENOSPC, 'No space left on device', '/x/.tmp-abc.png')\n"
-             "F._loo = full\n")
+    patch = ("import errno, audit._io as IO\n"
+             "import audit.render.figures as F\n"
+             "orig, seen = F._write_blob, []\n"
+             "def full(tmp, data):\n"
+             "    seen.append(tmp)\n"
+             "    if len(seen) == 2:\n"
+             "        raise OSError(errno.ENOSPC, 'No space left on device', tmp)\n"
+             "    return orig(tmp, data)\n"
+             "F._write_blob = full\n")
     one_line_error(run_patched(patch, "check", "v.csv", *OPTS, *QUICK, "--alpha", "0.1",
                                "--report", "rep", cwd=tmp_path), "'rep'", "no space left")
     assert snapshot(tmp_path / "rep") == first
@@ -247,10 +253,12 @@ def test_failed_run_leaves_the_previous_report_whole(first_report, tmp_path):
 
 def test_sigterm_during_figure_writing_leaves_no_temp_files(first_report, tmp_path):
     inp, first = copy_first(first_report, tmp_path)
-    # SIGTERM arrives while the third figure is being drawn
-    patch = ("import os, signal, audit.render.figures as F\n"
+    # SIGTERM reaches the command while a figure worker draws (the workers are forked from
+    # the patched process, so the drawing function below runs in a worker: it signals its parent)
+    patch = ("import os, signal, time, audit.render.figures as F\n"
              "orig = F._sd_n\n"
-             "def stop(fd, outdir):\n    os.kill(os.getpid(), signal.SIGTERM)\n    return orig(fd, outdir)\n"
+             "def stop(fd, fmt='svg'):\n    os.kill(os.getppid(), signal.SIGTERM)\n    time.sleep(2)\n"
+             "    return orig(fd, fmt)\n"
              "F._sd_n = stop\n")
     r = run_patched(patch, "check", "v.csv", *OPTS, *QUICK, "--report", "rep", cwd=tmp_path)
     assert r.returncode == 143, (r.returncode, r.stderr)
@@ -270,7 +278,7 @@ def test_concurrent_runs_never_mix(tmp_path):
         r = run("check", f"v{i}.csv", *OPTS, *QUICK, "--no-timestamp", "--report", "rep", cwd=d)
         assert r.returncode == 0, r.stderr
         ref.append(snapshot(d / "rep"))
-    assert ref[0]["cell-means.png"] != ref[1]["cell-means.png"]
+    assert ref[0]["cell-means.svg"] != ref[1]["cell-means.svg"]
     race = tmp_path / "race"
     race.mkdir()
     inputs = [Input(race / f"v{i}.csv", text) for i, text in enumerate(texts)]

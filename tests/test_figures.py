@@ -15,7 +15,7 @@ from audit.errors import OptionError
 from audit.fit import fit_cells, fit_observations
 from audit.intake import load
 from audit.diagnostics.plotdata import figure_data
-from audit.render.figures import FIGURE_FILES, write_figures
+from audit.render.figures import FIGURE_FILES, figure_file, write_figures
 from audit.results import Diagnostic
 
 from conftest import orchard_frame
@@ -135,6 +135,13 @@ def _is_png(path):
         return fh.read(8) == PNG_MAGIC
 
 
+def _is_svg(path):
+    # a well-formed SVG 1.1 document (W3C SVG 1.1: root element <svg> in the SVG namespace)
+    import xml.etree.ElementTree as ET
+
+    return ET.parse(path).getroot().tag == "{http://www.w3.org/2000/svg}svg"
+
+
 def test_write_all_figures(tmp_path, fit):
     import matplotlib
 
@@ -143,7 +150,7 @@ def test_write_all_figures(tmp_path, fit):
     paths = write_figures(figure_data(fit, [_fake_influence(fit), _fake_scale()]), out)
     # without method results there is no method p-value figure; every other figure is written
     assert [os.path.basename(p) for p in paths] == [v for k, v in FIGURE_FILES.items() if k != "methods_p"]
-    assert all(_is_png(p) and os.path.getsize(p) > 10_000 for p in paths)
+    assert all(_is_svg(p) and os.path.getsize(p) > 10_000 for p in paths)
     assert not [n for n in os.listdir(out) if n.startswith(".tmp-")]  # atomic writes leave no temp files
     assert matplotlib.get_backend() == backend  # the caller's backend is untouched
 
@@ -159,7 +166,7 @@ def test_figures_skip_gracefully(tmp_path, fit):
 def test_summary_mode_figures(tmp_path, fit):
     paths = write_figures(figure_data(fit_cells(fit.cells), None), tmp_path)
     assert [os.path.basename(p) for p in paths] == [FIGURE_FILES[k] for k in ("cell_means", "spread", "sd_n")]
-    assert all(_is_png(p) for p in paths)
+    assert all(_is_svg(p) for p in paths)
 
 
 def test_unusable_report_folder(tmp_path, fit):
@@ -188,18 +195,62 @@ def _capture(monkeypatch):
 
     figs = {}
 
-    def keep(fig, outdir, name):
+    def keep(fig, name):
         figs[name] = fig
-        return os.path.join(outdir, name)
+        return b""
 
-    monkeypatch.setattr(F, "_save", keep)
+    monkeypatch.setattr(F, "_render", keep)
     return figs
 
 
 def test_every_figure_written_from_findings(tmp_path, reading):
     paths = write_figures(reading.figure_data, tmp_path)
     assert [os.path.basename(p) for p in paths] == list(FIGURE_FILES.values())
-    assert all(_is_png(p) for p in paths)
+    assert all(_is_svg(p) for p in paths)
+
+
+def test_png_on_request_and_same_files_twice(tmp_path, reading):
+    png = write_figures(reading.figure_data, tmp_path / "png", fmt="png")
+    assert [os.path.basename(p) for p in png] == [figure_file(k, "png") for k in FIGURE_FILES]
+    assert all(_is_png(p) for p in png)
+    # same data, same bytes (no date in the SVG metadata, fixed ids): reports can be diffed
+    a = write_figures(reading.figure_data, tmp_path / "a")
+    b = write_figures(reading.figure_data, tmp_path / "b")
+    assert [open(p, "rb").read() for p in a] == [open(p, "rb").read() for p in b]
+    with pytest.raises(OptionError, match="figure format: expected one of svg, png, found 'gif'"):
+        write_figures(reading.figure_data, tmp_path / "c", fmt="gif")
+
+
+def test_user_strings_never_become_svg_markup(tmp_path, reading):
+    # glyphs are drawn as outlines (svg.fonttype 'path'); the string itself appears only in an
+    # XML comment, escaped, so a hostile name cannot close the comment or add an element
+    # (W3C XML 1.0 section 2.5: '--' must not occur inside a comment)
+    import copy
+    import xml.etree.ElementTree as ET
+
+    evil = "--><script>alert(1)</script><!--"
+    fd = copy.deepcopy(reading.figure_data)
+    fd["response"] = evil
+    for o in fd["cell_means"]["orientations"]:
+        o["x_levels"] = [evil + str(i) for i, _ in enumerate(o["x_levels"])]
+    paths = write_figures(fd, tmp_path)
+    for p in paths:
+        root = ET.parse(p).getroot()  # well-formed
+        assert not [e for e in root.iter() if e.tag.endswith("script")]
+        blob = open(p, "rb").read()
+        assert b"<text" not in blob and b"<script" not in blob and b"--><" not in blob
+
+
+def test_worker_processes_draw_the_same_bytes(tmp_path, reading):
+    from audit.render.workers import FigureWorkers
+
+    serial = write_figures(reading.figure_data, tmp_path / "serial")
+    with FigureWorkers("svg", workers=2) as w:
+        w.early({k: reading.figure_data[k] for k in ("response", "alpha", "row_kind", "cell_means", "spread",
+                                                     "sd_n")})
+        parallel = write_figures(reading.figure_data, tmp_path / "parallel", workers=w)
+    assert [os.path.basename(p) for p in parallel] == [os.path.basename(p) for p in serial]
+    assert [open(p, "rb").read() for p in parallel] == [open(p, "rb").read() for p in serial]
 
 
 def test_method_p_data_come_from_the_findings(reading):

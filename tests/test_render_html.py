@@ -54,9 +54,9 @@ def test_html_is_one_structurally_sound_file(bakery_report):
     html = (folder / "report.html").read_text(encoding="utf-8")
     doc = html5lib.HTMLParser(strict=True, namespaceHTMLElements=False).parse(html)  # raises on any error
     imgs = doc.findall(".//img")
-    assert len(imgs) == len([n for n in names if n.endswith(".png")]) >= 6
+    assert len(imgs) == len([n for n in names if n.endswith(".svg")]) >= 6
     # self-contained: every image is a data URI, nothing else is referenced, no script
-    assert all(i.get("src").startswith("data:image/png;base64,") for i in imgs)
+    assert all(i.get("src").startswith("data:image/svg+xml;base64,") for i in imgs)
     for el in doc.iter():
         for attr in ("src", "href", "srcset", "poster", "data"):
             v = el.get(attr)
@@ -98,7 +98,7 @@ def test_markdown_links_figures_by_relative_name(bakery_report):
     folder, report, names = bakery_report
     md = (folder / "report.md").read_text(encoding="utf-8")
     for n in names:
-        if n.endswith(".png"):
+        if n.endswith(".svg"):
             assert f"]({n})" in md
     assert md.startswith("## twoway-audit") and "| Method | Statistic |" in md
     assert render_markdown(build_report(audit.check(FIXTURE, response="loaf_volume_ml",
@@ -135,7 +135,7 @@ window.addEventListener("load", function () {
 def test_html_opens_in_headless_chromium(bakery_report, tmp_path):
     folder, report, names = bakery_report
     page = folder / "report.html"
-    n_png = len([n for n in names if n.endswith(".png")])
+    n_png = len([n for n in names if n.endswith(".svg")])
     # 1. every figure decodes: a copy of the page with a probe script (the report itself has none)
     probe = tmp_path / "probe.html"
     probe.write_text(page.read_text(encoding="utf-8").replace("</head>", _PROBE + "</head>", 1), encoding="utf-8")

@@ -33,7 +33,7 @@ from ..fit import Fit
 from .assumptions import _num
 
 __all__ = ["thin_keep_extremes", "cell_means_ci", "qq_points", "spread_vs_fitted", "sd_vs_n", "loo_points", "boxcox_profile",
-           "methods_p", "boxcox_p_curve", "figure_data"]
+           "methods_p", "boxcox_p_curve", "model_figure_data", "figure_data"]
 
 MAX_POINTS = 5000
 
@@ -359,7 +359,20 @@ def _normality_check(diagnostics) -> dict | None:
     return {"grade": sev, "skewness": v.get("skewness"), "excess_kurtosis": v.get("excess_kurtosis")}
 
 
-def figure_data(fit: Fit, diagnostics, *, methods=None, judgement=None) -> dict:
+def model_figure_data(fit: Fit) -> dict:
+    """The part of :func:`figure_data` that needs only the fitted model: ``response``,
+    ``alpha``, ``row_kind``, ``cell_means``, ``spread`` and ``sd_n``."""
+    return {
+        "response": fit.cells.response,
+        "alpha": fit.alpha,
+        "row_kind": fit.obs.row_kind if fit.obs is not None else "line",
+        "cell_means": cell_means_ci(fit),
+        "spread": spread_vs_fitted(fit),
+        "sd_n": sd_vs_n(fit),
+    }
+
+
+def figure_data(fit: Fit, diagnostics, *, methods=None, judgement=None, model_part: dict | None = None) -> dict:
     """Every coordinate the report figures draw, in one JSON-friendly dict.
 
     Keys: ``response``, ``alpha``, ``row_kind``, ``cell_means``, ``qq``,
@@ -368,7 +381,9 @@ def figure_data(fit: Fit, diagnostics, *, methods=None, judgement=None) -> dict:
     ``methods_p``; ``qq`` carries the normality check's grade
     (``qq['check']``), ``boxcox`` the interaction p against lambda
     (``boxcox['p_curve']``) over the shown window (``boxcox['window']``).
+    ``model_part``: :func:`model_figure_data` of the same fit, when already computed.
     """
+    part = model_figure_data(fit) if model_part is None else model_part
     qq = qq_points(fit)
     if qq is not None:
         qq["check"] = _normality_check(diagnostics)
@@ -378,13 +393,13 @@ def figure_data(fit: Fit, diagnostics, *, methods=None, judgement=None) -> dict:
         bc["window"] = [lo, hi]
         bc["p_curve"] = boxcox_p_curve(fit, lo, hi)
     return {
-        "response": fit.cells.response,
-        "alpha": fit.alpha,
-        "row_kind": fit.obs.row_kind if fit.obs is not None else "line",
-        "cell_means": cell_means_ci(fit),
+        "response": part["response"],
+        "alpha": part["alpha"],
+        "row_kind": part["row_kind"],
+        "cell_means": part["cell_means"],
         "qq": qq,
-        "spread": spread_vs_fitted(fit),
-        "sd_n": sd_vs_n(fit),
+        "spread": part["spread"],
+        "sd_n": part["sd_n"],
         "loo": loo_points(diagnostics),
         "boxcox": bc,
         "methods_p": methods_p(methods, judgement, fit.alpha),

@@ -6,9 +6,9 @@ file name is user input and renders as text (a level named
 ``<script>alert(1)</script>`` shows those characters).  Control characters in
 strings are shown escaped (``\\x1b``) before the HTML escaping.
 
-One file: the figures are embedded as base64 ``data:`` URIs of the PNG files the
-figure writer produced; no script, font or style is loaded from anywhere, so the
-page reads offline, on a phone (responsive CSS) and in print (``@media print``).
+One file: the figures are embedded as base64 ``data:`` URIs of the SVG (or PNG)
+files the figure writer produced, shown through ``<img>`` (where an SVG can never run
+a script); no script, font or style is loaded from anywhere, so the page reads offline, on a phone (responsive CSS) and in print (``@media print``).
 Severity is a word with a colour swatch beside it, never colour alone.
 """
 
@@ -41,13 +41,16 @@ def _env():
 
 
 def read_images(report, folder) -> dict:
-    """{figure key: base64 text} of the report's figures found in ``folder``."""
+    """{figure key: ``data:`` URI} of the report's figures found in ``folder``
+    (SVG or PNG, by the file's extension)."""
+    from .figures import figure_mime
+
     out = {}
     for fig in report.figures:
         path = os.path.join(os.fspath(folder), fig.file)
         if os.path.isfile(path):
             with open(path, "rb") as fh:
-                out[fig.key] = base64.b64encode(fh.read()).decode("ascii")
+                out[fig.key] = f"data:{figure_mime(fig.file)};base64," + base64.b64encode(fh.read()).decode("ascii")
     return out
 
 
@@ -58,7 +61,7 @@ def render_html(report, images: dict | None = None) -> str:
     ----------
     report : Report
     images : dict, optional
-        {figure key: base64 PNG text} (see :func:`read_images`); a figure
+        {figure key: ``data:`` URI of the figure} (see :func:`read_images`); a figure
         without one is shown by its caption only.
     """
     return _env().get_template("report.html.j2").render(report=report, images=images or {})

@@ -97,9 +97,9 @@ def figure_caption(key: str) -> str:
 
 def figures_from_files(names) -> dict:
     """{figure key: file name} for the file names the figure writer produced."""
-    from ..render.figures import FIGURE_FILES
+    from ..render.figures import FIGURE_FORMATS, FIGURE_STEMS
 
-    by_file = {v: k for k, v in FIGURE_FILES.items()}
+    by_file = {f"{v}.{fmt}": k for k, v in FIGURE_STEMS.items() for fmt in FIGURE_FORMATS}
     out = {}
     for n in names:
         base = str(n).replace("\\", "/").rsplit("/", 1)[-1]

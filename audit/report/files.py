@@ -20,7 +20,8 @@ def _write(path: str, text: str) -> None:
         fh.write(text)
 
 
-def write_report_files(findings, folder, *, report_dir: str | None = None, figures: bool = True):
+def write_report_files(findings, folder, *, report_dir: str | None = None, figures: bool = True,
+                       figure_format: str = "svg", workers=None):
     """Write the figures and the three report files into ``folder``.
 
     Parameters
@@ -32,6 +33,9 @@ def write_report_files(findings, folder, *, report_dir: str | None = None, figur
         The folder's final name, for the terminal summary's pointer.
     figures : bool
         Draw the figures (needs ``findings.figure_data``).
+    figure_format : {"svg", "png"}
+    workers : FigureWorkers, optional
+        Worker processes for the figures (:mod:`audit.render.workers`).
 
     Returns
     -------
@@ -50,7 +54,8 @@ def write_report_files(findings, folder, *, report_dir: str | None = None, figur
     if figures and findings.figure_data:
         from ..render.figures import write_figures
 
-        drawn = [os.path.basename(p) for p in write_figures(findings.figure_data, folder)]
+        drawn = [os.path.basename(p) for p in write_figures(findings.figure_data, folder, fmt=figure_format,
+                                                             workers=workers, shown=report_dir)]
     report = build_report(findings, figures=figures_from_files(drawn), report_dir=report_dir)
     _write(os.path.join(folder, REPORT_FILES["text"]), render_report_text(report))
     _write(os.path.join(folder, REPORT_FILES["markdown"]), render_markdown(report))
