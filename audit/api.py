@@ -153,9 +153,10 @@ def check(
         risk 1e-3; see :mod:`audit.methods.resampling`).
     on_figure_data : callable, optional
         With ``figures=True``: called with the figure data as parts of it become
-        ready, so that figures can be drawn while the audit runs; first with the
+        ready, so that figures can be drawn while the audit runs: first with the
         plots of the fitted model alone (``response``, ``alpha``, ``row_kind``,
-        ``cell_means``, ``spread``, ``sd_n``), last with all of it (the dict in
+        ``cell_means``, ``spread``, ``sd_n``), then with those of the checks
+        added (``qq``, ``loo``, ``boxcox``), last with all of it (the dict in
         ``Findings.figure_data``).  The command line's ``--report`` uses it.
 
     Returns
@@ -305,6 +306,12 @@ def _assemble(fit, design, *, mode, source, resamples, seed, diagnostics, method
         from .diagnostics import run_diagnostics
 
         diags = run_diagnostics(fit) + tuple(extra_diagnostics)
+    diagnostic_part = None
+    if model_part is not None:
+        from .diagnostics.plotdata import diagnostic_figure_data
+
+        diagnostic_part = diagnostic_figure_data(fit, diags)
+        on_figure_data({**model_part, **diagnostic_part})
     prov = _provenance(*source)
     if not timestamp:
         prov.pop("timestamp", None)
@@ -331,7 +338,8 @@ def _assemble(fit, design, *, mode, source, resamples, seed, diagnostics, method
     if figures:
         from .diagnostics.plotdata import figure_data
 
-        fig = figure_data(fit, diags, methods=meths, judgement=judgement, model_part=model_part)
+        fig = figure_data(fit, diags, methods=meths, judgement=judgement, model_part=model_part,
+                          diagnostic_part=diagnostic_part)
         if on_figure_data is not None:
             on_figure_data(fig)
     return Findings(

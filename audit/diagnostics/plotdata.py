@@ -33,7 +33,8 @@ from ..fit import Fit
 from .assumptions import _num
 
 __all__ = ["thin_keep_extremes", "cell_means_ci", "qq_points", "spread_vs_fitted", "sd_vs_n", "loo_points", "boxcox_profile",
-           "methods_p", "boxcox_p_curve", "model_figure_data", "figure_data"]
+           "methods_p", "boxcox_p_curve", "model_figure_data", "diagnostic_figure_data",
+           "figure_data"]
 
 MAX_POINTS = 5000
 
@@ -372,18 +373,9 @@ def model_figure_data(fit: Fit) -> dict:
     }
 
 
-def figure_data(fit: Fit, diagnostics, *, methods=None, judgement=None, model_part: dict | None = None) -> dict:
-    """Every coordinate the report figures draw, in one JSON-friendly dict.
-
-    Keys: ``response``, ``alpha``, ``row_kind``, ``cell_means``, ``qq``,
-    ``spread``, ``sd_n``, ``loo``, ``boxcox``, ``methods_p`` (all but the
-    first six may be None).  ``methods`` and ``judgement`` (the verdict) feed
-    ``methods_p``; ``qq`` carries the normality check's grade
-    (``qq['check']``), ``boxcox`` the interaction p against lambda
-    (``boxcox['p_curve']``) over the shown window (``boxcox['window']``).
-    ``model_part``: :func:`model_figure_data` of the same fit, when already computed.
-    """
-    part = model_figure_data(fit) if model_part is None else model_part
+def diagnostic_figure_data(fit: Fit, diagnostics) -> dict:
+    """The part of :func:`figure_data` that needs the fitted model and the checks:
+    ``qq``, ``loo`` and ``boxcox``."""
     qq = qq_points(fit)
     if qq is not None:
         qq["check"] = _normality_check(diagnostics)
@@ -392,15 +384,33 @@ def figure_data(fit: Fit, diagnostics, *, methods=None, judgement=None, model_pa
         lo, hi = _focus_window(bc)
         bc["window"] = [lo, hi]
         bc["p_curve"] = boxcox_p_curve(fit, lo, hi)
+    return {"qq": qq, "loo": loo_points(diagnostics), "boxcox": bc}
+
+
+def figure_data(fit: Fit, diagnostics, *, methods=None, judgement=None, model_part: dict | None = None,
+                diagnostic_part: dict | None = None) -> dict:
+    """Every coordinate the report figures draw, in one JSON-friendly dict.
+
+    Keys: ``response``, ``alpha``, ``row_kind``, ``cell_means``, ``qq``,
+    ``spread``, ``sd_n``, ``loo``, ``boxcox``, ``methods_p`` (all but the
+    first six may be None).  ``methods`` and ``judgement`` (the verdict) feed
+    ``methods_p``; ``qq`` carries the normality check's grade
+    (``qq['check']``), ``boxcox`` the interaction p against lambda
+    (``boxcox['p_curve']``) over the shown window (``boxcox['window']``).
+    ``model_part`` / ``diagnostic_part``: :func:`model_figure_data` /
+    :func:`diagnostic_figure_data` of the same fit and checks, when already computed.
+    """
+    part = model_figure_data(fit) if model_part is None else model_part
+    dpart = diagnostic_figure_data(fit, diagnostics) if diagnostic_part is None else diagnostic_part
     return {
         "response": part["response"],
         "alpha": part["alpha"],
         "row_kind": part["row_kind"],
         "cell_means": part["cell_means"],
-        "qq": qq,
+        "qq": dpart["qq"],
         "spread": part["spread"],
         "sd_n": part["sd_n"],
-        "loo": loo_points(diagnostics),
-        "boxcox": bc,
+        "loo": dpart["loo"],
+        "boxcox": dpart["boxcox"],
         "methods_p": methods_p(methods, judgement, fit.alpha),
     }

@@ -315,10 +315,12 @@ def _methods_p(fd: dict, fmt: str = DEFAULT_FIGURE_FORMAT) -> bytes | None:
     ax.set_ylim(n - 0.4, -0.6)
     ax.axvspan(lo, alpha, color="#fbe9e7", zorder=0, label=f"significant at alpha (p < {alpha:g})")
     ax.axvline(alpha, color="black", linestyle="--", linewidth=1.2, label=f"alpha = {alpha:g}")
-    seen = set()
     ticks = []
     bs = sorted({r["resamples"] for r in rows if r["p_interval"] and r["resamples"]})
     b_txt = f", B = {', '.join(f'{b:,}' for b in bs)}" if bs else ""
+    # artists are batched (one error-bar set, one marker set per kind): drawing time grows with
+    # the number of artists, not of points
+    bars, cut_at, kinds = [], [], {}
     for y, r in enumerate(rows):
         t = r["trusted"]
         word = {True: "trusted", False: "NOT trusted", None: "not judged"}[t]
@@ -330,25 +332,31 @@ def _methods_p(fd: dict, fmt: str = DEFAULT_FIGURE_FORMAT) -> bytes | None:
         p = max(r["p"], floor)
         if r["p_interval"] and None not in r["p_interval"]:
             il, ih = r["p_interval"]
-            cut = il < lo * 1.05  # the interval reaches below the axis: drawn to the edge with an arrow head
+            if il < lo * 1.05:  # the interval reaches below the axis: drawn to the edge with an arrow head
+                cut_at.append((lo * 1.05, y))
             il = max(il, lo * 1.05)
-            ax.errorbar([p], [y], xerr=[[max(p - il, 0.0)], [max(ih - p, 0.0)]], fmt="none", ecolor="0.35",
-                        capsize=4, linewidth=1.2,
-                        label=None if "interval" in seen else f"99% Monte Carlo interval (resampled p{b_txt})")
-            seen.add("interval")
-            if cut:
-                ax.plot([il], [y], marker="<", color="0.35", markersize=6, linestyle="none")
-        if t is False:
-            ax.scatter([p], [y], marker="^", s=70, facecolors="white", edgecolors=_FLAG, linewidths=1.6, zorder=3,
-                       label=None if "u" in seen else "not trusted here (open triangle)")
-            seen.add("u")
-        else:
-            ax.scatter([p], [y], marker="o", s=60, color=_OK if t else _GREY, zorder=3,
-                       label=None if ("t", t) in seen else
-                       ("trusted here (filled circle)" if t else "no verdict (grey circle)"))
-            seen.add(("t", t))
+            bars.append((p, y, max(p - il, 0.0), max(ih - p, 0.0)))
+        kinds.setdefault(t, []).append((p, y))
         ax.text(1.06, y, _fmt_p(r["p"], r["resamples"]), transform=ax.get_yaxis_transform(), va="center",
                 fontsize=8, color="black" if t is not False else _FLAG)
+    if bars:
+        ax.errorbar([b[0] for b in bars], [b[1] for b in bars], xerr=[[b[2] for b in bars], [b[3] for b in bars]],
+                    fmt="none", ecolor="0.35", capsize=4, linewidth=1.2,
+                    label=f"99% Monte Carlo interval (resampled p{b_txt})")
+    if cut_at:
+        ax.plot([c[0] for c in cut_at], [c[1] for c in cut_at], marker="<", color="0.35", markersize=6,
+                linestyle="none")
+    for t in (True, None, False):  # legend entries in a fixed order
+        pts = kinds.get(t)
+        if not pts:
+            continue
+        xs, ys = [q[0] for q in pts], [q[1] for q in pts]
+        if t is False:
+            ax.scatter(xs, ys, marker="^", s=70, facecolors="white", edgecolors=_FLAG, linewidths=1.6, zorder=3,
+                       label="not trusted here (open triangle)")
+        else:
+            ax.scatter(xs, ys, marker="o", s=60, color=_OK if t else _GREY, zorder=3,
+                       label="trusted here (filled circle)" if t else "no verdict (grey circle)")
     ax.set_yticks(range(n), ticks)
     for lab, r in zip(ax.get_yticklabels(), rows):
         if r["trusted"] is False:

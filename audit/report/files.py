@@ -50,15 +50,31 @@ def write_report_files(findings, folder, *, report_dir: str | None = None, figur
     from .build import build_report, figures_from_files
 
     folder = os.fspath(folder)
-    drawn = []
+    expected: list[str] = []
     if figures and findings.figure_data:
+        from ..render.figures import check_figure_format, figure_file, figure_keys
+
+        fmt = check_figure_format(figure_format)
+        expected = [figure_file(k, fmt) for k in figure_keys(findings.figure_data)]
+        if workers is not None:
+            workers.early(findings.figure_data)  # every figure under way before the text is laid out
+
+    def lay_out(names):
+        report = build_report(findings, figures=figures_from_files(names), report_dir=report_dir)
+        return report, render_report_text(report), render_markdown(report)
+
+    # the text reports are laid out while the workers draw (the figure names are known in advance)
+    report, text, markdown = lay_out(expected)
+    drawn = []
+    if expected:
         from ..render.figures import write_figures
 
         drawn = [os.path.basename(p) for p in write_figures(findings.figure_data, folder, fmt=figure_format,
                                                              workers=workers, shown=report_dir)]
-    report = build_report(findings, figures=figures_from_files(drawn), report_dir=report_dir)
-    _write(os.path.join(folder, REPORT_FILES["text"]), render_report_text(report))
-    _write(os.path.join(folder, REPORT_FILES["markdown"]), render_markdown(report))
+        if drawn != expected:  # a figure had nothing to show after all
+            report, text, markdown = lay_out(drawn)
+    _write(os.path.join(folder, REPORT_FILES["text"]), text)
+    _write(os.path.join(folder, REPORT_FILES["markdown"]), markdown)
     _write(os.path.join(folder, REPORT_FILES["html"]), render_html(report, read_images(report, folder)))
     return report, [*REPORT_FILES.values(), *drawn]
 
