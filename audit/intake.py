@@ -64,7 +64,9 @@ RESPONSE_NA_TOKENS = frozenset({"na", "n/a", "nan", "."})
 _NUMBER_RE = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$")
 _DEC_COMMA_RE = re.compile(r"^[+-]?(\d+,\d*|,\d+)([eE][+-]?\d+)?$")
 #: a level that reads as a number with unit text around it: prefix and suffix hold no digits
-_UNIT_NUMBER_RE = re.compile(r"^(?P<pre>[^\d]*?)\s*(?P<num>[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)"
+#: a sign belongs to the number only at the start or after a space ("-5C", "temp -5"); after a
+#: letter it is a separator ("resin-3" is resin number 3, not minus 3)
+_UNIT_NUMBER_RE = re.compile(r"^(?P<pre>[^\d]*?)\s*(?P<num>(?:(?<!\S)[+-])?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)"
                              r"\s*(?P<suf>[^\d]*)$")
 #: how a factor's level order was chosen (the design block's ``level_order`` values)
 LEVEL_ORDERS = ("given", "numeric", "first appearance")

@@ -21,6 +21,10 @@ from audit.render.text import render_text
     (["-5C", "10C", "-20C"], ("-20C", "-5C", "10C")),
     (["week 10", "week 2"], ("week 2", "week 10")),
     (["2", "1", "0.5"], ("0.5", "1", "2")),
+    # a hyphen after a letter separates a name from its number (found on the speed benchmark's
+    # generated levels, shown as "resin-3, resin-2, resin-1, resin-0" before the fix)
+    (["resin-2", "resin-0", "resin-10", "resin-1"], ("resin-0", "resin-1", "resin-2", "resin-10")),
+    (["temp -5", "temp 10", "temp -20"], ("temp -20", "temp -5", "temp 10")),
 ])
 def test_numbers_with_one_unit_sort_numerically(levels, expected):
     # common practice: a dose or time factor reads in increasing order
