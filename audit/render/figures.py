@@ -139,14 +139,13 @@ def _p_axis(axis, lo: float | None = None, hi: float | None = None) -> None:
 
 
 def _fmt_p(p, resamples=None) -> str:
-    """A p-value for a label: 'p = .030', 'p < .001'; a resampled minimum as a bound."""
+    """A p-value for a label, in the report's one style ('p = .030', 'p < .001', a resampled
+    minimum as its bound 'p < .0057 (B = 173)'); see :mod:`audit.report.format`."""
     if p is None:
         return "no p"
-    if resamples and p <= 1.0 / (resamples + 1) * (1 + 1e-9):
-        return f"p <= 1/{resamples + 1:,}"
-    if p < 0.001:
-        return "p < .001"
-    return "p = " + f"{p:.3f}".lstrip("0")
+    from ..report.format import p_text
+
+    return p_text(p, resamples)
 
 
 def _short(text: str, width: int) -> str:
