@@ -109,9 +109,10 @@ def cell_sums(y: np.ndarray, cell: np.ndarray, JK: int) -> tuple[np.ndarray, np.
     return cell_moments(y, cell, JK)
 
 
-def _f_and_p(Q, sse, df1, df2):
-    """Vectorised classical F and p, following audit.core: when the error SS is
-    0 the F is infinite (p = 0) if Q > 0, else 0 (p = 1); NaN when a df is 0."""
+def _f_stat(Q, sse, df1, df2):
+    """Vectorised classical F, following audit.core: when the error SS is 0 the F
+    is infinite if Q > 0, else 0; NaN when a df is 0.  Returns (F, df1, df2) as
+    float arrays."""
     Q = np.maximum(np.asarray(Q, dtype=float), 0.0)
     sse = np.maximum(np.asarray(sse, dtype=float), 0.0)
     df1 = np.asarray(df1, dtype=float)
@@ -121,12 +122,25 @@ def _f_and_p(Q, sse, df1, df2):
         F = (Q / df1) / (sse / df2)
     F = np.where(sse > 0, F, np.where(Q > 0, np.inf, 0.0))
     F = np.where(ok, F, np.nan)
+    return F, df1, df2
+
+
+def _p_of_f(F, df1, df2):
+    """Upper-tail p of F(df1, df2): NaN where F is NaN, 0 where F is infinite."""
+    F = np.asarray(F, dtype=float)
     p = np.full(F.shape, np.nan)
-    fin = ok & np.isfinite(F)
+    fin = np.isfinite(F)
     if fin.any():
-        p[fin] = stats.f.sf(F[fin], df1[fin], df2[fin])
-    p[ok & np.isinf(F)] = 0.0
-    return F, p
+        p[fin] = stats.f.sf(F[fin], np.broadcast_to(df1, F.shape)[fin], np.broadcast_to(df2, F.shape)[fin])
+    p[np.isinf(F)] = 0.0
+    return p
+
+
+def _f_and_p(Q, sse, df1, df2):
+    """Vectorised classical F and p, following audit.core: when the error SS is
+    0 the F is infinite (p = 0) if Q > 0, else 0 (p = 1); NaN when a df is 0."""
+    F, df1, df2 = _f_stat(Q, sse, df1, df2)
+    return F, _p_of_f(F, df1, df2)
 
 
 def interaction_test(counts: np.ndarray, means: np.ndarray, css: np.ndarray, J: int, K: int):
@@ -150,23 +164,13 @@ def interaction_test(counts: np.ndarray, means: np.ndarray, css: np.ndarray, J: 
     return float(F), df1, df2, float(p)
 
 
-def loo_interaction(y: np.ndarray, cell: np.ndarray, J: int, K: int):
-    """Exact leave-one-out interaction F test for every observation, in closed form.
+def _loo_sums(y: np.ndarray, cell: np.ndarray, J: int, K: int):
+    """Interaction SS Q_i, error SS and degrees of freedom of the classical
+    interaction test after deleting each observation i, in closed form.
 
-    Parameters
-    ----------
-    y : ndarray (N,)
-        Response (any constant offset).
-    cell : ndarray of int (N,)
-        Cell index a * K + b.
-    J, K : int
-        Numbers of levels of A and B.
-
-    Returns
-    -------
-    F, p, df1, df2 : ndarrays (N,)
-        The interaction F and p after deleting each observation (NaN where the
-        test cannot be formed), with its degrees of freedom.
+    Returns Q, sse, df1, df2 as ndarrays (N,) (df as int64); the F and p are
+    formed by the callers (:func:`loo_interaction`, and :func:`fragility`, which
+    needs p only for the few candidates it compares).
 
     Notes
     -----
@@ -242,6 +246,33 @@ def loo_interaction(y: np.ndarray, cell: np.ndarray, J: int, K: int):
         sse_i[single] = sse
         df1[single] = (m - 1) - (rank - bridge[cs].astype(np.int64))
         df2[single] = (N - 1) - (m - 1)
+    return Q, sse_i, df1, df2
+
+
+def loo_interaction(y: np.ndarray, cell: np.ndarray, J: int, K: int):
+    """Exact leave-one-out interaction F test for every observation, in closed form.
+
+    Parameters
+    ----------
+    y : ndarray (N,)
+        Response (any constant offset).
+    cell : ndarray of int (N,)
+        Cell index a * K + b.
+    J, K : int
+        Numbers of levels of A and B.
+
+    Returns
+    -------
+    F, p, df1, df2 : ndarrays (N,)
+        The interaction F and p after deleting each observation (NaN where the
+        test cannot be formed), with its degrees of freedom.
+
+    Notes
+    -----
+    See :func:`_loo_sums` for the closed form: O(N) plus one solve of at most
+    min(J, K) - 1 unknowns; nothing is refitted per observation or per cell.
+    """
+    Q, sse_i, df1, df2 = _loo_sums(y, cell, J, K)
     F, p = _f_and_p(Q, sse_i, df1, df2)
     return F, p, df1, df2
 
@@ -548,6 +579,46 @@ def _fragility_severity(k, sig0: bool) -> str:
     return "concern" if k <= 2 else "minor"
 
 
+def _greedy_pick(F, df1, df2, sig0: bool) -> tuple[int, float]:
+    """The deletion a greedy fragility step makes: among the rows whose test can be
+    formed (F not NaN), the largest p (then the smallest F, then the first row) when
+    ``sig0``, else the smallest p (then the largest F, then the first row).
+    Returns (row position, its p), or (-1, nan) when no row qualifies.
+
+    p is a non-increasing function of F for given degrees of freedom, so within a
+    group of rows sharing (df1, df2) that order is the order of F alone, ties by
+    position: the best row of each group is its smallest (largest) F, first
+    occurrence.  Only those few candidates (one per df pair: every row of a cell with
+    n >= 2 shares one pair, rows alone in their cell at most two more) get a p, and
+    the full order above decides among them.  So a step costs O(N) array passes and
+    a handful of F tail areas, not N of them, and picks the row the full order picks.
+    """
+    valid = ~np.isnan(F)
+    if not valid.any():
+        return -1, math.nan
+    key = df1 * (np.max(df2) + 1.0) + df2
+    first = key[np.argmax(valid)]
+    same = valid & (key == first)
+    groups = [same]
+    rest = valid & ~same
+    if rest.any():
+        for kv in np.unique(key[rest]):
+            groups.append(rest & (key == kv))
+    cand = []
+    for g in groups:
+        pos = np.flatnonzero(g)
+        Fg = F[pos]                         # +inf (error SS 0) counts as the largest F
+        cand.append(int(pos[np.argmin(Fg) if sig0 else np.argmax(Fg)]))
+    cand = np.array(cand, dtype=np.int64)
+    pc = _p_of_f(F[cand], df1[cand], df2[cand])
+    Fc = F[cand]
+    if sig0:  # want the largest p (then the smallest F)
+        o = np.lexsort((cand, Fc, -pc))
+    else:     # want the smallest p (then the largest F)
+        o = np.lexsort((cand, -Fc, pc))
+    return int(cand[o[0]]), float(pc[o[0]])
+
+
 def fragility(fit, *, max_steps: int = FRAGILITY_MAX_STEPS) -> Diagnostic:
     """Smallest number of greedy deletions that flips the interaction decision.
 
@@ -601,23 +672,15 @@ def fragility(fit, *, max_steps: int = FRAGILITY_MAX_STEPS) -> Diagnostic:
     exhausted = False
     for _ in range(max_steps):
         idx = np.flatnonzero(keep)
-        F, p, _d1, _d2 = loo_interaction(y_all[idx], cell_all[idx], J, K)
-        valid = np.isfinite(p)
-        if not valid.any():
+        best, p_best = _greedy_pick(*_f_stat(*_loo_sums(y_all[idx], cell_all[idx], J, K)), sig0)
+        if best < 0:
             exhausted = True
             break
-        Fv = np.where(np.isfinite(F), F, np.inf)
-        cand = np.flatnonzero(valid)
-        if sig0:  # want the largest p (then the smallest F)
-            o = np.lexsort((np.arange(cand.size), Fv[cand], -p[cand]))
-        else:     # want the smallest p (then the largest F)
-            o = np.lexsort((np.arange(cand.size), -Fv[cand], p[cand]))
-        best = cand[o[0]]
         i = int(idx[best])
         keep[i] = False
         deleted.append(i)
-        path.append(float(p[best]))
-        if decision(p[best], alpha) != sig0:
+        path.append(p_best)
+        if decision(p_best, alpha) != sig0:
             flipped = True
             break
     k = len(deleted) if flipped else None
