@@ -1,0 +1,165 @@
+"""Large-N shortcuts: the fragility step's candidate pick and the size check's
+moment-matched draws for large cells.
+
+References: statsmodels (ols + anova_lm refits), scipy.stats.f.sf; the moments of the
+sample mean and variance (Cramer 1946, Mathematical Methods of Statistics, sec. 27.4;
+common practice).  Invented data (a kiln-glaze hardness scenario) only where the check
+is a property of the method.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.formula.api as smf
+from numpy.testing import assert_allclose
+from scipy import stats
+from statsmodels.stats.anova import anova_lm
+
+import audit.verdict.calibration as cal
+from audit.diagnostics.influence import _f_stat, _greedy_pick, _loo_sums, fragility, loo_interaction
+from audit.fit import fit_observations
+from audit.intake import load
+
+
+def _frame(counts, sd, seed, *, dup=False, shift=0.0):
+    rng = np.random.default_rng(seed)
+    rows = []
+    for j in range(counts.shape[0]):
+        for k in range(counts.shape[1]):
+            n = int(counts[j, k])
+            y = 10 + j + 0.5 * k + shift * (j == k) + sd[j, k] * rng.standard_normal(n)
+            if dup:
+                y = np.round(y, 0)
+            rows.append(pd.DataFrame({"kiln": [f"k{j}"] * n, "glaze": [f"g{k}"] * n, "hardness": y}))
+    return pd.concat(rows, ignore_index=True).sample(frac=1.0, random_state=seed).reset_index(drop=True)
+
+
+def _full_order_pick(y, cell, J, K, sig0):
+    # reference: every row's p by scipy.stats.f.sf and the full lexicographic order
+    # (largest p, then smallest F, then first row; the reverse when not significant)
+    F, p, _, _ = loo_interaction(y, cell, J, K)
+    valid = np.isfinite(p)
+    Fv = np.where(np.isfinite(F), F, np.inf)
+    cand = np.flatnonzero(valid)
+    if sig0:
+        o = np.lexsort((np.arange(cand.size), Fv[cand], -p[cand]))
+    else:
+        o = np.lexsort((np.arange(cand.size), -Fv[cand], p[cand]))
+    return int(cand[o[0]]), float(p[cand[o[0]]])
+
+
+COUNTS = np.array([[1, 4, 6], [5, 1, 3], [2, 7, 4]])
+
+
+@pytest.mark.parametrize("seed", range(6))
+@pytest.mark.parametrize("dup", [False, True])
+def test_greedy_pick_is_the_full_order_pick(seed, dup):
+    # cells of one observation give rows with other degrees of freedom; rounded data give ties
+    df = _frame(COUNTS, np.ones((3, 3)) * 2.0, seed, dup=dup, shift=3.0 * (seed % 2))
+    fit = fit_observations(load(df, response="hardness", factors=("kiln", "glaze")))
+    y, cell = np.asarray(fit.obs.y, float), fit.obs.cell
+    F, d1, d2 = _f_stat(*_loo_sums(y, cell, 3, 3))
+    for sig0 in (True, False):
+        assert _greedy_pick(F, d1, d2, sig0) == _full_order_pick(y, cell, 3, 3, sig0)
+
+
+def test_fragility_first_deletion_matches_statsmodels_refits():
+    # reference: statsmodels ols + anova_lm(typ=2) refitted without each row in turn; the
+    # greedy step deletes the row whose deletion gives the largest interaction p
+    counts = np.array([[4, 6, 5], [6, 4, 5], [5, 5, 6]])
+    df = _frame(counts, np.ones((3, 3)), 11, shift=1.5)
+    fit = fit_observations(load(df, response="hardness", factors=("kiln", "glaze")))
+    frag = fragility(fit, max_steps=1)
+    formula = "hardness ~ C(kiln, Sum) * C(glaze, Sum)"
+    ps = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        p_full = anova_lm(smf.ols(formula, data=df).fit(), typ=2).loc["C(kiln, Sum):C(glaze, Sum)", "PR(>F)"]
+        for i in range(len(df)):
+            t = anova_lm(smf.ols(formula, data=df.drop(index=i)).fit(), typ=2)
+            ps.append(t.loc["C(kiln, Sum):C(glaze, Sum)", "PR(>F)"])
+    ps = np.array(ps)
+    sig0 = p_full < 0.05
+    best = int(np.argmax(ps) if sig0 else np.argmin(ps))
+    v = frag.values
+    deleted_pos = list(np.asarray(fit.obs.rows)).index(v["rows_tried"][0])
+    assert deleted_pos == best
+    assert_allclose(v["p_path"][0], ps[best], rtol=1e-9)
+
+
+# ----------------------------------------------------------------------------- size check
+
+
+def test_moment_matched_cells_have_the_sample_moments():
+    # source: moments of the sample mean and variance of n i.i.d. draws (Cramer 1946,
+    # sec. 27.4): Var mean = s2/n, Var s^2 = (mu4 - s2^2 (n-3)/(n-1))/n, Cov = mu3/n
+    rng = np.random.default_rng(5)
+    pool = rng.exponential(1.0, 4000) - 1.0
+    mom = cal._pool_moments(pool)
+    mu, s2, mu3, mu4 = mom
+    n = np.array([1000, 5000])
+    m, css = cal._moment_matched_cells(np.random.default_rng(1), n, mom, 200_000)
+    v = css / (n - 1)
+    assert np.all(np.abs(m.mean(axis=0) - mu) <= 5 * np.sqrt(s2 / n / 200_000))
+    assert_allclose(m.var(axis=0), s2 / n, rtol=0.02)
+    assert_allclose(v.mean(axis=0), s2, rtol=0.002)
+    assert_allclose(v.var(axis=0), (mu4 - s2 ** 2 * (n - 3) / (n - 1)) / n, rtol=0.02)
+    cov = ((m - m.mean(axis=0)) * (v - v.mean(axis=0))).mean(axis=0)
+    assert_allclose(cov, mu3 / n, rtol=0.05)
+    # and the same moments as exact resampling from the pool (R = 4,000 replications)
+    me, csse = cal._resample_cells(np.random.default_rng(2), np.array([1000]), pool, 4000)
+    ve = csse[:, 0] / 999
+    assert_allclose(ve.var(), (mu4 - s2 ** 2 * 997 / 999) / 1000, rtol=0.1)
+    assert_allclose(me[:, 0].var(), s2 / 1000, rtol=0.1)
+
+
+def test_small_cells_keep_exact_resampling():
+    # with every cell below LARGE_CELL the draws are exactly those of exact resampling
+    counts = np.array([[20, 30], [25, 40]])
+    df = _frame(counts, np.array([[1.0, 2.0], [1.5, 1.0]]), 3)
+    fit = fit_observations(load(df, response="hardness", factors=("kiln", "glaze")))
+    pool = cal._standardised_pool(fit)
+    n = fit.cells.counts.ravel()
+    a = cal._simulate_cells(np.random.default_rng(9), n, pool, 300)
+    b = cal._resample_cells(np.random.default_rng(9), n, pool, 300)
+    assert_allclose(a[0], b[0], rtol=0, atol=0)
+    assert_allclose(a[1], b[1], rtol=0, atol=0)
+
+
+def test_large_cell_shortcut_agrees_with_exact_resampling(monkeypatch):
+    # reference: the exact resampling of every error (the check's own definition), run on
+    # the same moderate design; the two size estimates are independent Monte Carlo
+    # estimates, so they must agree within 4 standard errors of their difference
+    counts = np.array([[300, 600, 900], [900, 600, 300]])
+    sd = 2.0 / np.sqrt(counts / 300.0)            # variances paired with cell sizes: liberal F
+    df = _frame(counts, sd, 21)
+    fit = fit_observations(load(df, response="hardness", factors=("kiln", "glaze")))
+    R = 3000
+    monkeypatch.setattr(cal, "LARGE_CELL", 10**9)
+    exact = cal.size_check(fit, replications=R, seed=4)
+    monkeypatch.setattr(cal, "LARGE_CELL", 2)
+    approx = cal.size_check(fit, replications=R, seed=4)
+    assert approx.error_source == exact.error_source == "resampled-residuals"
+    for r1 in exact.rows:
+        r2 = approx.row(r1.method, r1.effect)
+        se = np.sqrt(r1.size * (1 - r1.size) / R + r2.size * (1 - r2.size) / R)
+        assert abs(r1.size - r2.size) <= 4 * se + 1e-12, (r1.method, r1.effect, r1.size, r2.size)
+    assert exact.row("classical-f", "AB").status == approx.row("classical-f", "AB").status == "liberal"
+
+
+def test_heavy_tails_keep_exact_resampling():
+    # a pool whose kurtosis makes the sample variance too variable (CV above LARGE_CELL_CV)
+    # is resampled exactly even in cells above LARGE_CELL
+    rng = np.random.default_rng(3)
+    pool = rng.standard_t(2.5, 20_000)
+    pool = (pool - pool.mean()) / pool.std()
+    mom = cal._pool_moments(pool)
+    n = np.array([1200, 1500])
+    assert (cal._s2_cv(n, mom) > cal.LARGE_CELL_CV).all()
+    a = cal._simulate_cells(np.random.default_rng(9), n, pool, 50)
+    b = cal._resample_cells(np.random.default_rng(9), n, pool, 50)
+    assert_allclose(a[1], b[1], rtol=0, atol=0)
