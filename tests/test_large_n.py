@@ -251,3 +251,45 @@ def test_large_n_permutation_same_seed_same_numbers_whatever_the_chunk(monkeypat
     s1 = _studentized(fit, ("AB",), 499, 5, None, exact=True)
     s2 = _studentized(fit, ("AB",), 499, 5, None, exact=True, budget=54 * 8 * 3 * 13)
     assert s1[0].p == s2[0].p
+
+
+# ----------------------------------------------------------------------------- fragility search
+
+
+def _fragility_every_row(fit, max_steps):
+    # reference: the greedy search evaluating every kept row at each step (loo_interaction on
+    # the kept rows, scipy.stats.f.sf for every p, the full lexicographic order)
+    from audit.decision import decision
+
+    y, cell = np.asarray(fit.obs.y, float), fit.obs.cell
+    J, K = fit.cells.J, fit.cells.K
+    sig0 = decision(float(fit.anova.tables["II"].row("AB").p), fit.alpha)
+    keep = np.ones(y.size, bool)
+    rows, path = [], []
+    for _ in range(max_steps):
+        idx = np.flatnonzero(keep)
+        best, p = _full_order_pick(y[idx], cell[idx], J, K, sig0)
+        keep[idx[best]] = False
+        rows.append(int(fit.obs.rows[idx[best]]))
+        path.append(p)
+        if decision(p, fit.alpha) != sig0:
+            break
+    return rows, path
+
+
+@pytest.mark.parametrize("seed,shift,dup", [(1, 0.0, False), (2, 0.6, False), (3, 0.25, False),
+                                            (4, 0.0, True), (5, 0.6, True)])
+def test_fragility_search_picks_what_every_row_picks(monkeypatch, seed, shift, dup):
+    # cells of 150-400 rows, searched (SEARCH_MIN_CELL lowered); non-significant (smallest p wanted,
+    # extremes) and significant (largest p wanted, interior minimum) interactions; rounded data
+    # (ties, flat ranges: whole-cell fallback)
+    import audit.diagnostics.influence as inf
+
+    monkeypatch.setattr(inf, "SEARCH_MIN_CELL", 140)
+    counts = np.array([[150, 400, 220], [300, 180, 260]])
+    df = _frame(counts, np.array([[1.0, 2.0, 1.5], [2.5, 1.0, 1.2]]), seed, dup=dup, shift=shift)
+    fit = fit_observations(load(df, response="hardness", factors=("kiln", "glaze")))
+    frag = fragility(fit, max_steps=8)
+    rows, path = _fragility_every_row(fit, 8)
+    assert frag.values["rows_tried"] == rows
+    assert frag.values["p_path"] == path
