@@ -127,6 +127,8 @@ FIRST_CHUNK = 128
 #: the row indices and forms the sign-flipped cell sums as one matrix product (see
 #: "Large N" in :func:`run_jobs`); below it every number is as before
 LARGE_N = 200_000
+#: rows x columns of sign bits converted to 0/1 floats at a time at large N (a 1 MB block)
+_SIGN_ROWS, _SIGN_SPAN = 16, 8192
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -792,7 +794,7 @@ def run_jobs(
     else:
         base = np.arange(N, dtype=np.intp)
     b = min(b_max, FIRST_CHUNK) if sequential else b_max
-    idx = W = None
+    idx = W = U = U_live = buf = None
     done = 0
     largest = 0
     while done < B:
@@ -807,16 +809,34 @@ def run_jobs(
             I = idx[:bb]
             I[...] = base
             rng.permuted(I, axis=1, out=I)
-            lab = [I[r].astype(np.intp) for r in range(bb)]
+            # row by row (the row's labels stay in cache): each live job's cell sums
+            S_lab = {k: np.empty((bb, m)) for k in live}
+            SQ_lab = {k: np.empty((bb, m)) for k in live if jobs[k].squares}
+            for r in range(bb):
+                L = I[r].astype(np.intp)
+                for k in live:
+                    S_lab[k][r] = np.bincount(L, weights=jobs[k].u, minlength=m)
+                    if k in SQ_lab:
+                        SQ_lab[k][r] = np.bincount(L, weights=usq[k], minlength=m)
         elif large:
             raw = rng.bit_generator.random_raw((bb, nwords))
-            negf = np.unpackbits(raw.view(np.uint8), axis=1, count=N, bitorder="little").astype(float)
+            bits = np.unpackbits(raw.view(np.uint8), axis=1, count=N, bitorder="little")
             del raw
-            U = np.stack([jobs[k].u for k in live], axis=1)
-            flips = np.empty((bb, m, len(live)))
-            for c in range(m):
-                flips[:, c, :] = negf[:, bounds[c]:bounds[c + 1]] @ U[bounds[c]:bounds[c + 1]]
-            del negf, U
+            if U is None or U_live != live:
+                U, U_live = np.stack([jobs[k].u for k in live], axis=1), list(live)
+            if buf is None:
+                buf = np.empty(_SIGN_ROWS * _SIGN_SPAN)
+            # sum over flipped rows, per cell, in blocks of rows x columns small enough for the cache
+            flips = np.zeros((bb, m, len(live)))
+            for r0 in range(0, bb, _SIGN_ROWS):
+                r1 = min(r0 + _SIGN_ROWS, bb)
+                for c in range(m):
+                    for s0 in range(int(bounds[c]), int(bounds[c + 1]), _SIGN_SPAN):
+                        s1 = min(s0 + _SIGN_SPAN, int(bounds[c + 1]))
+                        blk = buf[:(r1 - r0) * (s1 - s0)].reshape(r1 - r0, s1 - s0)   # contiguous for BLAS
+                        np.copyto(blk, bits[r0:r1, s0:s1])
+                        flips[r0:r1, c, :] += blk @ U[s0:s1]
+            del bits
         else:
             if W is None or W.shape[0] < bb:
                 W = np.empty((bb, N))
@@ -833,9 +853,7 @@ def run_jobs(
         for li, k in enumerate(live):
             job = jobs[k]
             if large and scheme == "permute":
-                S = np.stack([np.bincount(L, weights=job.u, minlength=m) for L in lab])
-                SQ = (np.stack([np.bincount(L, weights=usq[k], minlength=m) for L in lab])
-                      if job.squares else None)
+                S, SQ = S_lab[k], SQ_lab.get(k)
             elif large:
                 S = tot[k][None, :] - 2.0 * flips[:, :, li]
                 SQ = None if sq0[k] is None else np.broadcast_to(sq0[k], S.shape)
