@@ -744,14 +744,10 @@ def _simulate_cells(rng, counts, pool, R: int, *, large_cell=None):
         g = rng.standard_gamma(np.where(shape > 0, shape, 1.0), size=(R, m))
         css = np.where(shape > 0, 2.0 * g, 0.0)
         return means, css
-    n0 = LARGE_CELL if large_cell is None else large_cell
-    big = counts >= n0
+    big = _large_cells(counts, pool, large_cell)
     if not big.any():
         return _resample_cells(rng, counts, pool, R)
     moments = _pool_moments(pool)
-    big &= _s2_cv(counts, moments) <= LARGE_CELL_CV
-    if not big.any():
-        return _resample_cells(rng, counts, pool, R)
     means = np.empty((R, m))
     css = np.empty((R, m))
     small = ~big
@@ -759,6 +755,16 @@ def _simulate_cells(rng, counts, pool, R: int, *, large_cell=None):
         means[:, small], css[:, small] = _resample_cells(rng, counts[small], pool, R)
     means[:, big], css[:, big] = _moment_matched_cells(rng, counts[big], moments, R)
     return means, css
+
+
+def _large_cells(counts, pool, large_cell=None) -> np.ndarray:
+    """Cells drawn from the moment-matched approximation: n >= LARGE_CELL (or
+    ``large_cell``) and a sample-variance CV of at most LARGE_CELL_CV under ``pool``."""
+    counts = np.asarray(counts, dtype=np.int64)
+    big = counts >= (LARGE_CELL if large_cell is None else large_cell)
+    if big.any():
+        big &= _s2_cv(counts, _pool_moments(pool)) <= LARGE_CELL_CV
+    return big
 
 
 def _s2_cv(counts, moments) -> np.ndarray:
@@ -960,6 +966,13 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
             source = "resampled-residuals"
             enote = (f"errors resampled from the {pool.size} pooled standardised residuals "
                      "(e_i / s_cell * sqrt(n/(n-1))) and rescaled to each cell's SD")
+            n_big = int(_large_cells(n, pool).sum())
+            if n_big:
+                enote += (f"; in the {n_big} cell(s) with {LARGE_CELL:,} or more observations (and a sample "
+                          "variance that varies little under this residual shape) the mean and variance of "
+                          "the resampled errors are drawn from their moment-matched normal approximation "
+                          "instead of resampling each error (Cramer 1946; within Monte Carlo error of full "
+                          "resampling in the project's comparison study)")
         else:
             source = "normal"
             enote = ("normal errors (only cell summaries are known, so the residual shape cannot be kept)"
