@@ -12,6 +12,8 @@ of length N.  The engine therefore
 * forms the cell sums of the whole chunk with one ``np.add.reduceat`` along the
   rows, and the statistics from those (b, m) sums with small precomputed
   matrices: no Python loop per resample and no model refit per resample.
+  From :data:`LARGE_N` rows on, permutations shuffle the cell labels instead and
+  sign flips are summed as matrix products (see :func:`run_jobs`, "Large N").
 
 The chunk size is chosen from a memory budget (:data:`MEMORY_BUDGET`) that
 counts, per resample, the (b, N) draws, the (b, m) cell sums and the
