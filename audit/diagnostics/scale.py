@@ -232,16 +232,25 @@ class _Profile:
         return np.where(small, self.ly[None, :], z)
 
     def sse_scaled(self, lams) -> np.ndarray:
+        # one lambda at a time in two reused buffers (the same operations, hence the same
+        # numbers, as transforming a batch of lambdas; no (lambdas, N) temporaries)
         lams = np.atleast_1d(np.asarray(lams, dtype=float))
         out = np.empty(lams.size)
-        step = max(1, 2_000_000 // max(self.N, 1))
-        for s0 in range(0, lams.size, step):
-            z = self.transform(lams[s0:s0 + step])
-            mu = np.add.reduceat(z, self.starts, axis=1) / self.n
-            d = z - mu[:, self.rep]
-            mu = mu + np.add.reduceat(d, self.starts, axis=1) / self.n
-            d = z - mu[:, self.rep]
-            out[s0:s0 + step] = np.sum(d * d, axis=1)
+        counts = np.diff(np.append(self.starts, self.N))
+        z, d = np.empty(self.N), np.empty(self.N)
+        for i, lam in enumerate(lams):
+            if abs(lam) < 1e-12:
+                z[:] = self.ly
+            else:
+                np.multiply(lam, self.ly, out=z)
+                np.expm1(z, out=z)
+                np.divide(z, lam, out=z)
+            mu = np.add.reduceat(z, self.starts) / self.n
+            np.subtract(z, np.repeat(mu, counts), out=d)
+            mu = mu + np.add.reduceat(d, self.starts) / self.n
+            np.subtract(z, np.repeat(mu, counts), out=d)
+            np.multiply(d, d, out=d)
+            out[i] = np.sum(d)
         return out
 
     def loglik(self, lams) -> np.ndarray:

@@ -12,6 +12,8 @@ of length N.  The engine therefore
 * forms the cell sums of the whole chunk with one ``np.add.reduceat`` along the
   rows, and the statistics from those (b, m) sums with small precomputed
   matrices: no Python loop per resample and no model refit per resample.
+  From :data:`LARGE_N` rows on, permutations shuffle the cell labels instead and
+  sign flips are summed as matrix products (see :func:`run_jobs`, "Large N").
 
 The chunk size is chosen from a memory budget (:data:`MEMORY_BUDGET`) that
 counts, per resample, the (b, N) draws, the (b, m) cell sums and the
@@ -123,6 +125,12 @@ STOPPING_RULE = (f"sequential Monte Carlo test (Gandy 2009), resampling risk {SE
                  f"spending eps n/(n + {SPENDING_K})")
 #: first chunk of a sequential run; later chunks double up to the memory budget's size
 FIRST_CHUNK = 128
+#: from this many observations on, :func:`run_jobs` permutes the cell labels instead of
+#: the row indices and forms the sign-flipped cell sums as one matrix product (see
+#: "Large N" in :func:`run_jobs`); below it every number is as before
+LARGE_N = 200_000
+#: rows x columns of sign bits converted to 0/1 floats at a time at large N (a 1 MB block)
+_SIGN_ROWS, _SIGN_SPAN = 16, 8192
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -736,6 +744,23 @@ def run_jobs(
     about as many resamples are drawn past the stop as before it.
 
     ``exact`` (or ``alpha`` None): all B resamples for every effect.
+
+    Large N (N >= :data:`LARGE_N`): gathering every job's vector through a (b, N) block of
+    random indices reads memory at random, once per job.  Instead,
+
+    * 'permute' shuffles the cell LABELS of the cell-sorted rows (one byte per row when
+      there are at most 256 filled cells) with the same generator calls, row by row, and
+      forms each job's cell sums as ``bincount(labels, weights=u)`` (sums of squares with
+      weights u^2): vector u_j goes to the cell of the shuffled label at j.  If the index
+      shuffle would have drawn the permutation pi, the label shuffle gives the cell sums of
+      pi^-1 instead; pi -> pi^-1 is a bijection of the permutations, so every resample is
+      still a uniformly random permutation, shared by all jobs, and the sequential rule and
+      its guarantee are unchanged - but the resamples drawn from a given seed are not those
+      drawn below LARGE_N (the p-values are other Monte Carlo draws of the same test).
+    * 'sign' converts the sign bits to a 0/1 matrix once and forms, for all live jobs at
+      once, S = sum(u) - 2 (bits @ u) per cell block (one matrix product per cell): the
+      same signs and the same resamples as below LARGE_N; the cell sums differ only by
+      rounding (summation order).
     """
     B = int(resamples)
     N = layout.N
@@ -756,13 +781,22 @@ def run_jobs(
         obs = np.atleast_1d(np.asarray(j.observed, dtype=float))
         with np.errstate(invalid="ignore"):      # inf - inf in the branch np.where discards
             thr.append(np.where(np.isfinite(obs), obs - TIE_RTOL * np.abs(obs), obs))
+    large = N >= LARGE_N
+    m = layout.m
+    bounds = np.append(starts, N)
     if scheme == "sign":
         nwords = (N + 63) // 64
         sq0 = [np.add.reduceat((j.u * j.u)[None, :], starts, axis=1) if j.squares else None for j in jobs]
+        if large:
+            tot = [np.add.reduceat(j.u, starts) for j in jobs]
+    elif large:
+        ldt = np.uint8 if m <= 2**8 else (np.uint16 if m <= 2**16 else np.int64)
+        base = np.repeat(np.arange(m, dtype=ldt), np.diff(bounds))
+        usq = [j.u * j.u if j.squares else None for j in jobs]
     else:
         base = np.arange(N, dtype=np.intp)
     b = min(b_max, FIRST_CHUNK) if sequential else b_max
-    idx = W = None
+    idx = W = U = U_live = buf = None
     done = 0
     largest = 0
     while done < B:
@@ -771,21 +805,61 @@ def run_jobs(
             break
         bb = min(b, B - done)
         largest = max(largest, bb)
-        if W is None or W.shape[0] < bb:
-            W = np.empty((bb, N))
-            idx = np.empty((bb, N), dtype=np.intp) if scheme == "permute" else None
-        Wb = W[:bb]
-        if scheme == "permute":
+        if large and scheme == "permute":
+            if idx is None or idx.shape[0] < bb:
+                idx = np.empty((bb, N), dtype=base.dtype)
             I = idx[:bb]
             I[...] = base
             rng.permuted(I, axis=1, out=I)
-        else:
+            # row by row (the row's labels stay in cache): each live job's cell sums
+            S_lab = {k: np.empty((bb, m)) for k in live}
+            SQ_lab = {k: np.empty((bb, m)) for k in live if jobs[k].squares}
+            for r in range(bb):
+                L = I[r].astype(np.intp)
+                for k in live:
+                    S_lab[k][r] = np.bincount(L, weights=jobs[k].u, minlength=m)
+                    if k in SQ_lab:
+                        SQ_lab[k][r] = np.bincount(L, weights=usq[k], minlength=m)
+        elif large:
             raw = rng.bit_generator.random_raw((bb, nwords))
-            neg = np.unpackbits(raw.view(np.uint8), axis=1, count=N, bitorder="little").view(bool)
+            bits = np.unpackbits(raw.view(np.uint8), axis=1, count=N, bitorder="little")
             del raw
-        for k in live:
-            job = jobs[k]
+            if U is None or U_live != live:
+                U, U_live = np.stack([jobs[k].u for k in live], axis=1), list(live)
+            if buf is None:
+                buf = np.empty(_SIGN_ROWS * _SIGN_SPAN)
+            # sum over flipped rows, per cell, in blocks of rows x columns small enough for the cache
+            flips = np.zeros((bb, m, len(live)))
+            for r0 in range(0, bb, _SIGN_ROWS):
+                r1 = min(r0 + _SIGN_ROWS, bb)
+                for c in range(m):
+                    for s0 in range(int(bounds[c]), int(bounds[c + 1]), _SIGN_SPAN):
+                        s1 = min(s0 + _SIGN_SPAN, int(bounds[c + 1]))
+                        blk = buf[:(r1 - r0) * (s1 - s0)].reshape(r1 - r0, s1 - s0)   # contiguous for BLAS
+                        np.copyto(blk, bits[r0:r1, s0:s1])
+                        flips[r0:r1, c, :] += blk @ U[s0:s1]
+            del bits
+        else:
+            if W is None or W.shape[0] < bb:
+                W = np.empty((bb, N))
+                idx = np.empty((bb, N), dtype=np.intp) if scheme == "permute" else None
+            Wb = W[:bb]
             if scheme == "permute":
+                I = idx[:bb]
+                I[...] = base
+                rng.permuted(I, axis=1, out=I)
+            else:
+                raw = rng.bit_generator.random_raw((bb, nwords))
+                neg = np.unpackbits(raw.view(np.uint8), axis=1, count=N, bitorder="little").view(bool)
+                del raw
+        for li, k in enumerate(live):
+            job = jobs[k]
+            if large and scheme == "permute":
+                S, SQ = S_lab[k], SQ_lab.get(k)
+            elif large:
+                S = tot[k][None, :] - 2.0 * flips[:, :, li]
+                SQ = None if sq0[k] is None else np.broadcast_to(sq0[k], S.shape)
+            elif scheme == "permute":
                 np.take(job.u, I, out=Wb)
                 S = np.add.reduceat(Wb, starts, axis=1)
                 SQ = None

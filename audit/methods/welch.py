@@ -316,7 +316,7 @@ def welch_james(fit: Fit, *, effect: str = "AB") -> MethodResult:
     return _result_from_core("welch-james", effect, *out, C.shape[0], notes, {"gamma": 0.0})
 
 
-def welch_james_trimmed(fit: Fit, *, effect: str = "AB", gamma: float = 0.2) -> MethodResult:
+def welch_james_trimmed(fit: Fit, *, effect: str = "AB", gamma: float = 0.2, _stats=None) -> MethodResult:
     """Welch-James test on gamma-trimmed means with Winsorized variances.
 
     Needs the raw data (trimmed means are not in a summary table) and
@@ -336,7 +336,9 @@ def welch_james_trimmed(fit: Fit, *, effect: str = "AB", gamma: float = 0.2) -> 
         return _degenerate(mid, effect, reason, extra={"gamma": gamma})
     m = cells.J * cells.K
     unit = cells.standardised().unit   # exact power of two: squares stay in range at every data scale
-    tmean, wvar, n, h = trimmed_cell_stats(fit.obs.y / unit, fit.obs.cell, m, gamma=gamma)
+    if _stats is None:       # computed once for all effects by welch_james_trimmed_all
+        _stats = _trimmed_stats(fit, gamma)
+    tmean, wvar, n, h = _stats
     bad_h = filled & (h < 2)
     if bad_h.any():
         bad = [f"{cells.cell_label(i // cells.K, i % cells.K)} (n = {n[i]}, h = {h[i]})"
@@ -374,6 +376,16 @@ def welch_james_all(fit: Fit) -> tuple[MethodResult, ...]:
     return tuple(welch_james(fit, effect=e) for e in EFFECTS)
 
 
+def _trimmed_stats(fit: Fit, gamma: float):
+    cells = fit.cells
+    unit = cells.standardised().unit   # exact power of two: squares stay in range at every data scale
+    return trimmed_cell_stats(fit.obs.y / unit, fit.obs.cell, cells.J * cells.K, gamma=gamma)
+
+
 def welch_james_trimmed_all(fit: Fit, *, gamma: float = 0.2) -> tuple[MethodResult, ...]:
-    """Trimmed Welch-James results for A, B and AB."""
-    return tuple(welch_james_trimmed(fit, effect=e, gamma=gamma) for e in EFFECTS)
+    """Trimmed Welch-James results for A, B and AB (the trimmed cell statistics, one sort
+    of all observations, computed once for the three)."""
+    stats = None
+    if fit.obs is not None and 0.0 <= gamma < 0.5:
+        stats = _trimmed_stats(fit, gamma)
+    return tuple(welch_james_trimmed(fit, effect=e, gamma=gamma, _stats=stats) for e in EFFECTS)
