@@ -254,10 +254,11 @@ def test_failed_run_leaves_the_previous_report_whole(first_report, tmp_path):
 def test_sigterm_during_figure_writing_leaves_no_temp_files(first_report, tmp_path):
     inp, first = copy_first(first_report, tmp_path)
     # SIGTERM reaches the command while a figure worker draws (the workers are forked from
-    # the patched process, so the drawing function below runs in a worker: it signals its parent)
+    # the patched process, so the drawing function below runs in a worker: it signals the command)
     patch = ("import os, signal, time, audit.render.figures as F\n"
+             "CLI = os.getpid()\n"  # the command's own process (a worker may be a grandchild)
              "orig = F._sd_n\n"
-             "def stop(fd, fmt='svg'):\n    os.kill(os.getppid(), signal.SIGTERM)\n    time.sleep(2)\n"
+             "def stop(fd, fmt='svg'):\n    os.kill(CLI, signal.SIGTERM)\n    time.sleep(2)\n"
              "    return orig(fd, fmt)\n"
              "F._sd_n = stop\n")
     r = run_patched(patch, "check", "v.csv", *OPTS, *QUICK, "--report", "rep", cwd=tmp_path)
