@@ -19,7 +19,7 @@ import os
 
 from .text import sanitize
 
-__all__ = ["render_html", "read_images"]
+__all__ = ["render_html", "read_images", "html_template"]
 
 _ENV = None
 
@@ -64,4 +64,10 @@ def render_html(report, images: dict | None = None) -> str:
         {figure key: ``data:`` URI of the figure} (see :func:`read_images`); a figure
         without one is shown by its caption only.
     """
-    return _env().get_template("report.html.j2").render(report=report, images=images or {})
+    return html_template().render(report=report, images=images or {})
+
+
+def html_template():
+    """The compiled report template (jinja2 caches it; the report writer asks for it early,
+    while the figures are drawn)."""
+    return _env().get_template("report.html.j2")

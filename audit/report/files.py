@@ -44,7 +44,7 @@ def write_report_files(findings, folder, *, report_dir: str | None = None, figur
     names : list of str
         The file names written, figures included.
     """
-    from ..render.html import read_images, render_html
+    from ..render.html import html_template, read_images, render_html
     from ..render.markdown import render_markdown
     from ..render.text import render_report_text
     from .build import build_report, figures_from_files
@@ -63,8 +63,10 @@ def write_report_files(findings, folder, *, report_dir: str | None = None, figur
         report = build_report(findings, figures=figures_from_files(names), report_dir=report_dir)
         return report, render_report_text(report), render_markdown(report)
 
-    # the text reports are laid out while the workers draw (the figure names are known in advance)
+    # the text reports are laid out, and the HTML template compiled, while the workers draw
+    # (the figure names are known in advance)
     report, text, markdown = lay_out(expected)
+    html_template()
     drawn = []
     if expected:
         from ..render.figures import write_figures
