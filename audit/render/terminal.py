@@ -58,59 +58,72 @@ def _method_table(report) -> list[str]:
 
 def render_terminal(report) -> str:
     """The summary printed by ``check`` (see the module docstring)."""
-    source = report.source if len(report.source) < WIDTH or not report.source_short else report.source_short
-    top = [*_wrap(report.title, "", _IND), *_wrap(source, "", _IND), ""]
-    v = report.verdict
-    verdict: list[str] = []
-    if v is not None:
-        verdict += _wrap(f"Verdict: {v.word} \u2014 {v.about}", "", " " * 9)
-    else:
-        verdict.append("Verdict: none (the methods were skipped with --no-methods)")
-    methods: list[str] = []
-    if report.methods:
-        methods.append("")
-        methods += _wrap(report.claim_short or "Interaction by method:", "", _IND)
-        methods += _method_table(report)
-        for n in report.notes_short:
-            methods += _wrap(n, _IND, _IND + "  ")
-    checks: list[str] = []
-    if report.checks:
-        checks.append("")
-        checks.append("Checks (grade: clear, minor, concern, critical):")
-        graded = [c for c in report.checks if c.grade != "not-run"]
-        not_run = [c for c in report.checks if c.grade == "not-run"]
-        nw = max(len(c.name) for c in report.checks)
-        gw = max(len(c.grade_word) for c in report.checks)
-        for c in graded:
-            lead = f"{_IND}{sanitize(c.name).ljust(nw)}  {c.grade_word.ljust(gw)}  "
-            checks.append(lead + _clip(sanitize(c.headline), WIDTH - 1 - len(lead)))
-        if not_run:  # one line: what could not be checked on this input (never shown like a grade)
-            checks += _wrap("Not run here: " + ", ".join(sanitize(c.name) for c in not_run)
-                            + " (they need the raw observations or an order/unit column)", _IND, _IND + "  ")
-    tail = [""]
-    if report.design_line:
-        tail += _wrap(report.design_line, "Level order: ", _IND)
-    tail += [*_wrap(report.where, "", _IND), *_wrap(report.caution_short, "", _IND)]
-    effects = [ln for e in (v.effects if v is not None else ()) for ln in _wrap(e, _IND, _IND + "  ")][:2]
+    def lay_out(note_lines: int, reason_lines: int) -> list[str]:
+        source = report.source if len(report.source) < WIDTH or not report.source_short else report.source_short
+        top = [*_wrap(report.title, "", _IND), *_wrap(source, "", _IND), ""]
+        v = report.verdict
+        verdict: list[str] = []
+        if v is not None:
+            verdict += _wrap(f"Verdict: {v.word} \u2014 {v.about}", "", " " * 9)
+        else:
+            verdict.append("Verdict: none (the methods were skipped with --no-methods)")
+        methods: list[str] = []
+        if report.methods:
+            methods.append("")
+            methods += _wrap(report.claim_short or "Interaction by method:", "", _IND)
+            methods += _method_table(report)
+            for n in report.notes_short:
+                wrapped = _wrap(n, _IND, _IND + "  ")
+                if len(wrapped) > note_lines:  # squeezed: one line, clipped
+                    wrapped = [_clip(_IND + " ".join(w.strip() for w in wrapped), WIDTH - 1)]
+                methods += wrapped
+        checks: list[str] = []
+        if report.checks:
+            checks.append("")
+            checks.append("Checks (grade: clear, minor, concern, critical):")
+            graded = [c for c in report.checks if c.grade != "not-run"]
+            not_run = [c for c in report.checks if c.grade == "not-run"]
+            nw = max(len(c.name) for c in report.checks)
+            gw = max(len(c.grade_word) for c in report.checks)
+            for c in graded:
+                lead = f"{_IND}{sanitize(c.name).ljust(nw)}  {c.grade_word.ljust(gw)}  "
+                checks.append(lead + _clip(sanitize(c.headline), WIDTH - 1 - len(lead)))
+            if not_run:  # one line: what could not be checked on this input (never shown like a grade)
+                checks += _wrap("Not run here: " + ", ".join(sanitize(c.name) for c in not_run)
+                                + " (they need the raw observations or an order/unit column)", _IND, _IND + "  ")
+        tail = [""]
+        if report.design_line:
+            tail += _wrap(report.design_line, "Level order: ", _IND)
+        tail += [*_wrap(report.where, "", _IND), *_wrap(report.caution_short, "", _IND)]
+        effects = [ln for e in (v.effects if v is not None else ()) for ln in _wrap(e, _IND, _IND + "  ")][:2]
 
-    # the reasons get the lines that are left (each at most two lines; the rest are counted)
-    budget = MAX_LINES - len(top) - len(verdict) - len(methods) - len(checks) - len(tail) - len(effects)
-    reasons: list[str] = []
-    order = {"decisive": 0, "caveat": 1}
-    items = sorted(report.reasons, key=lambda r: order.get(r.weight, 2))  # supporting lines last
-    for i, r in enumerate(items, 1):
-        wrapped = _wrap(r.short, f"{_IND}{i}. ", _IND + "   ")
-        if len(wrapped) > 2:
-            wrapped = wrapped[:2]
-            wrapped[1] = _clip(wrapped[1], WIDTH - 2) if len(wrapped[1]) < WIDTH - 2 else wrapped[1]
-            if not wrapped[1].endswith("\u2026"):
-                wrapped[1] = _clip(wrapped[1] + " \u2026", WIDTH - 1)
-        left = len(items) - i
-        room = budget - len(reasons) - (1 if left else 0)
-        must = i == 1 or (i == 2 and r.weight == "caveat")  # the decisive reason and the first caveat always show
-        if len(wrapped) > room and not must:
-            reasons += _wrap(f"... and {len(items) - i + 1} more reason(s) in the full report", _IND, _IND)
+        # the reasons get the lines that are left (each at most two lines; the rest are counted)
+        budget = MAX_LINES - len(top) - len(verdict) - len(methods) - len(checks) - len(tail) - len(effects)
+        reasons: list[str] = []
+        order = {"decisive": 0, "caveat": 1}
+        items = sorted(report.reasons, key=lambda r: order.get(r.weight, 2))  # supporting lines last
+        for i, r in enumerate(items, 1):
+            wrapped = _wrap(r.short, f"{_IND}{i}. ", _IND + "   ")
+            if reason_lines == 1 and len(wrapped) > 1:  # squeezed: one line, clipped
+                wrapped = [_clip(_IND + " ".join(w.strip() for w in wrapped), WIDTH - 1)]
+            if len(wrapped) > 2:
+                wrapped = wrapped[:2]
+                wrapped[1] = _clip(wrapped[1], WIDTH - 2) if len(wrapped[1]) < WIDTH - 2 else wrapped[1]
+                if not wrapped[1].endswith("\u2026"):
+                    wrapped[1] = _clip(wrapped[1] + " \u2026", WIDTH - 1)
+            left = len(items) - i
+            room = budget - len(reasons) - (1 if left else 0)
+            must = i == 1 or (i == 2 and r.weight == "caveat")  # the decisive reason and the first caveat always show
+            if len(wrapped) > room and not must:
+                reasons += _wrap(f"... and {len(items) - i + 1} more reason(s) in the full report", _IND, _IND)
+                break
+            reasons += wrapped
+        return top + verdict + reasons + effects + methods + checks + tail
+
+    # the must-show reasons and wrapped notes can overrun the budget: squeeze the method notes
+    # to one line each, then the reasons
+    for note_lines, reason_lines in ((3, 2), (1, 2), (1, 1)):
+        lines = lay_out(note_lines, reason_lines)
+        if len(lines) <= MAX_LINES:
             break
-        reasons += wrapped
-    lines = top + verdict + reasons + effects + methods + checks + tail
     return sanitize("\n".join(lines), keep_newlines=True) + "\n"
