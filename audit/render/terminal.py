@@ -120,9 +120,9 @@ def render_terminal(report) -> str:
             reasons += wrapped
         return top + verdict + reasons + effects + methods + checks + tail
 
-    # the must-show reasons and wrapped notes can overrun the budget: squeeze the method notes
-    # to one line each, then the reasons
-    for note_lines, reason_lines in ((3, 2), (1, 2), (1, 1)):
+    # the must-show reasons and wrapped notes can overrun the budget: squeeze the reasons to one
+    # line each (the verdict line above says the same in short), then the method notes
+    for note_lines, reason_lines in ((3, 2), (3, 1), (1, 1)):
         lines = lay_out(note_lines, reason_lines)
         if len(lines) <= MAX_LINES:
             break
