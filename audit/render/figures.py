@@ -304,7 +304,7 @@ def _methods_p(fd: dict, fmt: str = DEFAULT_FIGURE_FORMAT) -> bytes | None:
     o1 = fd["cell_means"]["orientations"][0]
     a, b = o1["x_factor"], o1["trace_factor"]
     n = len(rows)
-    fig, axes = _new_figure(9.5, 2.1 + 0.36 * n, top=0.7, bottom=1.3, left=3.3, right=1.3)
+    fig, axes = _new_figure(10.2, 2.1 + 0.36 * n, top=0.7, bottom=1.3, left=3.3, right=2.0)
     ax = axes[0][0]
     floor = 1e-16
     vals = [max(r["p"], floor) for r in rows if r["p"] is not None]

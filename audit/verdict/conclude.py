@@ -173,11 +173,11 @@ def _settled(m, alpha: float) -> bool:
     return bool((m.extra or {}).get("stopped_early")) or settled(m.p_interval, alpha)
 
 
-def _fmt_p(p: float) -> str:
-    if p < 0.001:
-        return "p < .001"
-    s = f"{p:.3f}"
-    return "p = " + (s[1:] if s.startswith("0") else s)
+def _fmt_p(p: float, resamples=None) -> str:
+    """The p of a reason, in the reports' one style (a resampled floor as its bound with B)."""
+    from ..report.format import p_text  # formatting only: no statistic, no decision
+
+    return p_text(p, resamples)
 
 
 def _present_word(present: bool) -> str:
@@ -267,10 +267,10 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
             continue
         d = decision(m.p, alpha)
         (agree if d == claim_present else disagree).append(m.id)
-    pm = {m.id: m.p for m, _ in trusted}
+    pm = {m.id: (m.p, m.resamples) for m, _ in trusted}
 
     def listing(ids) -> str:
-        return ", ".join(f"{i} ({_fmt_p(pm[i])})" for i in ids)
+        return ", ".join(f"{i} ({_fmt_p(*pm[i])})" for i in ids)
 
     claim_txt = f"the claim that the {word} is {_present_word(claim_present)}"
     if claim_source == "classical-f":
@@ -293,7 +293,7 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
                            and decision(m.p, alpha) == claim_present]
         for m, t in pairs:
             if m.id in untrusted_agree:
-                reasons.append(Reason(text=f"{m.id} ({_fmt_p(m.p)}) agrees with the claim but is not trusted "
+                reasons.append(Reason(text=f"{m.id} ({_fmt_p(m.p, m.resamples)}) agrees with the claim but is not trusted "
                                            f"here: {t.reason}", ref=f"method:{m.id}", weight="support"))
         return out("does-not-hold", agree, disagree, unsettled)
 
@@ -332,7 +332,7 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
         caveats.append(Reason(text="the interaction is removable: it is not significant after a transformation "
                                    "the data support (Box-Cox), so it may reflect the measurement scale rather "
                                    "than a substantive interaction", ref="diagnostic:scale", weight="caveat"))
-    near = [i for i in agree if near_alpha(pm[i], alpha)]
+    near = [i for i in agree if near_alpha(pm[i][0], alpha)]
     if near:
         caveats.append(Reason(text=f"close to alpha {alpha:g}: {listing(near)}", ref=f"method:{near[0]}",
                               weight="caveat"))
