@@ -105,3 +105,28 @@ def test_workers_end_when_their_parent_dies(tmp_path):
     pids = {int(x) for x in out.stdout.split()}
     assert len(pids) == 2, out
     assert _gone(pids, timeout=5.0)
+
+
+def test_warm_up_draws_every_figure(monkeypatch):
+    # the bundled warm-up coordinates (fixtures/make_warmup.py, invented) hold every figure, and
+    # each draws: a stale file would silently cost the workers their head start
+    import json
+
+    from audit.render import figures as F
+    from audit.render.workers import _warm_up
+
+    path = os.path.join(ROOT, "audit", "render", "warmup_figures.json")
+    with open(path, encoding="utf-8") as fh:
+        fd = json.load(fh)
+    assert F.figure_keys(fd) == list(F.FIGURE_STEMS)
+    drawn = []
+    real = F.draw_figure
+
+    def spy(key, data, fmt="svg"):
+        out = real(key, data, fmt)
+        drawn.append((key, out is not None and len(out) > 1000))
+        return out
+
+    monkeypatch.setattr(F, "draw_figure", spy)
+    _warm_up("svg")
+    assert drawn == [(k, True) for k in F.FIGURE_STEMS]

@@ -8,8 +8,8 @@ of the fitted model before the checks run, those of the checks before the
 methods run); only the figure of the methods' p-values waits for the verdict.
 
 * One worker is forked (POSIX ``fork``) before the parent starts any thread; it
-  imports matplotlib, draws a small warm-up figure and then forks the others,
-  which start warm (one import, not one per worker).  Where ``fork`` is not
+  imports matplotlib, draws every figure once from bundled warm-up coordinates
+  and then forks the others, which start warm (one import, not one per worker).  Where ``fork`` is not
   available, or on a single core, or when a worker cannot start or dies, the
   figures are drawn in the calling process: the files are the same bytes
   either way.
@@ -56,26 +56,22 @@ def _watch_parent(parent: int) -> None:
 
 
 def _warm_up(fmt: str) -> None:
-    """Import matplotlib and draw a small figure with text: the font files, the text
-    layout caches and the back end are ready before the first real task."""
-    import io
+    """Draw every report figure once from the bundled warm-up coordinates (a tiny invented
+    dataset, ``warmup_figures.json``, made by ``fixtures/make_warmup.py``): matplotlib's
+    import and its first-use costs (code paths, font sizes, legends, log axes) are paid
+    while the parent reads the data.  A failure here only costs speed."""
+    import importlib.resources
+    import json
 
-    import matplotlib
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
+    from .figures import clean_figure_data, draw_figure, figure_keys
 
-    from . import figures  # noqa: F401 - the drawing module itself
-    from .figures import _RC
-
-    with matplotlib.rc_context(_RC):
-        fig = Figure(figsize=(2, 2), dpi=50)
-        FigureCanvasAgg(fig)
-        ax = fig.add_subplot()
-        ax.plot([1, 2], [1, 10], marker="o", label="p-value 0.05")
-        ax.set_yscale("log")
-        ax.set_title("warm-up 0123456789")
-        ax.legend()
-        fig.savefig(io.BytesIO(), format=fmt)
+    try:
+        fd = clean_figure_data(json.loads(importlib.resources.files("audit.render")
+                                          .joinpath("warmup_figures.json").read_text(encoding="utf-8")))
+        for key in figure_keys(fd):
+            draw_figure(key, fd, fmt)
+    except Exception:  # noqa: BLE001 - the real figures surface any real error
+        pass
 
 
 def _serve(tasks, results, parent: int) -> None:
