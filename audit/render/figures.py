@@ -647,7 +647,8 @@ def _boxcox(fd: dict, fmt: str = DEFAULT_FIGURE_FORMAT) -> bytes | None:
             bx.plot([c], [alpha], marker="o", markersize=9, markerfacecolor="white", markeredgecolor=_FLAG,
                     markeredgewidth=2, linestyle="none", zorder=4,
                     label="p crosses alpha (lambda marked)" if i == 0 else None)
-            bx.annotate(f"{c:.2f}", (c, alpha), xytext=(4, 8 if i % 2 == 0 else -16), textcoords="offset points",
+            bx.annotate(f"lambda = {c:.2f}", (c, alpha), xytext=(4, 8 if i % 2 == 0 else -16),
+                        textcoords="offset points",
                         fontsize=9, color=_FLAG, fontweight="bold")
         if not pc["crossings"]:
             side = "below" if all(p < alpha for _, p in pts) else "above"
