@@ -293,8 +293,9 @@ def atomic_write_with(path, write: Callable[[str], None], *, suffix: str = "", s
     _atomic(path, write, path if shown is None else shown, suffix=suffix)
 
 
-def atomic_write_bytes(path, data: bytes) -> None:
-    atomic_write_with(path, lambda tmp: _write_bytes_to(tmp, data))
+def atomic_write_bytes(path, data: bytes, *, suffix: str = "", shown=None) -> None:
+    """Write ``data`` to ``path`` atomically (see :func:`atomic_write_with`)."""
+    atomic_write_with(path, lambda tmp: _write_bytes_to(tmp, data), suffix=suffix, shown=shown)
 
 
 def atomic_write_text(path, text: str) -> None:

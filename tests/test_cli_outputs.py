@@ -237,14 +237,13 @@ def test_failed_run_leaves_the_previous_report_whole(first_report, tmp_path):
     # the second run fails after some figures are written: the disk fills up (the message names
     # the folder as typed, never the temporary file the error came from)
     patch = ("import errno, audit._io as IO\n"
-             "import audit.render.figures as F\n"
-             "orig, seen = F._write_blob, []\n"
+             "orig, seen = IO._write_bytes_to, []\n"
              "def full(tmp, data):\n"
              "    seen.append(tmp)\n"
              "    if len(seen) == 2:\n"
              "        raise OSError(errno.ENOSPC, 'No space left on device', tmp)\n"
              "    return orig(tmp, data)\n"
-             "F._write_blob = full\n")
+             "IO._write_bytes_to = full\n")
     one_line_error(run_patched(patch, "check", "v.csv", *OPTS, *QUICK, "--alpha", "0.1",
                                "--report", "rep", cwd=tmp_path), "'rep'", "no space left")
     assert snapshot(tmp_path / "rep") == first

@@ -33,7 +33,7 @@ import math
 import os
 import warnings
 
-from .._io import atomic_write_with
+from .._io import atomic_write_bytes
 from ..errors import OptionError
 
 __all__ = ["write_figures", "draw_figure", "figure_file", "figure_keys", "FIGURE_FILES", "FIGURE_FORMATS",
@@ -725,16 +725,16 @@ _COMMON = ("response", "alpha", "row_kind")
 
 def figure_inputs(key: str, clean_data: dict) -> dict | None:
     """The part of the figure data that figure ``key`` reads, or None when some of it is
-    not there (yet)."""
+    not there (yet) or the figure's own entry is None (nothing to draw)."""
     needs = FIGURE_NEEDS.get(key, (key,))
-    if any(n not in clean_data for n in (*_COMMON, *needs)):
+    if any(n not in clean_data for n in (*_COMMON, *needs)) or clean_data[needs[0]] is None:
         return None
     return {n: clean_data[n] for n in (*_COMMON, *needs)}
 
 
 def figure_keys(figure_data: dict) -> list[str]:
     """The keys of the figures :func:`write_figures` draws for this figure data, in order."""
-    return [k for k in FIGURE_STEMS if figure_data.get("qq" if k == "residual_qq" else k) is not None]
+    return [k for k in FIGURE_STEMS if figure_inputs(k, figure_data) is not None]
 
 
 def write_figures(figure_data: dict, outdir, *, fmt: str = DEFAULT_FIGURE_FORMAT, workers=None,
@@ -777,15 +777,9 @@ def write_figures(figure_data: dict, outdir, *, fmt: str = DEFAULT_FIGURE_FORMAT
     for k in keys:
         if blobs.get(k) is not None:
             final = os.path.join(outdir, figure_file(k, fmt))
-            atomic_write_with(final, lambda tmp, b=blobs[k]: _write_blob(tmp, b), suffix="." + fmt,
-                              shown=final if shown is None else shown)
+            atomic_write_bytes(final, blobs[k], suffix="." + fmt, shown=final if shown is None else shown)
             written.append(final)
     return written
-
-
-def _write_blob(path: str, data: bytes) -> None:
-    with open(path, "wb") as fh:
-        fh.write(data)
 
 
 def clean_figure_data(obj):

@@ -179,10 +179,9 @@ class FigureWorkers:
         fd = clean_figure_data(figure_data)
         try:
             for key in sorted(FIGURE_STEMS, key=_cost_rank):
-                if key not in self._sent and fd.get("qq" if key == "residual_qq" else key) is not None:
-                    inputs = figure_inputs(key, fd)
-                    if inputs is not None:
-                        self._send(key, inputs)
+                inputs = None if key in self._sent else figure_inputs(key, fd)
+                if inputs is not None:
+                    self._send(key, inputs)
         except BaseException:
             self.kill()
             raise

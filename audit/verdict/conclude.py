@@ -44,6 +44,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 from ..decision import decision, near_alpha, settled
+from ..report.format import p_text  # formatting only: no statistic, no decision
 
 __all__ = ["VERDICTS", "Reason", "EffectVerdict", "Verdict", "conclude", "exit_status",
            "FRAGILE_DELETIONS", "LOW_SENSITIVITY_ETA2"]
@@ -173,13 +174,6 @@ def _settled(m, alpha: float) -> bool:
     return bool((m.extra or {}).get("stopped_early")) or settled(m.p_interval, alpha)
 
 
-def _fmt_p(p: float, resamples=None) -> str:
-    """The p of a reason, in the reports' one style (a resampled floor as its bound with B)."""
-    from ..report.format import p_text  # formatting only: no statistic, no decision
-
-    return p_text(p, resamples)
-
-
 def _present_word(present: bool) -> str:
     return "present" if present else "absent"
 
@@ -270,7 +264,7 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
     pm = {m.id: (m.p, m.resamples) for m, _ in trusted}
 
     def listing(ids) -> str:
-        return ", ".join(f"{i} ({_fmt_p(*pm[i])})" for i in ids)
+        return ", ".join(f"{i} ({p_text(*pm[i])})" for i in ids)
 
     claim_txt = f"the claim that the {word} is {_present_word(claim_present)}"
     if claim_source == "classical-f":
@@ -293,7 +287,7 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
                            and decision(m.p, alpha) == claim_present]
         for m, t in pairs:
             if m.id in untrusted_agree:
-                reasons.append(Reason(text=f"{m.id} ({_fmt_p(m.p, m.resamples)}) agrees with the claim but is not trusted "
+                reasons.append(Reason(text=f"{m.id} ({p_text(m.p, m.resamples)}) agrees with the claim but is not trusted "
                                            f"here: {t.reason}", ref=f"method:{m.id}", weight="support"))
         return out("does-not-hold", agree, disagree, unsettled)
 
