@@ -397,11 +397,11 @@ def cp_interval(k: int, n: int) -> tuple[float, float]:
     return (float(ci.low), float(ci.high))
 
 
-def _rate(k: int, n: int) -> str:
+def _rate(k: int, n: int, digits: int = 2) -> str:
     if n == 0:
         return "-"
     lo, hi = cp_interval(k, n)
-    return f"{k / n:.2f} [{lo:.2f}, {hi:.2f}]"
+    return f"{k / n:.{digits}f} [{lo:.{digits}f}, {hi:.{digits}f}]"
 
 
 def _rejects(row, method) -> bool:
@@ -452,7 +452,13 @@ def summarise(rows: list[dict]) -> dict:
         out[name] = {"truth": truth, "size": size_word, "match": match, "datasets": n, "errors": len(rs) - n, "counts": cnt,
                      "oracle": oracle, "methods_differ": sum(1 for r in ok if r.get("methods_same") is False),
                      "cpu_s": sum(r["cpu_s"] for r in rs)}
-    return {"conditions": out, "null_sizes": size}
+    why = defaultdict(lambda: defaultdict(int))   # (truth, claim) -> (verdict, first reason) -> datasets
+    for rs in by.values():
+        for r in rs:
+            if not r["error"]:
+                for claim in ("present", "absent"):
+                    why[(r["truth"], claim)][(r[f"verdict_{claim}"], r[f"reason_{claim}"])] += 1
+    return {"conditions": out, "null_sizes": size, "why": why}
 
 
 def _pooled(conds: dict, truth: str, key: str) -> tuple[int, int]:
@@ -487,6 +493,23 @@ def report(summary: dict, *, file=sys.stdout) -> bool:
     if differ or errors:
         p(f"\nWarning: {differ} datasets whose two audits gave different method p-values; {errors} audits failed.")
 
+    sizes = summary["null_sizes"]
+    matched = [m for m in dict.fromkeys(c["match"] for c in conds.values() if c["truth"] == "interaction")
+               if m in sizes]
+    if matched:
+        methods = sorted({m for name in matched for m in sizes[name]})
+        p("\n### Interaction rejection rate of each method in the matching no-interaction conditions "
+          f"(oracle screen [{SIZE_BAND[0]}, {SIZE_BAND[1]}])\n")
+        p("| condition | datasets | " + " | ".join(methods) + " |")
+        p("| --- | --- | " + " | ".join("---" for _ in methods) + " |")
+        for name in matched:
+            n = max(v[1] for v in sizes[name].values())
+            cells = []
+            for m in methods:
+                k, mn = sizes[name].get(m, (0, 0))
+                cells.append(f"{k / mn:.3f}" if mn else "-")
+            p(f"| {name} | {n} | " + " | ".join(cells) + " |")
+
     p("\n### Pooled\n")
     p("| rate | count | estimate [95% CI] |")
     p("| --- | --- | --- |")
@@ -509,11 +532,18 @@ def report(summary: dict, *, file=sys.stdout) -> bool:
             ("neither upheld, no interaction", nn),
             ("both upheld, all datasets", bo)]
     for label, (k, n) in rows:
-        p(f"| {label} | {k} / {n} | {_rate(k, n)} |")
+        p(f"| {label} | {k} / {n} | {_rate(k, n, 3)} |")
     no_oracle = [k for k, c in conds.items() if c["truth"] == "interaction" and not c["oracle"]]
     if no_oracle:
         p(f"\nNo method's size in the matching null within [{SIZE_BAND[0]}, {SIZE_BAND[1]}]: {', '.join(no_oracle)} "
           "(left out of the oracle comparisons).")
+
+    p("\n### Verdicts not upholding the claim, by the first reason's finding (top 4 per truth and claim)\n")
+    p("| truth | claim | verdict: finding (datasets) |")
+    p("| --- | --- | --- |")
+    for (truth, claim), d in sorted(summary["why"].items(), key=lambda kv: (kv[0][0] != "none", kv[0][1])):
+        top = sorted(((n, v, ref) for (v, ref), n in d.items() if v not in UPHELD), reverse=True)[:4]
+        p(f"| {truth} | {claim} | " + "; ".join(f"{v}: {ref or '-'} ({n})" for n, v, ref in top) + " |")
 
     p("\n### Acceptance (issue 19)\n")
     checks = []
@@ -682,6 +712,12 @@ def main(argv=None) -> int:
         return 0
     if a.tables_from:
         rows = read_rows(a.tables_from)
+        if a.tables_from.endswith(".json"):
+            with open(a.tables_from, encoding="utf-8") as fh:
+                meta = json.load(fh)["meta"]
+            print(f"## Verdict study ({a.tables_from}): {meta['datasets']} datasets a condition, B = "
+                  f"{meta['resamples']}, base seed {meta['base_seed']}; {meta['wall_s']} s wall on {meta['workers']} "
+                  f"workers, CPU per audit {meta['cpu_s_per_audit']} s\n")
         report(summarise(rows))
         return 0
 
