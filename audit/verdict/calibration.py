@@ -248,6 +248,11 @@ class CalibrationRow:
         'liberal', 'conservative', 'ok' or 'not-run'.
     reason : str
         One plain sentence saying why.
+    power : float or None
+        Interaction rows only: share of simulated *alternatives* (the same
+        errors with an interaction pattern of noncentrality
+        ``Calibration.power_noncentrality`` in a random direction added to
+        the cell means) with p < alpha; None when not simulated.
     """
 
     method: str
@@ -259,6 +264,7 @@ class CalibrationRow:
     undefined: int
     status: str
     reason: str
+    power: float | None = None
 
     def to_dict(self) -> dict:
         return {
@@ -271,6 +277,7 @@ class CalibrationRow:
             "undefined": self.undefined,
             "status": self.status,
             "reason": self.reason,
+            "power": self.power,
         }
 
 
@@ -344,6 +351,7 @@ class Calibration:
     interval_level: float
     rows: tuple[CalibrationRow, ...]
     notes: tuple[str, ...]
+    power_noncentrality: float | None = None
 
     def row(self, method: str, effect: str = "AB") -> CalibrationRow:
         for r in self.rows:
@@ -364,6 +372,7 @@ class Calibration:
                      "interval_level": self.interval_level},
             "rows": [r.to_dict() for r in self.rows],
             "notes": list(self.notes),
+            "power_noncentrality": self.power_noncentrality,
         }
 
 
@@ -841,6 +850,41 @@ def _status(k: int, R: int, alpha: float) -> tuple[str, tuple[float, float], str
     return "ok", (lo, hi), f"size near alpha: {said}"
 
 
+#: the alternatives of the power pass have the noncentrality at which the F(r, N - m) test of the
+#: interaction has this power (a level where methods' powers differ most)
+POWER_TARGET = 0.5
+
+
+def alternative_noncentrality(df1: int, df2: float, alpha: float, target: float = POWER_TARGET) -> float:
+    """The noncentrality lambda at which the F(df1, df2) test at alpha has power ``target``
+    (noncentral F, scipy.stats.ncf)."""
+    from scipy.optimize import brentq
+
+    crit = stats.f.isf(alpha, df1, df2)
+    fun = lambda lam: float(stats.ncf.sf(crit, df1, df2, lam)) - target  # noqa: E731
+    hi = 4.0 * df1 + 16.0
+    while fun(hi) < 0:
+        hi *= 2.0
+    return float(brentq(fun, 1e-9, hi, xtol=1e-6))
+
+
+def _alternatives(rng, C, v, df_e: float, alpha: float, R: int):
+    """Cell-mean shifts (R, m) of interaction alternatives: for each replication a direction
+    drawn uniformly in the r-dimensional contrast space C mu, scaled so that the Wald
+    noncentrality (C d)' (C V C')^-1 (C d) with V = diag(v) (the simulated cell variances over
+    n) equals lambda, the noncentrality at which the F(r, N - m) test has power POWER_TARGET.
+    The shift is the minimum-norm d with that C d; every interaction statistic is invariant to
+    the additive part, so only C d matters.  Returns (lambda, shifts)."""
+    r = C.shape[0]
+    lam = alternative_noncentrality(r, df_e, alpha)
+    L = np.linalg.cholesky((C * v[None, :]) @ C.T)
+    z = rng.standard_normal((R, r))
+    z /= np.linalg.norm(z, axis=1, keepdims=True)
+    cd = (z @ L.T) * math.sqrt(lam)
+    G = np.linalg.solve(C @ C.T, C)            # (r, m): d = cd @ G gives C d = cd
+    return lam, cd @ G
+
+
 def _not_run(method, effect, reason) -> CalibrationRow:
     return CalibrationRow(method=method, effect=effect, size=None, interval=None, rejections=None,
                           replications=0, undefined=0, status="not-run", reason=reason)
@@ -938,11 +982,11 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
                        target_variance=float(pooled) if np.isfinite(pooled) else None,
                        cell_sd=cell_sd_json, note=snote)
 
-    def result(rows, source, enote, extra_notes=()):
+    def result(rows, source, enote, extra_notes=(), lam=None):
         return Calibration(alpha=alpha, replications=R, seed=seed, error_source=source, error_note=enote,
                            shrinkage=shrink, liberal_multiple=LIBERAL_MULTIPLE,
                            conservative_fraction=CONSERVATIVE_FRACTION, interval_level=INTERVAL_LEVEL,
-                           rows=tuple(rows), notes=tuple(notes) + tuple(extra_notes))
+                           rows=tuple(rows), notes=tuple(notes) + tuple(extra_notes), power_noncentrality=lam)
 
     # ---- reasons a method cannot run at all
     all_filled = bool(filled.all())
@@ -1017,6 +1061,25 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
                             p = hc_wald_batch(means, css, n, C3[e], kind=mth.split("-")[0])[1]
                     sims[(mth, e)] = p
 
+    # ---- the same simulated errors under interaction alternatives: each method's power here
+    power: dict[str, float] = {}
+    lam = None
+    if runnable and "AB" in effects and all_filled and C3["AB"].shape[0] <= MAX_WALD_ROWS:
+        lam, delta = _alternatives(rng, C3["AB"], sd * sd / n, df_e, alpha, R)
+        alt = means + delta
+        for mth in runnable:
+            with np.errstate(all="ignore"):
+                if mth == "classical-f":
+                    F, d1, d2 = classical_f_batch(alt, css, n, J, K, filled=filled)["AB"]
+                    pa = np.full(F.shape, np.nan)
+                    ok = np.isfinite(F)
+                    pa[ok] = stats.f.sf(F[ok], d1, d2)
+                elif mth == "welch-james":
+                    pa = welch_james_batch(alt, var, n, C3["AB"])[2]
+                else:
+                    pa = hc_wald_batch(alt, css, n, C3["AB"], kind=mth.split("-")[0])[1]
+            power[mth] = float(np.sum(np.nan_to_num(pa, nan=1.0) < alpha)) / R
+
     rows = []
     for mth in methods:
         for e in effects:
@@ -1040,5 +1103,6 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
             if und:
                 reason += f"; {und} simulated dataset(s) where it could not be computed are left out"
             rows.append(CalibrationRow(method=mth, effect=e, size=k / used, interval=ci, rejections=k,
-                                       replications=used, undefined=und, status=status, reason=reason))
-    return result(rows, source, enote, extra_notes)
+                                       replications=used, undefined=und, status=status, reason=reason,
+                                       power=power.get(mth) if e == "AB" else None))
+    return result(rows, source, enote, extra_notes, lam)
