@@ -661,12 +661,16 @@ def clopper_pearson(k: int, n: int, level: float = INTERVAL_LEVEL) -> tuple[floa
 
 def _standardised_pool(fit, sd=None) -> np.ndarray:
     """Pooled standardised residuals e_i / s_cell * sqrt(n / (n - 1)) from the
-    cells with n >= 2 and a positive SD (``sd``: the cells' own SDs by default)."""
+    cells with a positive SD (``sd``: the cells' own SDs by default, from cells with
+    n >= 3: the two residuals of a cell of 2 standardise to exactly -1 and +1 by its own
+    SD, so they carry no shape, and resampling them would simulate two-point errors;
+    with a given ``sd``, cells with n >= 2)."""
     cells = fit.cells
     n = cells.counts.ravel()
+    own = sd is None
     sd = np.sqrt(cells.variances.ravel()) if sd is None else np.asarray(sd, dtype=float).ravel()
     cell = np.asarray(fit.obs.cell)
-    ok = (n >= 2) & np.isfinite(sd) & (sd > 0)
+    ok = (n >= (3 if own else 2)) & np.isfinite(sd) & (sd > 0)
     keep = ok[cell]
     e = np.asarray(fit.resid_full, dtype=float)[keep]
     c = cell[keep]
@@ -947,8 +951,8 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
         pool = _standardised_pool(fit)
         if pool.size < 2:
             pool = None
-            extra_notes.append("no cell has two or more distinct values: normal errors simulated instead "
-                               "of resampled residuals")
+            extra_notes.append("no cell has three or more observations with distinct values: normal errors "
+                               "simulated instead of resampled residuals")
     sampling = None
     if pool is not None and isinstance(prior_df, str) and (n > 1).any():
         # the sampling spread of log s2 under this residual shape, from a pilot on residuals
