@@ -296,9 +296,11 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
                                   effect=effect)
         if len(trusted) < MIN_TRUSTED:
             m0, t0 = trusted[0]
-            reasons.insert(0, Reason(text=f"only {m0.id} is trusted to test the {word} here, and it is not covered "
-                                          f"by the size check, so it cannot decide alone ({primary.reason})",
-                                     ref=f"method:{m0.id}", weight="decisive"))
+            cov = primary.power_of(m0.id) is not None
+            what = ("its simulated size is too far above alpha for it to decide alone" if cov else
+                    "it is not covered by the size check, so it cannot decide alone")
+            reasons.insert(0, Reason(text=f"only {m0.id} is trusted to test the {word} here, and {what} "
+                                          f"({primary.reason})", ref=f"method:{m0.id}", weight="decisive"))
             return out("cannot-judge")
         reasons.append(Reason(text=f"no primary test: {primary.reason}; every trusted method votes",
                               ref="trust", weight="caveat"))

@@ -292,7 +292,7 @@ def assess_trust(methods, *, counts, alpha: float, homogeneity=None, independenc
 #: a size-checked method can be the primary test when its simulated size is at most this multiple
 #: of alpha (and the size check does not call it liberal); our choice, set with
 #: benchmarks/study_verdict.py (README "How often is the verdict right?")
-PRIMARY_MAX_SIZE = 1.25
+PRIMARY_MAX_SIZE = 1.5
 #: powers within this of the best are a tie, broken by PRIMARY_ORDER (the Monte Carlo spread of a
 #: difference of two powers estimated on the same simulated errors is about 0.01 at R = 2,000)
 POWER_TIE = 0.02
@@ -368,19 +368,19 @@ def choose_primary(methods, trust, *, alpha: float, calibration=None, homogeneit
                 continue
             if r.status != "not-run" and r.size is not None:
                 rows[mid] = r
-    powers = tuple((mid, r.power) for mid, r in rows.items() if r.power is not None)
+    powers = tuple((mid, _adj(r)) for mid, r in rows.items() if _adj(r) is not None)
     if rows:
         fit_ = [mid for mid, r in rows.items() if mid in ok and r.status != "liberal"
                 and r.size <= PRIMARY_MAX_SIZE * alpha]
         if fit_:
-            with_power = [mid for mid in fit_ if rows[mid].power is not None]
+            with_power = [mid for mid in fit_ if _adj(rows[mid]) is not None]
             if with_power:
-                best = max(rows[mid].power for mid in with_power)
-                pick = next(mid for mid in PRIMARY_ORDER if mid in with_power and rows[mid].power >= best - POWER_TIE)
+                best = max(_adj(rows[mid]) for mid in with_power)
+                pick = next(mid for mid in PRIMARY_ORDER if mid in with_power and _adj(rows[mid]) >= best - POWER_TIE)
                 r = rows[pick]
                 lam = getattr(calibration, "power_noncentrality", None)
                 against = f" against interactions of noncentrality {lam:.3g}" if lam else ""
-                return Primary(method=pick, basis="size-check", size=r.size, power=r.power, powers=powers,
+                return Primary(method=pick, basis="size-check", size=r.size, power=_adj(r), powers=powers,
                                reason=f"{pick}: the most powerful method that keeps its size on data shaped like "
                                       f"yours ({_pct1(r.size)} at alpha {_pct1(alpha)}; power {_pct(r.power)}"
                                       f"{against})")
@@ -405,6 +405,12 @@ def choose_primary(methods, trust, *, alpha: float, calibration=None, homogeneit
            "tukey-one-df": "the only test of interaction with one observation per cell"}[pick]
     return Primary(method=pick, basis="fixed-order",
                    reason=f"{pick}: no size check ran, so the fixed order by design chose it ({why})")
+
+
+def _adj(row):
+    """The size-adjusted simulated power of a size-check row (None when not simulated)."""
+    a = getattr(row, "adjusted_power", None)
+    return a if a is not None else getattr(row, "power", None)
 
 
 def _pct1(x: float) -> str:
