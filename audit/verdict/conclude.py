@@ -398,9 +398,10 @@ def _judge_primary(prim, primary, *, trusted, pairs, agree, disagree, unsettled,
                    alpha, reasons, out, listing, fragility, influence, scale, rounding, graded, sensitivity,
                    outliers, n_obs, effect) -> EffectVerdict:
     """The verdict follows the primary test's decision; other trusted methods support or dissent."""
-    d = decision(prim.p, alpha)
+    level = primary.level if primary.level is not None else alpha
+    d = decision(prim.p, level)
     agrees = d == claim_present
-    ptxt = p_text(prim.p, prim.resamples)
+    ptxt = p_text(prim.p, prim.resamples) + (f", decided at p < {level:.3g}" if level < alpha else "")
     why = Reason(text=f"primary test {primary.reason}", ref=f"method:{prim.id}", weight="support")
     pw = primary.power
     material, minor = [], []
@@ -454,7 +455,7 @@ def _judge_primary(prim, primary, *, trusted, pairs, agree, disagree, unsettled,
     # within the table's rounding?
     verdict = "holds"
     caveats: list[Reason] = []
-    on_f = prim.id == "classical-f"
+    on_f = prim.id == "classical-f" and level >= alpha   # the deletion checks test the classical F at alpha
     f_agrees = any(m.id == "classical-f" and m.id not in unsettled and decision(m.p, alpha) == claim_present
                    for m, _t in trusted)
     flagged = set(outliers.rows) if outliers is not None else set()
@@ -501,8 +502,8 @@ def _judge_primary(prim, primary, *, trusted, pairs, agree, disagree, unsettled,
         caveats.append(Reason(text="the interaction is removable: it is not significant after a transformation "
                                    "the data support (Box-Cox), so it may reflect the measurement scale rather "
                                    "than a substantive interaction", ref="diagnostic:scale", weight="caveat"))
-    if near_alpha(prim.p, alpha):
-        caveats.append(Reason(text=f"close to alpha {alpha:g}: the primary {prim.id} ({ptxt})",
+    if near_alpha(prim.p, level):
+        caveats.append(Reason(text=f"close to its level {level:.3g}: the primary {prim.id} ({ptxt})",
                               ref=f"method:{prim.id}", weight="caveat"))
     if minor:
         caveats.append(Reason(text=f"decides the other way, but not decisive: {dtxt(minor)}",

@@ -20,7 +20,7 @@ from .claim import Claim, parse_claim
 from .conclude import EffectVerdict, Verdict, conclude, judge_effect
 from .reconcile import Reconciliation, decision_of_claim, reconcile
 from .sensitivity import DetectableEffect, EquivalenceResult, detectable_interaction, equivalence_test
-from .trust import MethodTrust, Primary, assess_trust, choose_primary
+from .trust import MethodTrust, Primary, adopt_primary, assess_trust, choose_primary
 
 __all__ = ["ClaimRecord", "Judgement", "judge", "parse_claims", "parse_equivalence"]
 
@@ -184,6 +184,7 @@ def judge(fit, *, diagnostics=(), methods=(), claims=(), calibration=None, equiv
                          calibration=calibration)
     outl = _facts(diagnostics, OutlierFacts)
     primary = choose_primary(methods, trust, alpha=alpha, calibration=calibration, homogeneity=homog)
+    trust = adopt_primary(methods, trust, primary, alpha=alpha)
 
     by_effect = {c.effect: c for c in claims}
     records: list[ClaimRecord] = []

@@ -28,7 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 
 __all__ = ["TrustRule", "MethodTrust", "TRUST_RULES", "assess_trust", "trimmed_kept", "Primary", "choose_primary",
-           "PRIMARY_MAX_SIZE", "PRIMARY_ORDER", "POWER_TIE", "COMPARABLE_POWER"]
+           "PRIMARY_MAX_SIZE", "PRIMARY_ORDER", "POWER_TIE", "COMPARABLE_POWER", "CALIBRATE_MAX", "adopt_primary"]
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -293,6 +293,9 @@ def assess_trust(methods, *, counts, alpha: float, homogeneity=None, independenc
 #: of alpha (and the size check does not call it liberal); our choice, set with
 #: benchmarks/study_verdict.py (README "How often is the verdict right?")
 PRIMARY_MAX_SIZE = 1.5
+#: ... and up to this multiple, a method can still be the primary at its calibrated level (our
+#: choice: beyond it the calibration leans too hard on the simulated variances)
+CALIBRATE_MAX = 3.0
 #: powers within this of the best are a tie, broken by PRIMARY_ORDER (the Monte Carlo spread of a
 #: difference of two powers estimated on the same simulated errors is about 0.01 at R = 2,000)
 POWER_TIE = 0.02
@@ -322,8 +325,11 @@ class Primary:
         Why it was chosen, in one sentence.
     size, power : float or None
         Its simulated size and power (size-check basis).
-    powers : dict
-        Simulated power of every size-checked method (method id -> power).
+    powers : tuple of (method, power)
+        Size-adjusted simulated power of every size-checked method.
+    level : float or None
+        The p below which the primary rejects: alpha, or its calibrated level when its
+        simulated size is clearly above alpha.
     """
 
     method: str | None
@@ -332,19 +338,29 @@ class Primary:
     size: float | None = None
     power: float | None = None
     powers: tuple = ()
+    level: float | None = None
 
     def power_of(self, method: str):
         return dict(self.powers).get(method)
 
     def to_dict(self) -> dict:
         return {"method": self.method, "basis": self.basis, "reason": self.reason, "size": self.size,
-                "power": self.power}
+                "power": self.power, "level": self.level}
 
 
 def choose_primary(methods, trust, *, alpha: float, calibration=None, homogeneity=None,
                    effect: str = "AB") -> Primary:
     """The primary test of ``effect``: chosen from the design and the size check only, never
     from the observed p-values.
+
+    With a size check: among the size-checked methods that are trusted (or untrusted only
+    because the size check finds them liberal) and whose simulated size, less the bias from
+    the noise of the simulated variances, is at most ``CALIBRATE_MAX`` x alpha, the one with
+    the highest size-adjusted simulated power (ties within ``POWER_TIE`` broken by
+    ``PRIMARY_ORDER``).  Its decision is taken at alpha, or, when its simulated size is
+    clearly above alpha (the 99% interval's lower end, less the bias, above alpha), at its
+    calibrated level ``critical_p`` (the p below which it rejects alpha of the simulated null
+    datasets: a parametric-bootstrap calibration).  Without a size check: the fixed order.
 
     Parameters
     ----------
@@ -353,12 +369,13 @@ def choose_primary(methods, trust, *, alpha: float, calibration=None, homogeneit
         Same order as ``methods``.
     alpha : float
     calibration : Calibration, optional
-        The size check (with each interaction row's simulated ``power``).
+        The size check (with each interaction row's simulated power).
     homogeneity : HomogeneityFacts, optional
         For the fixed order when no size check ran.
     effect : str
     """
-    ok = {m.id for m, t in zip(methods, trust) if m.effect == effect and t.trusted and m.p is not None}
+    tr = {m.id: t for m, t in zip(methods, trust) if m.effect == effect and m.p is not None}
+    ok = {mid for mid, t in tr.items() if t.trusted}
     rows = {}
     if calibration is not None:
         for mid in PRIMARY_ORDER:
@@ -370,27 +387,43 @@ def choose_primary(methods, trust, *, alpha: float, calibration=None, homogeneit
                 rows[mid] = r
     powers = tuple((mid, _adj(r)) for mid, r in rows.items() if _adj(r) is not None)
     if rows:
-        fit_ = [mid for mid, r in rows.items() if mid in ok and r.status != "liberal"
-                and r.size <= PRIMARY_MAX_SIZE * alpha]
+        def usable(mid):
+            t = tr.get(mid)
+            if t is None or not (t.trusted or t.rule == "size-check-liberal"):
+                return False
+            r = rows[mid]
+            return r.size - (r.bias or 0.0) <= CALIBRATE_MAX * alpha and (t.trusted or r.critical_p is not None)
+
+        fit_ = [mid for mid in rows if usable(mid)]
         if fit_:
             with_power = [mid for mid in fit_ if _adj(rows[mid]) is not None]
+            lam = getattr(calibration, "power_noncentrality", None)
             if with_power:
                 best = max(_adj(rows[mid]) for mid in with_power)
                 pick = next(mid for mid in PRIMARY_ORDER if mid in with_power and _adj(rows[mid]) >= best - POWER_TIE)
-                r = rows[pick]
-                lam = getattr(calibration, "power_noncentrality", None)
-                against = f" against interactions of noncentrality {lam:.3g}" if lam else ""
-                return Primary(method=pick, basis="size-check", size=r.size, power=_adj(r), powers=powers,
-                               reason=f"{pick}: the most powerful method that keeps its size on data shaped like "
-                                      f"yours ({_pct1(r.size)} at alpha {_pct1(alpha)}; power {_pct(r.power)}"
-                                      f"{against})")
-            pick = next(mid for mid in PRIMARY_ORDER if mid in fit_)
+            else:
+                pick = next(mid for mid in PRIMARY_ORDER if mid in fit_)
             r = rows[pick]
-            return Primary(method=pick, basis="size-check", size=r.size, power=None, powers=powers,
-                           reason=f"{pick}: the only size-checked method here, and it keeps its size on data "
-                                  f"shaped like yours ({_pct1(r.size)} at alpha {_pct1(alpha)})")
+            b = r.bias or 0.0
+            warm = r.interval is not None and r.interval[0] - b > alpha and r.critical_p is not None
+            level = min(alpha, r.critical_p) if warm else alpha
+            against = f" against interactions of noncentrality {lam:.3g}" if lam else ""
+            pw = _adj(r)
+            if warm:
+                how = (f"the most powerful method here once each is held to its size; it rejects a true null "
+                       f"{_pct1(r.size - b)} of the time at alpha {_pct1(alpha)} on data shaped like yours, so "
+                       f"its decision is taken at p < {level:.3g}, the level at which it keeps alpha")
+            elif pw is not None:
+                how = (f"the most powerful method that keeps its size on data shaped like yours "
+                       f"({_pct1(r.size - b)} at alpha {_pct1(alpha)}; power {_pct(pw)}{against})")
+            else:
+                how = (f"the only size-checked method here, and it keeps its size on data shaped like yours "
+                       f"({_pct1(r.size - b)} at alpha {_pct1(alpha)})")
+            return Primary(method=pick, basis="size-check", size=r.size - b, power=pw, powers=powers,
+                           level=level, reason=f"{pick}: {how}")
         return Primary(method=None, basis="none", powers=powers,
-                       reason="no size-checked method keeps its size on data shaped like yours")
+                       reason="no size-checked method keeps its size on data shaped like yours, even at a "
+                              "calibrated level")
     order = PRIMARY_ORDER[:3] + ("tukey-one-df",)
     if homogeneity is not None and homogeneity.distorts_classical:
         order = order[1:]
@@ -403,8 +436,23 @@ def choose_primary(methods, trust, *, alpha: float, calibration=None, homogeneit
            "welch-james": "robust to unequal variances, with every cell large enough for it",
            "hc3-wald": "robust to unequal variances in small cells",
            "tukey-one-df": "the only test of interaction with one observation per cell"}[pick]
-    return Primary(method=pick, basis="fixed-order",
+    return Primary(method=pick, basis="fixed-order", level=alpha,
                    reason=f"{pick}: no size check ran, so the fixed order by design chose it ({why})")
+
+
+def adopt_primary(methods, trust, primary: Primary, *, alpha: float, effect: str = "AB") -> tuple:
+    """The trust list with the primary trusted: a method the size check finds liberal is
+    trusted as the primary at its calibrated level (its decision is taken there)."""
+    if primary is None or primary.method is None:
+        return tuple(trust)
+    out = []
+    for m, t in zip(methods, trust):
+        if m.id == primary.method and m.effect == effect and not t.trusted and t.rule == "size-check-liberal":
+            t = MethodTrust(method=t.method, effect=t.effect, trusted=True, rule=None,
+                            reason=f"trusted as the primary test at its calibrated level p < {primary.level:.3g} "
+                                   f"(at alpha {alpha:g} {t.reason[0].lower() + t.reason[1:]})")
+        out.append(t)
+    return tuple(out)
 
 
 def _adj(row):
