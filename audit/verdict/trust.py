@@ -293,7 +293,9 @@ def assess_trust(methods, *, counts, alpha: float, homogeneity=None, independenc
 #: of alpha (and the size check does not call it liberal); our choice, set with
 #: benchmarks/study_verdict.py (README "How often is the verdict right?")
 PRIMARY_MAX_SIZE = 1.5
-#: ... and up to this multiple, a method can still be the primary at its calibrated level (our
+#: (up to it the decision is taken at alpha: the issue's "acceptable" size, within [.025, .075] at
+#: alpha .05); above it and up to the next multiple, a method can still be the primary at its
+#: calibrated level (our
 #: choice: beyond it the calibration leans too hard on the simulated variances)
 CALIBRATE_MAX = 3.0
 #: powers within this of the best are a tie, broken by PRIMARY_ORDER (the Monte Carlo spread of a
@@ -329,7 +331,7 @@ class Primary:
         Size-adjusted simulated power of every size-checked method.
     level : float or None
         The p below which the primary rejects: alpha, or its calibrated level when its
-        simulated size is clearly above alpha.
+        simulated size is above PRIMARY_MAX_SIZE x alpha.
     """
 
     method: str | None
@@ -357,10 +359,12 @@ def choose_primary(methods, trust, *, alpha: float, calibration=None, homogeneit
     because the size check finds them liberal) and whose simulated size, less the bias from
     the noise of the simulated variances, is at most ``CALIBRATE_MAX`` x alpha, the one with
     the highest size-adjusted simulated power (ties within ``POWER_TIE`` broken by
-    ``PRIMARY_ORDER``).  Its decision is taken at alpha, or, when its simulated size is
-    clearly above alpha (the 99% interval's lower end, less the bias, above alpha), at its
+    ``PRIMARY_ORDER``).  Its decision is taken at alpha, or, when its simulated size (less
+    the bias) is above ``PRIMARY_MAX_SIZE`` x alpha, at its
     calibrated level ``critical_p`` (the p below which it rejects alpha of the simulated null
-    datasets: a parametric-bootstrap calibration).  Without a size check: the fixed order.
+    datasets: a parametric-bootstrap calibration).  The classical F is not a candidate when the
+    homogeneity check grades the distortion of its level concern or critical (the safer of the
+    two readings is kept).  Without a size check: the fixed order.
 
     Parameters
     ----------
@@ -391,6 +395,8 @@ def choose_primary(methods, trust, *, alpha: float, calibration=None, homogeneit
             t = tr.get(mid)
             if t is None or not (t.trusted or t.rule == "size-check-liberal"):
                 return False
+            if mid == "classical-f" and homogeneity is not None and homogeneity.distorts_classical:
+                return False   # the homogeneity check finds its level distorted: the safer reading is kept
             r = rows[mid]
             return r.size - (r.bias or 0.0) <= CALIBRATE_MAX * alpha and (t.trusted or r.critical_p is not None)
 
@@ -405,7 +411,7 @@ def choose_primary(methods, trust, *, alpha: float, calibration=None, homogeneit
                 pick = next(mid for mid in PRIMARY_ORDER if mid in fit_)
             r = rows[pick]
             b = r.bias or 0.0
-            warm = r.interval is not None and r.interval[0] - b > alpha and r.critical_p is not None
+            warm = r.size - b > PRIMARY_MAX_SIZE * alpha and r.critical_p is not None
             level = min(alpha, r.critical_p) if warm else alpha
             against = f" against interactions of noncentrality {lam:.3g}" if lam else ""
             pw = _adj(r)
