@@ -67,6 +67,20 @@ different prior df (classical F size 0.05 instead of 0.13).  The floor of
 exact resampling (and its numbers), and the exact part never costs more than
 R x 1,000 draws per cell.
 
+Power on data shaped like this one (the interaction)
+---------------------------------------------------
+The same simulated errors with an interaction added to the cell means: for each
+replication a direction drawn uniformly in the contrast space C mu, scaled to the
+Wald noncentrality lambda (with the simulated variances) at which the F(r, N - m)
+test has power ``POWER_TARGET`` = 0.5.  ``power`` is the share with p < alpha;
+``adjusted_power`` rejects at the method's ``critical_p`` (the smaller of alpha and
+the alpha-quantile of its simulated null p-values), so warm methods gain nothing.
+The verdict's primary test is chosen on these (``audit.verdict.trust``).  The
+variance-noise bias of each interaction size (``_variance_noise_bias``: the
+simulated variances re-estimated as the data would, a bootstrap bias) is
+subtracted before the status is judged.  Cells of 2 do not enter the resampled
+residual pool (their standardised residuals are exactly -1 and +1).
+
 Moderated cell variances (after Smyth 2004)
 --------------------------------------------
 Cell SDs from 4-5 observations are noisy: on truly homoscedastic data the

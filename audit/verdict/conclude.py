@@ -13,19 +13,40 @@ This module is the only place that decides.  It weighs, for the interaction
   dependence (a removable interaction), graded problems, closeness to alpha,
   and, for an "absent" claim, the design's sensitivity.
 
+Primary test (the interaction)
+------------------------------
+The verdict on the interaction follows one method's decision: the primary test
+(:func:`audit.verdict.trust.choose_primary`), the most powerful size-checked
+method that keeps its size on data shaped like these, chosen from the design and
+the size check only, never from the observed p-values.  Other trusted methods
+support or dissent: a dissent is *material* (the verdict is ``fragile``) when the
+dissenting method is of comparable simulated power (at least the primary's minus
+``COMPARABLE_POWER``); a conservative method's non-rejection never vetoes a
+rejection; other dissents are caveats naming the method.  Deletions count only
+when they move the decision against the claim: an outlier among them, or a
+decision that a quarter or more of the single deletions reverse
+(``UNSTABLE_SHARE``), is ``fragile``; a borderline few is a caveat with the count
+and the rows.  Without a primary (no method qualifies) every trusted method
+votes as below and a single trusted method cannot decide alone.  Main effects
+are judged by the vote below.  Measured on ``benchmarks/study_verdict.py``
+(README "How often is the verdict right?").
+
 Verdicts (exactly one per effect; the overall verdict is the interaction's):
 
 =====================  ====================================================
-holds                  every trusted method agrees with the claim; not
-                       fragile; not scale-dependent; no caveat
+holds                  the primary (for main effects: every trusted method)
+                       agrees with the claim; not fragile; no caveat
 holds-with-caveats     agrees, with stated caveats (near alpha, removable,
                        a warning-level problem, few trusted methods, low
                        sensitivity for an "absent" claim, a resampled
                        decision not settled)
-fragile                one or two deletions flip the decision, the
-                       decision can change within a summary table's
-                       rounding, or the trusted methods split around alpha
-does-not-hold          every trusted method contradicts the claim
+fragile                a material dissent, an outlier that carries the
+                       decision, an unstable decision, the decision can
+                       change within a summary table's rounding (main
+                       effects: the trusted methods split around alpha, or
+                       one or two deletions flip the decision)
+does-not-hold          the primary (main effects: every trusted method)
+                       contradicts the claim
 not-reproducible       the reported test cannot be reproduced from the data
 cannot-judge           no trusted test of the effect (no error df and no
                        Tukey test, too little data, dependent observations)
