@@ -1161,7 +1161,8 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
     # ---- the same simulated errors under interaction alternatives: each method's power here
     power: dict[str, tuple] = {}
     lam = None
-    ab_ok = bool(runnable) and "AB" in effects and all_filled and C3["AB"].shape[0] <= MAX_WALD_ROWS
+    ab_ok = (bool(runnable) and "AB" in effects and all_filled and C3["AB"].shape[0] <= MAX_WALD_ROWS
+             and bool(np.all(np.isfinite(sd) & (sd > 0))))   # no alternatives scaled to a zero variance
     if ab_ok:
         lam, delta = _alternatives(rng, C3["AB"], sd * sd / n, df_e, alpha, R)
         alt = means + delta
