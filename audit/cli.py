@@ -146,7 +146,8 @@ def _add_run_parser(sub) -> None:
     r.add_argument("--junit", metavar="PATH", help="write a JUnit XML file (one test case per audit)")
     r.add_argument("--markdown", metavar="PATH", help="write a Markdown summary (a table fit for a pull-request comment)")
     r.add_argument("--json", metavar="PATH", help="write every audit's findings JSON, keyed by audit name")
-    r.add_argument("--jobs", type=int, default=1, metavar="N", help="run audits in N processes (default 1)")
+    r.add_argument("--jobs", type=int, default=1, metavar="N", help="run audits in N processes (default 1; at most the cores available and the number "
+                        "of audits, with a note when lowered)")
     r.add_argument("--cache", metavar="DIR", help="store findings in DIR and reuse them while the input, settings "
                                                   "and versions are unchanged")
 
@@ -420,13 +421,18 @@ def _run_run(args, written: list) -> int:
             raise OutputError(f"--cache {args.cache!r} exists and is not a folder; choose a folder name")
         refuse_input_overlap(args.cache, inputs, option="--cache")
 
-    from .runner import render_json, render_junit, render_line, render_markdown, run_config
+    from .runner import render_json, render_junit, render_line, render_markdown, run_config, worker_count
+
+    jobs, why = worker_count(args.jobs, len(config.audits))
+    if why:
+        sys.stderr.write(f"{PROG}: note: --jobs {args.jobs} lowered to {jobs} ({why})\n")
+        sys.stderr.flush()
 
     def show(r):
         sys.stdout.write(render_line(r) + "\n")
         sys.stdout.flush()
 
-    outcome = run_config(config, jobs=args.jobs, cache=args.cache, on_result=show)
+    outcome = run_config(config, jobs=jobs, cache=args.cache, on_result=show)
     n = len(outcome.results)
     sys.stdout.write(f"{n} audit{'s' if n != 1 else ''}: {outcome.failures} failed, {outcome.errors} could not run, "
                      f"{n - outcome.failures - outcome.errors} passed\n")
