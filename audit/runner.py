@@ -159,6 +159,8 @@ def _run_spec(spec: AuditSpec) -> dict:
     prov["input"] = spec.rel            # as declared, relative to the config file: same in every checkout
     prov["input_sha256"] = prov.get("input_sha256") or _sha256(spec.path)
     prov["command"] = None              # run mode: the settings are in the config file, not a command line
+    if isinstance(d.get("summary_input"), dict) and d["summary_input"].get("input") is not None:
+        d["summary_input"]["input"] = spec.rel   # the cell table's path, also as declared
     return {"findings": d, "seconds": time.perf_counter() - t0}
 
 
