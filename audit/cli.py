@@ -340,6 +340,12 @@ def _run_check(args, written: list, compute=None) -> int:
             known.add(json_name)
     if args.json and args.json != "-" and json_name is None:
         refuse_input_overlap(args.json, inputs, option="--json")
+        if args.report:  # found before the audit runs, not when the report is already written
+            j, r = os.path.realpath(args.json), os.path.realpath(args.report)
+            if j == r or j.startswith(r.rstrip(os.sep) + os.sep):
+                where = "the --report folder" if j == r else "in a sub-folder of the --report folder"
+                raise OutputError(f"--json {args.json!r} is {where} {args.report!r}; give a file beside the "
+                                  f"report or directly in its folder (the folder has its own {REPORT_JSON})")
         check_file_target(args.json)
     if args.report:
         known |= _report_known()
@@ -420,6 +426,9 @@ def _run_run(args, written: list) -> int:
         if os.path.exists(args.cache) and not os.path.isdir(args.cache):
             raise OutputError(f"--cache {args.cache!r} exists and is not a folder; choose a folder name")
         refuse_input_overlap(args.cache, inputs, option="--cache")
+        if os.path.realpath(args.cache) in seen:  # found before any audit runs, not at the end
+            raise OptionError(f"--cache {args.cache!r} is also given to {seen[os.path.realpath(args.cache)]}; "
+                              "give the cache its own folder")
 
     from .runner import render_json, render_junit, render_line, render_markdown, run_config, worker_count
 

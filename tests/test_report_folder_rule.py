@@ -210,3 +210,15 @@ def test_build_is_never_started_for_a_refused_folder(tmp_path):
                        known={"findings.json", "report.md"})  # known names do not make a folder ours
     assert started == [] and _state(tmp_path / "mine") == before
     assert sorted(os.listdir(tmp_path)) == ["mine"]
+
+
+@pytest.mark.parametrize("json_path", ["rep", "rep/sub/f.json"])
+def test_json_onto_the_report_folder_is_refused_before_anything_is_written(tmp_path, monkeypatch, capsys,
+                                                                            json_path):
+    # before: the report was written, then --json failed on the folder (or nested a folder in it)
+    _inputs(tmp_path)
+    code, out, err = _main([*CHECK, "--report", "rep", "--json", json_path], tmp_path, monkeypatch, capsys)
+    assert code == 2 and out == ""
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and f"--json {json_path!r}" in lines[0] and "--report folder 'rep'" in lines[0], lines
+    assert sorted(os.listdir(tmp_path)) == ["cells.csv", "v.csv"]

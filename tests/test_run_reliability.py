@@ -298,3 +298,13 @@ def test_jobs_cap_as_a_subprocess(tmp_path):
     assert r.returncode == 0, r.stdout + r.stderr
     err = r.stderr.splitlines()
     assert len(err) == 1 and err[0].startswith(f"twoway-audit: note: --jobs 1000 lowered to {min(2, available_cores())} ("), err
+
+
+def test_cache_folder_given_as_an_output_file_is_refused_before_any_audit_runs(tmp_path, monkeypatch, capsys):
+    # before: every audit ran and the cache was filled, then --json failed on the cache folder
+    repo = _repo(tmp_path, SUMMARY_AUDIT)
+    code, out, err = _main(["run", "audits.toml", "--cache", "c", "--json", "c"], repo, monkeypatch, capsys)
+    assert code == 2 and out == ""
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and "--cache 'c' is also given to --json" in lines[0], lines
+    assert not (repo / "c").exists()
