@@ -179,11 +179,18 @@ def _library_versions() -> dict:
     return out
 
 
+#: raised when run mode's findings change shape within a version (2: a summary audit records its
+#: cell table as declared and is read through check_summary), so older cache entries are not reused
+CACHE_FORMAT = 2
+
+
 def cache_key(spec: AuditSpec, *, libraries: dict | None = None) -> str:
-    """SHA-256 of the input file's SHA-256, the audit's settings and the tool, Python and library versions."""
+    """SHA-256 of the input file's SHA-256, the audit's settings, :data:`CACHE_FORMAT` and the tool,
+    Python and library versions."""
     from . import __version__
 
-    doc = {"tool": "twoway-audit", "version": __version__, "python": platform.python_version(),
+    doc = {"tool": "twoway-audit", "version": __version__, "cache_format": CACHE_FORMAT,
+           "python": platform.python_version(),
            "libraries": libraries if libraries is not None else _library_versions(),
            "settings": spec.settings(), "input_sha256": _sha256(spec.path)}
     return hashlib.sha256(json.dumps(doc, sort_keys=True, ensure_ascii=True).encode("ascii")).hexdigest()
