@@ -684,6 +684,12 @@ def _frame_row_ids(frame) -> tuple[np.ndarray, str]:
     return np.arange(len(frame), dtype=np.int64), "position"
 
 
+def decimal_offset(text: str, spread: float) -> Decimal:
+    """The exact decimal offset subtracted from response text: the first kept value
+    rounded to the decade of the spread (raises decimal.InvalidOperation)."""
+    return Decimal(text).quantize(Decimal(1).scaleb(math.floor(math.log10(spread))))
+
+
 def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.ndarray):
     """Return (y, offset, centring sentence) for the kept rows."""
     import pandas as pd
@@ -738,7 +744,7 @@ def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.nd
         with localcontext() as ctx:
             ctx.prec = 60
             try:
-                off = Decimal(text_kept[0]).quantize(Decimal(1).scaleb(e))
+                off = decimal_offset(text_kept[0], spread)
                 y = np.fromiter((float(Decimal(t) - off) for t in text_kept), dtype=float, count=len(text_kept))
             except InvalidOperation:
                 return y, 0.0, None
@@ -1047,7 +1053,8 @@ def prepare(
     how_ordered = []
     for f in factors:
         txt = _merge_numeric_spellings(f, texts[f], levels.get(f), notes)
-        present = pd.unique(pd.Series(txt[~miss[f]], dtype=object)).tolist()
+        # blank rows hold None here and are no level (they are counted apart)
+        present = pd.unique(pd.Series(txt[~np.equal(txt, None)], dtype=object)).tolist()
         lv, how = factor_levels(f, present, levels.get(f))
         how_ordered.append(how)
         lookup = {v: i for i, v in enumerate(lv)}
