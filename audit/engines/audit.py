@@ -163,9 +163,11 @@ def findings_from_scan(scan: Scan, *, alpha, resamples, seed, diagnostics, metho
         by_id["homogeneity"] = homogeneity(fit_m, tests=_exact_homogeneity_tests(cm, fit_s))
         by_id["balance"] = balance(fit_m)
         by_id["missingness"] = missingness(hybrid)
+        # when the sample is every row, the row-based checks are exact and vote as in memory
+        whole_rows = scan.info["sample_rows"] == N
         for fn in (outliers, influence, fragility, scale):
             d = fn(fit_s)
-            by_id[d.id] = _mark_diag(d, sample, sentence, keep_facts=d.id not in _NO_FACTS)
+            by_id[d.id] = _mark_diag(d, sample, sentence, keep_facts=whole_rows or d.id not in _NO_FACTS)
         by_id["shape"] = shape(fit_m)
         ind = independence(fit_m)
         by_id["independence"] = dataclasses.replace(

@@ -139,6 +139,15 @@ class DuckDBBackend:
                 raise DataFileError(f"{t.path}: its header ({', '.join(t.names)}) differs from that of "
                                     f"{first.path} ({', '.join(first.names)}); expected files of one layout")
         self.delimiter = first.delimiter
+        self._text_views()
+        try:
+            self._cols = self.con.execute("DESCRIBE SELECT * FROM twa_raw").fetchall()
+        except duckdb.Error as e:
+            raise DataFileError(f"{self.files[0]}: cannot be read as delimited text ({str(e).splitlines()[0]}); "
+                                "expected one header line, then one row per observation") from None
+        self._cols = [c for c in self._cols if c[0] != "twa_file"]
+
+    def _text_views(self):
         parts = [t.duckdb_source(_sql_str, glob_escape) for t in self.texts]
         if len(parts) == 1:
             src = parts[0]
@@ -146,18 +155,28 @@ class DuckDBBackend:
             src = " UNION ALL ".join(f"SELECT *, {i} AS twa_file FROM {p}" for i, p in enumerate(parts))
             src = f"({src})"
         self.sample_key_description = "DuckDB random() after setseed(seed), one thread"
-        self.con.execute(f"CREATE TEMP VIEW twa_raw AS SELECT * FROM {src}")
+        self.con.execute(f"CREATE OR REPLACE TEMP VIEW twa_raw AS SELECT * FROM {src}")
         # row order as an explicit column: a window with an empty OVER keeps the file's order (DuckDB docs,
         # "Order preservation"); only the intake queries use it
         self.con.execute("SET preserve_insertion_order = true")
-        self.con.execute("CREATE TEMP VIEW twa_raw_rn AS SELECT *, row_number() OVER () AS twa_rn FROM twa_raw")
+        self.con.execute("CREATE OR REPLACE TEMP VIEW twa_raw_rn AS SELECT *, row_number() OVER () AS twa_rn "
+                         "FROM twa_raw")
         self.raw, self.raw_rn = "twa_raw", "twa_raw_rn"
+
+    def _execute(self, sql: str, how: str):
+        """Run ``sql``; a text file with quoted line breaks is re-read by DuckDB's serial reader."""
+        duckdb = _import()
         try:
-            self._cols = self.con.execute("DESCRIBE SELECT * FROM twa_raw").fetchall()
+            res = self.con.execute(sql)
+            return res.fetchall() if how == "rows" else res.df()
         except duckdb.Error as e:
-            raise DataFileError(f"{self.files[0]}: cannot be read as delimited text ({str(e).splitlines()[0]}); "
-                                "expected one header line, then one row per observation") from None
-        self._cols = [c for c in self._cols if c[0] != "twa_file"]
+            if not (self.texts and "parallel=false" in str(e) and any(t.parallel for t in self.texts)):
+                raise
+        for t in self.texts:
+            t.parallel = False
+        self._text_views()
+        res = self.con.execute(sql)
+        return res.fetchall() if how == "rows" else res.df()
 
     def read_error(self, e) -> AuditInputError:
         """The error for a failure while the engine reads the files."""
@@ -269,7 +288,7 @@ class DuckDBBackend:
     def query(self, sql: str, *, label: str = "", progress=False):
         duckdb = _import()
         try:
-            return self._run(lambda: self.con.execute(sql).fetchall(), label, progress)
+            return self._run(lambda: self._execute(sql, "rows"), label, progress)
         except duckdb.Error as e:
             raise self.read_error(e) from None
 
@@ -278,8 +297,8 @@ class DuckDBBackend:
         try:
             if prepare is not None:
                 with prepare(self._seed):
-                    return self._run(lambda: self.con.execute(sql).df(), label, progress)
-            return self._run(lambda: self.con.execute(sql).df(), label, progress)
+                    return self._run(lambda: self._execute(sql, "frame"), label, progress)
+            return self._run(lambda: self._execute(sql, "frame"), label, progress)
         except duckdb.Error as e:
             raise self.read_error(e) from None
 

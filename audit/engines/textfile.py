@@ -63,13 +63,15 @@ def _check_utf8(path: str) -> None:
             pos += len(chunk)
 
 
-def _transcode(path: str, codec: str, given: bool, tmpdir: str) -> str:
+def _transcode(path: str, codec: str, given: bool, tmpdir: str, newlines: bool = False) -> str:
     """Decode ``path`` with ``codec`` in chunks into a UTF-8 file in ``tmpdir`` (leading
-    byte-order marks dropped); the in-memory intake's error on an undecodable byte."""
+    byte-order marks dropped; with ``newlines`` every CR LF and lone CR written as LF, for
+    files that mix line ends); the in-memory intake's error on an undecodable byte."""
     out = os.path.join(tmpdir, "data.csv")
     dec = codecs.getincrementaldecoder(codec)("strict")
     first = True
     pos = 0
+    held = ""
     with open(path, "rb") as fh, open(out, "w", encoding="utf-8", newline="") as wh:
         while True:
             chunk = fh.read(CHUNK)
@@ -86,6 +88,10 @@ def _transcode(path: str, codec: str, given: bool, tmpdir: str) -> str:
             if first and text:
                 text = text.lstrip("\ufeff")
                 first = False
+            if newlines:
+                text = held + text
+                held = text[-1:] if (text.endswith("\r") and not final) else ""
+                text = text[:len(text) - len(held)].replace("\r\n", "\n").replace("\r", "\n")
             wh.write(text)
             if final:
                 return out
@@ -104,13 +110,23 @@ class TextFile:
         codec = encoding or bom or "utf-8"
         self.encoding = encoding or {"utf-8-sig": "utf-8-sig"}.get(bom, bom) or "utf-8"
         norm = codecs.lookup(codec).name
-        if norm in ("utf-8", "utf-8-sig") and (encoding is None or norm == "utf-8"):
+        with open(path, "rb") as fh:
+            raw = fh.read(SAMPLE_CHARS)
+        lf = raw.replace(b"\r\n", b"").count(b"\n") + raw.replace(b"\r\n", b"").count(b"\r")
+        mixed = b"\r\n" in raw and lf > 0   # the engine's parser needs one kind of line end
+        if mixed or not (norm in ("utf-8", "utf-8-sig") and (encoding is None or norm == "utf-8")):
+            self.tmpdir = tempfile.mkdtemp(prefix="twa-engine-")
+            try:
+                self.read_path = _transcode(path, codec, encoding is not None or bom is None, self.tmpdir,
+                                            newlines=mixed)
+            except DataFileError:
+                if encoding is None and bom is None:
+                    _check_utf8(path)         # the in-memory intake's message for text that is not UTF-8
+                raise
+            self.utf8_native = False
+        else:
             self.read_path = path             # the engine reads UTF-8 itself
             self.utf8_native = True
-        else:
-            self.tmpdir = tempfile.mkdtemp(prefix="twa-engine-")
-            self.read_path = _transcode(path, codec, encoding is not None, self.tmpdir)
-            self.utf8_native = False
         sample = self._sample()
         suffix = os.path.splitext(path)[1].lower()
         self.delimiter = intake.sniff_delimiter(path, sample, suffix)
@@ -121,6 +137,7 @@ class TextFile:
         names, skip = self._header(sample)
         self.names = intake.header_names(names, path)
         self.skip = skip                      # physical lines up to and including the header
+        self.parallel = True                  # False for quoted line breaks (DuckDB's parallel reader)
 
     # -- reading ---------------------------------------------------------------------------------
 
@@ -144,6 +161,7 @@ class TextFile:
         return (f"read_csv({sql_str(glob_escape(self.read_path))}, header = false, skip = {int(self.skip)}, "
                 f"delim = {sql_str(self.delimiter)}, quote = '\"', escape = '\"', columns = {cols}, "
                 "auto_detect = false, null_padding = true, strict_mode = true, all_varchar = true"
+                + ("" if self.parallel else ", parallel = false")
                 + (", encoding = 'utf-8'" if self.utf8_native else "") + ")")
 
     def check_decodable(self) -> None:
