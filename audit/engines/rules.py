@@ -75,16 +75,25 @@ def _type_kind(t: str) -> str:
 
 def _blank_clause(backend, q) -> str:
     ws = _ws()
-    parts = []
+    cheap, costly = [], []
     for c in backend.columns():
         k = _type_kind(backend.column_type(c))
         if k == "text":
-            parts.append(f"({q(c)} IS NULL OR trim({q(c)}, {ws}) = '')")
+            # only a value that starts with white space can be blank: the trim (about 30 characters to
+            # strip) runs on those alone
+            lit = _s(WHITESPACE)
+            costly.append(f"({q(c)} IS NULL OR CASE WHEN {q(c)} = '' THEN TRUE WHEN strpos({lit}, left({q(c)}, 1)) = 0 "
+                          f"THEN FALSE ELSE trim({q(c)}, {ws}) = '' END)")
         elif backend.column_type(c) in ("FLOAT", "DOUBLE", "REAL"):
-            parts.append(f"({q(c)} IS NULL OR isnan({q(c)}))")
+            cheap.append(f"({q(c)} IS NULL OR isnan({q(c)}))")
         else:
-            parts.append(f"{q(c)} IS NULL")
-    return "(" + " AND ".join(parts) + ")" if parts else "FALSE"
+            cheap.append(f"{q(c)} IS NULL")
+    if not cheap and not costly:
+        return "FALSE"
+    if cheap and costly:
+        # CASE evaluates the text tests only on rows whose other columns are all missing
+        return f"(CASE WHEN {' AND '.join(cheap)} THEN {' AND '.join(costly)} ELSE FALSE END)"
+    return "(" + " AND ".join(cheap or costly) + ")"
 
 
 def _looks(counts: dict):
@@ -111,26 +120,51 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
     y = q(response)
     tokens = ", ".join(_s(t) for t in sorted(intake.RESPONSE_NA_TOKENS))
     if ykind == "text":
-        t = f"trim({y}, {ws})"
+        # the trimmed text once, as a column of the row sources below (an expression repeated in
+        # na/num/dec would be trimmed again at each use); only a value that starts or ends with
+        # white space is trimmed at all
+        lit = _s(WHITESPACE)
+        trimmed = (f"CASE WHEN strpos({lit}, left({y}, 1)) = 0 AND strpos({lit}, right({y}, 1)) = 0 THEN {y} "
+                   f"ELSE trim({y}, {ws}) END")
+        raw_rn = f"(SELECT *, {trimmed} AS twa_t FROM {backend.raw_rn})"
+        raw = f"(SELECT *, {trimmed} AS twa_t FROM {backend.raw})"
+        t = "twa_t"
         na = f"({t} IS NULL OR {t} = '' OR lower({t}) IN ({tokens}))"
         num = f"regexp_full_match({t}, {_s(NUM_SQL)})"
         dec = f"regexp_full_match({t}, {_s(DEC_SQL)})"
         comma = f"contains({t}, ',')"
     else:
         t = f"CAST({y} AS VARCHAR)"
+        raw_rn, raw = backend.raw_rn, backend.raw
         na = f"({y} IS NULL)" if ykind != "double" else f"({y} IS NULL OR isnan(CAST({y} AS DOUBLE)))"
         num = "TRUE" if ykind != "other" else "FALSE"
         dec = comma = "FALSE"
     exo = f"(NOT {na} AND NOT {num} AND NOT {dec})"
     blank = _blank_clause(backend, q)
+    # a native floating or integer response needs no text work: its extremes, first value and first
+    # non-finite value are taken per group in this one scan (no second scan, no casts to text)
+    fast = ykind == "double"
+    ydbl = f"CAST({y} AS DOUBLE)"
     src = (f"SELECT CAST({q(fa)} AS VARCHAR) AS ka, CAST({q(fb)} AS VARCHAR) AS kb, {q(fa)} AS va, {q(fb)} AS vb, "
            f"{t} AS t, {na} AS na, {num} AS num, {dec} AS dec, {comma} AS comma, {exo} AS exo, {blank} AS blank, "
-           f"twa_rn AS rn FROM {backend.raw_rn}")
-    groups = backend.query(
-        f"WITH s AS ({src}) SELECT ka, kb, any_value(va), any_value(vb), COUNT(*), "
-        f"COUNT(*) FILTER (WHERE na), MIN(rn), MIN(rn) FILTER (WHERE comma AND NOT na), "
-        f"arg_min(t, rn) FILTER (WHERE comma AND NOT na), COUNT(*) FILTER (WHERE exo), blank "
-        f"FROM s GROUP BY ka, kb, blank LIMIT {MAX_PAIRS + 1}", label="intake (levels)")
+           f"twa_rn AS rn FROM {raw_rn}")
+    if fast:
+        # yn: the response, NULL when missing (NULL or NaN); aggregates ignore NULLs, so no FILTER
+        # is needed but for the non-finite values (about six times faster than the general query)
+        fsrc = (f"SELECT CAST({q(fa)} AS VARCHAR) AS ka, CAST({q(fb)} AS VARCHAR) AS kb, {q(fa)} AS va, "
+                f"{q(fb)} AS vb, CASE WHEN isnan({ydbl}) THEN NULL ELSE {ydbl} END AS yn, {blank} AS blank, "
+                f"twa_rn AS rn FROM {raw_rn}")
+        groups = backend.query(
+            f"WITH s AS ({fsrc}) SELECT ka, kb, any_value(va), any_value(vb), COUNT(*), COUNT(*) - COUNT(yn), "
+            f"MIN(rn), NULL, NULL, 0, blank, MIN(rn) FILTER (WHERE yn IS NOT NULL), arg_min(yn, rn), MIN(yn), "
+            f"MAX(yn), MIN(rn) FILTER (WHERE isinf(yn)), arg_min(yn, rn) FILTER (WHERE isinf(yn)) "
+            f"FROM s GROUP BY ka, kb, blank LIMIT {MAX_PAIRS + 1}", label="intake (levels)")
+    else:
+        groups = backend.query(
+            f"WITH s AS ({src}) SELECT ka, kb, any_value(va), any_value(vb), COUNT(*), "
+            f"COUNT(*) FILTER (WHERE na), MIN(rn), MIN(rn) FILTER (WHERE comma AND NOT na), "
+            f"arg_min(t, rn) FILTER (WHERE comma AND NOT na), COUNT(*) FILTER (WHERE exo), blank "
+            f"FROM s GROUP BY ka, kb, blank LIMIT {MAX_PAIRS + 1}", label="intake (levels)")
     if len(groups) > MAX_PAIRS:
         raise FactorError(f"factors {fa!r} and {fb!r}: more than {MAX_PAIRS:,} distinct pairs of values; expected a "
                           "few repeated levels per factor; are the response and a factor swapped?")
@@ -252,10 +286,13 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
         yd = f"CAST({y} AS DOUBLE)"
         bad1, okv, bad2, shown = "FALSE", "TRUE", f"isinf({yd})", yd
     kept_src = (f"SELECT r.twa_rn AS rn, {na} AS na, {bad1} AS bad1, {bad2} AS bad2, {okv} AS okv, {yd} AS yd, "
-                f"{shown} AS shown, {tt} AS tt FROM {backend.raw_rn} r "
+                f"{shown} AS shown, {tt} AS tt FROM {raw_rn} r "
                 f"JOIN twa_map_a ma ON CAST(r.{q(fa)} AS VARCHAR) = ma.key "
                 f"JOIN twa_map_b mb ON CAST(r.{q(fb)} AS VARCHAR) = mb.key")
-    k = backend.query(
+    if fast:
+        k = _fast_response(groups, map_a, map_b)
+    else:
+        k = backend.query(
         f"WITH s AS ({kept_src}) SELECT MIN(rn) FILTER (WHERE bad1), arg_min(shown, rn) FILTER (WHERE bad1), "
         f"MIN(rn) FILTER (WHERE bad2), arg_min(shown, rn) FILTER (WHERE bad2), "
         f"arg_min(shown, rn), MIN(yd), MAX(yd), arg_min(tt, yd), arg_max(tt, yd), "
@@ -310,7 +347,7 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
         rk = ResponseKind("text", offset=offset)
         yv = f"CASE WHEN {na} THEN NULL ELSE {tt} END"
     extra_cols = ", r.filename AS filename, r.file_row_number AS file_row_number" if backend.format == "parquet" else ""
-    source = (f"(SELECT ma.lv AS fa, mb.lv AS fb, {yv} AS y{extra_cols} FROM {backend.raw} r "
+    source = (f"(SELECT ma.lv AS fa, mb.lv AS fb, {yv} AS y{extra_cols} FROM {raw} r "
               f"JOIN twa_map_a ma ON CAST(r.{q(fa)} AS VARCHAR) = ma.key "
               f"JOIN twa_map_b mb ON CAST(r.{q(fb)} AS VARCHAR) = mb.key)")
 
@@ -334,6 +371,19 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
                           missing_other=0, blank_lines=n_blank, rows=rows)
     return EngineIntake(levels_a=la, levels_b=lb, level_order=(how[0], how[1]), notes=tuple(notes), rk=rk,
                         centring=centring, dropped=dropped, source=source, lo=lo, hi=hi, decimal=decimal)
+
+
+def _fast_response(groups, map_a, map_b) -> tuple:
+    """The response query's row for a native numeric response, from the per-group columns of the
+    levels query (kept groups only): (bad1 row, value, first non-finite row, value, first value,
+    min, max, then the text-only fields as None)."""
+    kept = [g for g in groups if g[0] in map_a and g[1] in map_b and g[11] is not None]
+    first = min(kept, key=lambda g: g[11]) if kept else None
+    infs = [g for g in kept if g[15] is not None]
+    inf = min(infs, key=lambda g: g[15]) if infs else None
+    return (None, None, inf[15] if inf else None, inf[16] if inf else None,
+            first[12] if first else None, min(g[13] for g in kept) if kept else None,
+            max(g[14] for g in kept) if kept else None, None, None, None, None, None)
 
 
 def _swapped_hint(backend, exc, factors, response, merged, groups, ta, tb, n):
