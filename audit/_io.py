@@ -14,8 +14,9 @@ Rules (the command line relies on them; library users may too):
   devices are refused.
 - :func:`replace_folder`: a report folder is built in a temporary sibling and
   moved into place in one step (an atomic exchange where the system offers it),
-  replacing only a folder that twoway-audit wrote (a manifest names its files)
-  or an empty one.  A failed or interrupted run leaves the previous folder whole.
+  replacing only an empty folder or one that twoway-audit wrote (a valid
+  manifest of ours names its files, :func:`read_manifest`); any other folder
+  that is not empty is refused, whatever its files are called.  A failed or interrupted run leaves the previous folder whole.
 - Every message names the path as the user typed it, never a temporary name.
 
 A finished file gets the ordinary permissions of a new file (0666 less the
@@ -48,7 +49,9 @@ __all__ = [
     "refuse_folder_overlap",
     "check_folder_target",
     "replace_folder",
+    "read_manifest",
     "MANIFEST",
+    "MANIFEST_FORMAT",
 ]
 
 #: Name of the manifest written inside every report folder (marks it as ours).
@@ -312,23 +315,70 @@ def _folder_path(folder) -> str:
     return path
 
 
-def _ours(path: str, known: set[str]) -> tuple[bool, list[str]]:
-    """(is ours or empty, names that are not ours) for an existing folder."""
+#: the manifest's format: {"tool": "twoway-audit", "format": MANIFEST_FORMAT, "files": [name, ...]}
+#: (reports written before the format number carry only "tool" and "files")
+MANIFEST_FORMAT = 1
+_MANIFEST_KEYS = {"tool", "format", "files"}
+
+
+def _plain_name(name) -> bool:
+    return (isinstance(name, str) and name not in ("", ".", "..", MANIFEST) and "/" not in name
+            and os.sep not in name and "\0" not in name)
+
+
+def read_manifest(folder) -> list[str] | None:
+    """The file names listed by the report manifest in ``folder``; None when there is
+    no manifest or it is not one twoway-audit writes.
+
+    A manifest is ours when it is a regular file (not a link) holding a JSON object
+    with exactly the keys ``tool`` (``"twoway-audit"``), ``files`` (a list of plain
+    file names, each once) and, optionally, ``format`` (:data:`MANIFEST_FORMAT`).
+    """
+    path = os.path.join(os.fspath(folder), MANIFEST)
+    try:
+        if not stat.S_ISREG(os.lstat(path).st_mode) or os.lstat(path).st_size > (1 << 20):
+            return None
+        with open(path, encoding="utf-8") as fh:
+            man = json.load(fh)
+    except (OSError, ValueError):
+        return None
+    if not isinstance(man, dict) or set(man) - _MANIFEST_KEYS or man.get("tool") != "twoway-audit":
+        return None
+    fmt = man.get("format", MANIFEST_FORMAT)
+    if isinstance(fmt, bool) or fmt != MANIFEST_FORMAT:
+        return None
+    files = man.get("files")
+    if not isinstance(files, list) or not all(_plain_name(n) for n in files) or len(set(files)) != len(files):
+        return None
+    return list(files)
+
+
+def _foreign(path: str, known: set[str]) -> tuple[list[str], bool]:
+    """(names that twoway-audit did not write, whether the folder has a manifest of ours)
+    for an existing folder.  An empty folder has none; a folder without a valid manifest
+    has every name it holds; one with a manifest the names that are neither listed in it
+    nor in ``known``, and every sub-folder or link."""
     names = os.listdir(path)
-    listed: set[str] = set()
-    if MANIFEST in names:
-        with contextlib.suppress(OSError, ValueError, TypeError, AttributeError):
-            with open(os.path.join(path, MANIFEST), encoding="utf-8") as fh:
-                man = json.load(fh)
-            if man.get("tool") == "twoway-audit":
-                listed = set(man.get("files", [])) | {MANIFEST}
-    allowed = listed | set(known)
-    foreign = sorted(n for n in names if n not in allowed or os.path.isdir(os.path.join(path, n)))
-    return not foreign, foreign
+    if not names:
+        return [], False
+    listed = read_manifest(path)
+    if listed is None:
+        return sorted(names), False
+    allowed = set(listed) | set(known) | {MANIFEST}
+    foreign = sorted(n for n in names if n not in allowed
+                     or not stat.S_ISREG(os.lstat(os.path.join(path, n)).st_mode))
+    return foreign, True
 
 
-def check_folder_target(folder, *, known: Iterable[str], shown=None) -> None:
-    """Refuse a report folder that is not a folder or holds files twoway-audit did not write."""
+def check_folder_target(folder, *, known: Iterable[str] = (), shown=None) -> None:
+    """Refuse a report folder that is not a folder, or is not empty and not a report of ours.
+
+    A folder is replaced only when it is empty or holds a valid manifest
+    (:func:`read_manifest`) and nothing but regular files that the manifest lists
+    (or that ``known`` names); anything else -- a hand-written ``report.md``, a
+    ``findings.json`` without a manifest, a damaged or foreign manifest -- is
+    refused with :class:`OutputError`, whatever the files are called.
+    """
     shown = folder if shown is None else shown
     path = _folder_path(folder)
     try:
@@ -340,13 +390,20 @@ def check_folder_target(folder, *, known: Iterable[str], shown=None) -> None:
     if not stat.S_ISDIR(st.st_mode):
         raise OutputError(f"report folder {_q(shown)} exists and is not a folder; choose a folder name")
     try:
-        ok, foreign = _ours(path, set(known))
+        foreign, ours = _foreign(path, set(known))
     except OSError as exc:
         raise os_error(exc, shown) from None
-    if not ok:
+    if foreign:
         more = f" and {len(foreign) - 3} more" if len(foreign) > 3 else ""
-        raise OutputError(f"report folder {_q(shown)} holds files twoway-audit did not write "
-                          f"({', '.join(map(repr, foreign[:3]))}{more}); it would be replaced as a whole: "
+        listing = f"{', '.join(map(repr, foreign[:3]))}{more}"
+        if ours:
+            why = f"holds files twoway-audit did not write ({listing})"
+        elif MANIFEST in foreign:
+            why = (f"holds files twoway-audit did not write ({listing}): its {MANIFEST} is not a manifest "
+                   "twoway-audit wrote")
+        else:
+            why = f"holds files twoway-audit did not write ({listing}) and no report manifest ({MANIFEST})"
+        raise OutputError(f"report folder {_q(shown)} {why}; it would be replaced as a whole: "
                           "choose a new or empty folder")
 
 
@@ -402,7 +459,7 @@ def _swap_in(new: str, path: str) -> list[str]:
     raise OSError(errno.EBUSY, "the folder kept changing during the swap", path)
 
 
-def replace_folder(folder, build: Callable[[str], Iterable[str]], *, known: Iterable[str], shown=None,
+def replace_folder(folder, build: Callable[[str], Iterable[str]], *, known: Iterable[str] = (), shown=None,
                    on_done=None) -> None:
     """Build a report folder in a temporary sibling with ``build(tmp)`` (returns
     the file names written), add the manifest, then move it onto ``folder`` in
@@ -425,7 +482,7 @@ def replace_folder(folder, build: Callable[[str], Iterable[str]], *, known: Iter
             os.chmod(tmp, 0o777 & ~_umask())
             names = sorted(set(build(tmp)))
             with open(os.path.join(tmp, MANIFEST), "w", encoding="utf-8") as fh:
-                json.dump({"tool": "twoway-audit", "files": names}, fh)
+                json.dump({"tool": "twoway-audit", "format": MANIFEST_FORMAT, "files": names}, fh)
                 fh.write("\n")
         except OSError as exc:
             raise os_error(exc, shown) from None

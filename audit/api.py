@@ -184,6 +184,7 @@ def check(
     chosen = choose_engine(data, engine)
     if chosen != "memory":
         return _check_engine(data, chosen, spark_master=spark_master, sample_per_cell=sample_per_cell,
+                             sheet=sheet, encoding=encoding, decimal=decimal,
                              response=response, factors=factors, levels=levels, order=order, unit=unit,
                              alpha=alpha, resamples=resamples, seed=seed, diagnostics=diagnostics, methods=methods,
                              figures=figures, progress=progress, claim=claim, calibration=calibration,
@@ -206,7 +207,7 @@ def check(
 
 def _check_engine(data, engine, *, spark_master, sample_per_cell, response, factors, levels, order, unit, alpha,
                   resamples, seed, diagnostics, methods, figures, progress, claim, calibration, equivalence,
-                  timestamp) -> Findings:
+                  timestamp, sheet=None, encoding=None, decimal=None) -> Findings:
     """The engine path: per-cell moments and a seeded sample (audit/engines)."""
     from .engines import open_backend
     from .engines.audit import findings_from_scan
@@ -221,17 +222,30 @@ def _check_engine(data, engine, *, spark_master, sample_per_cell, response, fact
     k = DEFAULT_SAMPLE_PER_CELL if sample_per_cell is None else sample_per_cell
     if isinstance(k, bool) or not isinstance(k, int) or k < 10:
         raise OptionError(f"sample_per_cell: expected a whole number >= 10, found {k!r}; try {DEFAULT_SAMPLE_PER_CELL}")
-    if not (isinstance(factors, (tuple, list)) and len(factors) == 2):
-        raise OptionError(f"factors: expected two column names, found {factors!r}")
+    from .intake import check_decimal, check_factors_option, check_levels_option
+
+    # the in-memory intake's option checks, in its order (the engine then reads by its rules)
+    factors = check_factors_option(factors)
+    check_levels_option(levels)
+    check_decimal(decimal)
     seed = new_seed() if seed is None else seed
-    if isinstance(levels, (list, tuple)):
-        levels = dict(levels)
-    backend = open_backend(engine, data, spark_master=spark_master)
+    backend = open_backend(engine, data, spark_master=spark_master, encoding=encoding, sheet=sheet)
     try:
         scan = run_scan(backend, response=response, factors=tuple(factors), levels=levels, sample_per_cell=k,
-                        seed=seed, progress=progress is not False)
+                        seed=seed, progress=progress is not False, decimal=decimal)
+        columns = backend.columns()
     finally:
         backend.close()
+    counts = scan.moments.cells.counts
+    if (counts == 1).all():      # a table of cell statistics given to check (as _refuse_cell_table)
+        from .errors import ColumnError
+        from .summary import cell_table_hint
+
+        hint = cell_table_hint(columns, factors=tuple(factors),
+                               path=os.fspath(data) if isinstance(data, (str, os.PathLike)) else None,
+                               response=response)
+        if hint:
+            raise ColumnError(hint)
     src = data if isinstance(data, str) else (", ".join(map(str, data)) if isinstance(data, (list, tuple)) else str(data))
     return findings_from_scan(scan, alpha=alpha, resamples=resamples, seed=seed, diagnostics=diagnostics,
                               methods=methods, figures=figures, progress=progress, claim=claim,

@@ -146,7 +146,8 @@ def _add_run_parser(sub) -> None:
     r.add_argument("--junit", metavar="PATH", help="write a JUnit XML file (one test case per audit)")
     r.add_argument("--markdown", metavar="PATH", help="write a Markdown summary (a table fit for a pull-request comment)")
     r.add_argument("--json", metavar="PATH", help="write every audit's findings JSON, keyed by audit name")
-    r.add_argument("--jobs", type=int, default=1, metavar="N", help="run audits in N processes (default 1)")
+    r.add_argument("--jobs", type=int, default=1, metavar="N", help="run audits in N processes (default 1; at most the cores available and the number "
+                        "of audits, with a note when lowered)")
     r.add_argument("--cache", metavar="DIR", help="store findings in DIR and reuse them while the input, settings "
                                                   "and versions are unchanged")
 
@@ -339,6 +340,12 @@ def _run_check(args, written: list, compute=None) -> int:
             known.add(json_name)
     if args.json and args.json != "-" and json_name is None:
         refuse_input_overlap(args.json, inputs, option="--json")
+        if args.report:  # found before the audit runs, not when the report is already written
+            j, r = os.path.realpath(args.json), os.path.realpath(args.report)
+            if j == r or j.startswith(r.rstrip(os.sep) + os.sep):
+                where = "the --report folder" if j == r else "in a sub-folder of the --report folder"
+                raise OutputError(f"--json {args.json!r} is {where} {args.report!r}; give a file beside the "
+                                  f"report or directly in its folder (the folder has its own {REPORT_JSON})")
         check_file_target(args.json)
     if args.report:
         known |= _report_known()
@@ -419,14 +426,22 @@ def _run_run(args, written: list) -> int:
         if os.path.exists(args.cache) and not os.path.isdir(args.cache):
             raise OutputError(f"--cache {args.cache!r} exists and is not a folder; choose a folder name")
         refuse_input_overlap(args.cache, inputs, option="--cache")
+        if os.path.realpath(args.cache) in seen:  # found before any audit runs, not at the end
+            raise OptionError(f"--cache {args.cache!r} is also given to {seen[os.path.realpath(args.cache)]}; "
+                              "give the cache its own folder")
 
-    from .runner import render_json, render_junit, render_line, render_markdown, run_config
+    from .runner import render_json, render_junit, render_line, render_markdown, run_config, worker_count
+
+    jobs, why = worker_count(args.jobs, len(config.audits))
+    if why:
+        sys.stderr.write(f"{PROG}: note: --jobs {args.jobs} lowered to {jobs} ({why})\n")
+        sys.stderr.flush()
 
     def show(r):
         sys.stdout.write(render_line(r) + "\n")
         sys.stdout.flush()
 
-    outcome = run_config(config, jobs=args.jobs, cache=args.cache, on_result=show)
+    outcome = run_config(config, jobs=jobs, cache=args.cache, on_result=show)
     n = len(outcome.results)
     sys.stdout.write(f"{n} audit{'s' if n != 1 else ''}: {outcome.failures} failed, {outcome.errors} could not run, "
                      f"{n - outcome.failures - outcome.errors} passed\n")

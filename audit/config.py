@@ -44,7 +44,7 @@ from dataclasses import dataclass
 from .errors import ConfigError, OptionError
 
 __all__ = ["AuditSpec", "RunConfig", "load_config", "find_config", "check_claims", "DEFAULT_FAIL_ON",
-           "DEFAULT_SEED", "AUDIT_KEYS", "SHARED_KEYS", "VERDICTS"]
+           "DEFAULT_SEED", "AUDIT_KEYS", "DATA_KEYS", "SUMMARY_KEYS", "SHARED_KEYS", "VERDICTS"]
 
 # Kept here (equal to audit.verdict.conclude.VERDICTS and audit.api.MAX_CALIBRATION, which a test
 # checks) so that reading a config, and a fully cached run, load none of the numerical modules.
@@ -59,11 +59,16 @@ DEFAULT_FAIL_ON = ("does-not-hold", "not-reproducible", "fragile")
 DEFAULT_SEED = 0
 
 _COMMON = ("name", "response", "factors", "alpha", "claim", "seed", "calibration", "equivalence", "fail_on",
-           "levels")
-_DATA_ONLY = ("data", "resamples", "order", "unit", "sheet", "encoding", "decimal")
+           "sheet", "encoding", "decimal")
+_DATA_ONLY = ("data", "resamples", "levels", "order", "unit")
 _SUMMARY_ONLY = ("summary", "mean", "sd", "n")
 
-#: keys an audit table accepts
+#: keys a data audit (``data``: one row per observation) takes
+DATA_KEYS = _COMMON[:1] + _DATA_ONLY[:1] + _COMMON[1:] + _DATA_ONLY[1:]
+#: keys a summary audit (``summary``: a cell table) takes; every other key is refused
+SUMMARY_KEYS = _COMMON[:1] + _SUMMARY_ONLY[:1] + _COMMON[1:] + _SUMMARY_ONLY[1:]
+
+#: keys an audit table accepts (each kind takes only its own: :data:`DATA_KEYS`, :data:`SUMMARY_KEYS`)
 AUDIT_KEYS = _COMMON + _DATA_ONLY + _SUMMARY_ONLY
 
 #: keys of the top-level table (shared settings, inherited by every audit) besides ``audit``
@@ -100,8 +105,10 @@ class AuditSpec:
     equivalence : float, str or None
     fail_on : tuple of str
     levels : tuple of (str, tuple of str) or None
-    order, unit, sheet, encoding, decimal : optional
+    order, unit : optional
         As in :func:`audit.check` (data audits).
+    sheet, encoding, decimal : optional
+        As in :func:`audit.check` and :func:`audit.check_summary`.
     """
 
     name: str
@@ -411,11 +418,13 @@ def _audit(raw: dict, i: int, shared: dict, *, shown, folder, root) -> AuditSpec
         raise ConfigError("give exactly one of 'data' (one row per observation) or 'summary' (a cell table)",
                           **kw, key="data" if has_data else "data/summary")
     kind = "data" if has_data else "summary"
-    wrong = _SUMMARY_ONLY if kind == "data" else _DATA_ONLY
+    takes = DATA_KEYS if kind == "data" else SUMMARY_KEYS
     for key in raw:
-        if key in wrong:
-            raise ConfigError(f"applies to {'cell-table (summary)' if kind == 'data' else 'data'} audits only; "
-                              f"this audit reads {'a data file' if kind == 'data' else 'a cell table'}", **kw, key=key)
+        if key not in takes:  # a key this kind of audit would not use is refused, never ignored
+            what, reads = (("data", "reads one row per observation") if kind == "data"
+                           else ("summary", "reads a cell table, one row per cell"))
+            raise ConfigError(f"not used by a {what} audit (this audit {reads}); remove it: a {what} audit "
+                              f"takes {', '.join(takes)}", **kw, key=key)
     merged = {**shared, **raw}
     if kind == "summary" and "resamples" in merged and "resamples" not in raw:
         merged.pop("resamples")  # a shared setting that only data audits use

@@ -658,8 +658,9 @@ def _restore(x: float | None, unit: float, what: str, notes: list) -> float | No
         v = float(x) * unit * unit
     if x == 0.0 or (math.isfinite(v) and abs(v) >= np.finfo(float).tiny):
         return v
-    e = math.log10(abs(x)) + 2.0 * math.log2(unit) * math.log10(2.0)
-    notes.append(_RANGE_NOTE.format(what=what, val=f"about 1e{e:.0f}"))
+    e = math.log10(abs(x)) + 2.0 * math.log2(unit) * math.log10(2.0) if x and math.isfinite(x) else math.nan
+    val = f"about 1e{e:.0f}" if math.isfinite(e) else "beyond what float64 holds"
+    notes.append(_RANGE_NOTE.format(what=what, val=val))
     return None
 
 

@@ -144,7 +144,16 @@ class Findings:
         """
         from .verdict.conclude import exit_status
 
-        return exit_status(self.verdict, strict=strict) if self.judgement is not None else 0
+        if self.judgement is None:
+            return 0
+        overall = exit_status(self.verdict, strict=strict)
+        # a claimed main effect that is not reproducible, does not hold or is fragile fails the
+        # command too (as it fails a declared audit under the default fail_on): a CI step whose
+        # only claims are main effects must not pass on the interaction's verdict alone
+        if overall == 0 and any(exit_status(e.verdict, strict=strict) == 1
+                                for e in self.judgement.verdict.effects[1:]):
+            return 1
+        return overall
 
     def diagnostic(self, id: str) -> Diagnostic:
         """The diagnostic with this id (a KeyError lists the valid ids)."""

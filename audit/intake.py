@@ -235,35 +235,57 @@ def _decode(path: str, raw: bytes, encoding: str | None) -> tuple[str, str]:
         try:
             text = raw.decode(encoding)
         except UnicodeDecodeError as exc:
-            raise DataFileError(
-                f"{path}: cannot be decoded as {encoding} (byte {raw[exc.start]:#04x} at offset {exc.start}); "
-                "expected text in that encoding; give the file's encoding with --encoding (API encoding=)"
-            ) from None
+            raise undecodable_error(path, encoding, raw[exc.start], exc.start) from None
         return text.lstrip("\ufeff"), encoding
-    for bom, name in ((codecs.BOM_UTF32_LE, "utf-32"), (codecs.BOM_UTF32_BE, "utf-32"),
-                      (codecs.BOM_UTF8, "utf-8-sig"), (codecs.BOM_UTF16_LE, "utf-16"),
-                      (codecs.BOM_UTF16_BE, "utf-16")):
-        if raw.startswith(bom):
-            try:
-                return raw.decode(name).lstrip("\ufeff"), name
-            except UnicodeDecodeError:
-                raise DataFileError(
-                    f"{path}: starts with a {name} byte-order mark but is not valid {name}; "
-                    "expected one text encoding throughout; re-save it as UTF-8 or give --encoding"
-                ) from None
+    name = bom_encoding(raw[:4])
+    if name is not None:
+        try:
+            return raw.decode(name).lstrip("\ufeff"), name
+        except UnicodeDecodeError:
+            raise bad_bom_error(path, name) from None
     try:
         return raw.decode("utf-8"), "utf-8"
     except UnicodeDecodeError as exc:
-        line = raw.count(b"\n", 0, exc.start) + 1
-        nul = raw[:4096].count(b"\x00")
-        guess = ("it looks like UTF-16 without a byte-order mark: give --encoding utf-16-le (or utf-16-be)"
-                 if nul > len(raw[:4096]) // 8 else
-                 "if it was saved as Latin-1 or Windows-1252, give --encoding latin-1 (or cp1252); "
-                 "the API takes encoding=")
-        raise DataFileError(
-            f"{path}: is not UTF-8 text (byte {raw[exc.start]:#04x} on line {line}); expected UTF-8 or "
-            f"UTF-16 with a byte-order mark; {guess}"
-        ) from None
+        raise not_utf8_error(path, raw[:4096], raw[exc.start], raw.count(b"\n", 0, exc.start) + 1) from None
+
+
+def bom_encoding(head: bytes) -> str | None:
+    """The codec named by a byte-order mark at the start of ``head`` (None without one)."""
+    for bom, name in ((codecs.BOM_UTF32_LE, "utf-32"), (codecs.BOM_UTF32_BE, "utf-32"),
+                      (codecs.BOM_UTF8, "utf-8-sig"), (codecs.BOM_UTF16_LE, "utf-16"),
+                      (codecs.BOM_UTF16_BE, "utf-16")):
+        if head.startswith(bom):
+            return name
+    return None
+
+
+def undecodable_error(path: str, encoding: str, byte: int, offset: int) -> DataFileError:
+    """The error for a byte that the given ``encoding`` cannot decode."""
+    return DataFileError(
+        f"{path}: cannot be decoded as {encoding} (byte {byte:#04x} at offset {offset}); "
+        "expected text in that encoding; give the file's encoding with --encoding (API encoding=)"
+    )
+
+
+def bad_bom_error(path: str, name: str) -> DataFileError:
+    """The error for a file whose byte-order mark names a codec it does not follow."""
+    return DataFileError(
+        f"{path}: starts with a {name} byte-order mark but is not valid {name}; "
+        "expected one text encoding throughout; re-save it as UTF-8 or give --encoding"
+    )
+
+
+def not_utf8_error(path: str, head: bytes, byte: int, line: int) -> DataFileError:
+    """The error for undeclared text that is not UTF-8 (``head``: the file's first 4096 bytes)."""
+    nul = head[:4096].count(b"\x00")
+    guess = ("it looks like UTF-16 without a byte-order mark: give --encoding utf-16-le (or utf-16-be)"
+             if nul > len(head[:4096]) // 8 else
+             "if it was saved as Latin-1 or Windows-1252, give --encoding latin-1 (or cp1252); "
+             "the API takes encoding=")
+    return DataFileError(
+        f"{path}: is not UTF-8 text (byte {byte:#04x} on line {line}); expected UTF-8 or "
+        f"UTF-16 with a byte-order mark; {guess}"
+    )
 
 
 def _sniff_delimiter(path: str, text: str, suffix: str) -> str:
@@ -421,6 +443,26 @@ def _read_xlsx(path: str, sha: str, sheet):
     return frame, Source(path=path, sha256=sha, format="xlsx", sheet=chosen), rows
 
 
+def check_path(path, *, sheet=None, encoding: str | None = None) -> tuple[str, str, bool, str | None]:
+    """The checks of a data file's path and its file options, before anything is read:
+    returns (path, lower-case suffix, whether it is text, the checked encoding)."""
+    path = os.fspath(path)
+    encoding = _check_encoding(encoding)
+    if not os.path.exists(path):
+        raise DataFileError(f"data file {path!r} not found; check the path (the current folder is {os.getcwd()!r})")
+    if os.path.isdir(path):
+        raise DataFileError(f"{path!r} is a folder; expected a data file ({', '.join(SUPPORTED)})")
+    suffix = os.path.splitext(path)[1].lower()
+    is_text = suffix in TEXT_SUFFIXES or suffix == ""
+    if sheet is not None and suffix != ".xlsx":
+        raise OptionError(f"sheet: {path} is not an .xlsx workbook, so it has no sheets; leave out --sheet")
+    if encoding is not None and not is_text:
+        raise OptionError(
+            f"encoding: {path} is a binary {suffix} file that stores its own encoding; leave out --encoding"
+        )
+    return path, suffix, is_text, encoding
+
+
 def read_table(path: str | os.PathLike, *, sheet=None, encoding: str | None = None):
     """Read a CSV/TSV/xlsx/parquet file into a DataFrame of strings (text formats)
     or native types (binary formats).  Returns (frame, Source, row_numbers).
@@ -436,20 +478,7 @@ def read_table(path: str | os.PathLike, *, sheet=None, encoding: str | None = No
     """
     import pandas as pd
 
-    path = os.fspath(path)
-    encoding = _check_encoding(encoding)
-    if not os.path.exists(path):
-        raise DataFileError(f"data file {path!r} not found; check the path (the current folder is {os.getcwd()!r})")
-    if os.path.isdir(path):
-        raise DataFileError(f"{path!r} is a folder; expected a data file ({', '.join(SUPPORTED)})")
-    suffix = os.path.splitext(path)[1].lower()
-    is_text = suffix in TEXT_SUFFIXES or suffix == ""
-    if sheet is not None and suffix != ".xlsx":
-        raise OptionError(f"sheet: {path} is not an .xlsx workbook, so it has no sheets; leave out --sheet")
-    if encoding is not None and not is_text:
-        raise OptionError(
-            f"encoding: {path} is a binary {suffix} file that stores its own encoding; leave out --encoding"
-        )
+    path, suffix, is_text, encoding = check_path(path, sheet=sheet, encoding=encoding)
     sha = _sha256(path)
     if is_text:
         return _read_text(path, suffix, sha, encoding)
@@ -631,8 +660,15 @@ def _looks_continuous(txt: np.ndarray) -> tuple[int, int] | None:
     vals = pd.Series(txt[np.array([v is not None for v in txt], dtype=bool)], dtype=object)
     if vals.empty:
         return None
-    counts = vals.value_counts()
-    if len(counts) < 8 or len(counts) <= len(vals) / 3:
+    return looks_continuous_counts(vals.value_counts())
+
+
+def looks_continuous_counts(counts) -> tuple[int, int] | None:
+    """:func:`_looks_continuous` from the counts of a column's distinct non-missing
+    values (a pandas Series indexed by value)."""
+    if len(counts) == 0:
+        return None
+    if len(counts) < 8 or len(counts) <= counts.sum() / 3:
         return None
     if not all(_NUMBER_RE.match(str(u)) for u in counts.index):
         return None
@@ -646,6 +682,12 @@ def _frame_row_ids(frame) -> tuple[np.ndarray, str]:
     if not isinstance(idx, pd.MultiIndex) and pd.api.types.is_integer_dtype(idx.dtype):
         return idx.to_numpy(dtype=np.int64), "index"
     return np.arange(len(frame), dtype=np.int64), "position"
+
+
+def decimal_offset(text: str, spread: float) -> Decimal:
+    """The exact decimal offset subtracted from response text: the first kept value
+    rounded to the decade of the spread (raises decimal.InvalidOperation)."""
+    return Decimal(text).quantize(Decimal(1).scaleb(math.floor(math.log10(spread))))
 
 
 def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.ndarray):
@@ -702,7 +744,7 @@ def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.nd
         with localcontext() as ctx:
             ctx.prec = 60
             try:
-                off = Decimal(text_kept[0]).quantize(Decimal(1).scaleb(e))
+                off = decimal_offset(text_kept[0], spread)
                 y = np.fromiter((float(Decimal(t) - off) for t in text_kept), dtype=float, count=len(text_kept))
             except InvalidOperation:
                 return y, 0.0, None
@@ -758,6 +800,141 @@ def _text_and_missing(col) -> tuple[np.ndarray, np.ndarray]:
     return txt, np.equal(txt, None)
 
 
+def check_decimal(decimal) -> None:
+    """The ``decimal=`` option: None, '.' or ','."""
+    if decimal not in (None, ".", ","):
+        raise OptionError(f"decimal: expected '.' or ',', found {decimal!r}; give --decimal , for decimal commas")
+
+
+def check_columns(cols: list[str], *, response: str, factors: tuple[str, str], levels: dict, order=None,
+                  unit=None) -> None:
+    """The column rules: unique names, every named column present, the response not a
+    factor, every ``levels`` key a factor."""
+    seen: set[str] = set()
+    for c in cols:
+        if c in seen:
+            raise ColumnError(f"column name {c!r} appears twice; expected unique column names; rename one of them")
+        seen.add(c)
+    for role, name in (("response", response), ("factor", factors[0]), ("factor", factors[1]),
+                       ("order", order), ("unit", unit)):
+        if name is None:
+            continue
+        if name not in cols:
+            hint = ""
+            parts = [p.strip() for p in str(name).split(",")]
+            if role == "factor" and len(parts) == 2 and all(p in cols for p in parts):
+                hint = f"; give two names separated by a space: --factors {parts[0]} {parts[1]}"
+            raise ColumnError(
+                f"{role} column {name!r} not found; the columns are: {', '.join(cols)}{hint}"
+            )
+    if response in factors:
+        raise ColumnError(f"response {response!r} is also named as a factor; name a different column")
+    for key in levels:
+        if key not in factors:
+            what = "a column but not one of the factors" if key in cols else "not a column"
+            raise OptionError(
+                f"--levels: {key!r} is {what}; expected COLUMN=L1,L2,... with COLUMN one of the factors "
+                f"{factors[0]!r} and {factors[1]!r}; fix the name before '='"
+            )
+
+
+def decimal_from_values(vals: list[str], *, response: str, delimiter: str | None, decimal: str | None,
+                        row_of, notes: list[str]) -> str | None:
+    """The decimal mark of a text response, from its distinct non-missing values in order of
+    first appearance: ``decimal`` when given; else ',' (with a note) when the file is
+    ';'-delimited and every value is a number with some written with a decimal comma; a
+    ResponseError when they are decimal commas in another file.  ``row_of(value)`` gives
+    the row number of a value's first appearance."""
+    if decimal is not None:
+        return decimal
+    commas = [v for v in vals if "," in v]
+    if commas and all(_DEC_COMMA_RE.match(v) or _NUMBER_RE.match(v) for v in vals):
+        if delimiter == ";":
+            notes.append(
+                f"decimal commas: the file is ';'-delimited and response values such as {commas[0]!r} "
+                "were read with ',' as the decimal mark (give --decimal . to refuse)"
+            )
+            return ","
+        raise ResponseError(
+            f"response column {response!r} uses decimal commas (found {commas[0]!r} at row {row_of(commas[0])}); "
+            "expected a decimal point; give --decimal , (API decimal=',')"
+        )
+    return decimal
+
+
+def empty_factor_error(f: str, n: int) -> FactorError:
+    return FactorError(
+        f"factor column {f!r} is empty (no value on any of the {n} data rows); "
+        "expected a level on every row; fill it in or choose another column"
+    )
+
+
+def empty_response_error(response: str, n: int) -> ResponseError:
+    return ResponseError(
+        f"response column {response!r} is empty (no value on any of the {n} data rows); "
+        "expected numbers; choose the measured column"
+    )
+
+
+def factor_levels(f: str, present: list[str], given: list[str] | None) -> tuple[tuple[str, ...], str]:
+    """A factor's levels and how they were ordered, from its distinct (merged) values in
+    order of first appearance and the order given with ``levels=`` (if any)."""
+    if given is not None:
+        absent = [lv for lv in present if lv not in given]
+        if absent:
+            raise FactorError(
+                f"factor {f!r}: level(s) {', '.join(repr(x) for x in absent)} occur in the data but not in "
+                f"--levels {f}={','.join(given)}; expected every level listed; add them"
+            )
+        unknown = [g for g in given if g not in present]
+        if unknown:
+            raise OptionError(
+                f"--levels {f}: level {unknown[0]!r} does not occur in column {f!r} (its levels are "
+                f"{', '.join(repr(x) for x in present)}); fix the spelling or remove it"
+            )
+        return tuple(given), "given"
+    return order_levels(present)
+
+
+def check_level_counts(f: str, lv: tuple[str, ...], n_all: int, counts, *, factors: tuple[str, str],
+                       response: str, looks_continuous, hint: str = "") -> None:
+    """A factor needs two levels with data and two observations per level.  ``counts``:
+    kept rows per level of ``lv``; ``n_all``: levels before rows were dropped;
+    ``looks_continuous()``: :func:`looks_continuous_counts` of the factor's values."""
+    if len(lv) < 2:
+        why = (f" after dropping rows with missing values ({n_all} level(s) before)" if n_all > len(lv) else "")
+        raise FactorError(
+            f"factor {f!r} has {len(lv)} level(s) with data ({', '.join(lv) or 'none'}){why}; "
+            f"expected at least 2; choose a factor that varies{hint}"
+        )
+    few = [lv_ for lv_, c in zip(lv, counts) if c < 2]
+    lc = looks_continuous() if few else None
+    if lc:
+        other = factors[1] if f == factors[0] else factors[0]
+        raise FactorError(
+            f"factor {f!r} looks like a measurement, not a factor ({lc[0]} distinct numbers, {lc[1]} seen "
+            f"once; level {few[0]!r} has {int(counts[lv.index(few[0])])} observation(s)); expected a few "
+            f"repeated levels; are the response and a factor swapped? try --response {f} --factors {other} "
+            f"{response}"
+        )
+    if few:
+        raise FactorError(
+            f"factor {f!r}: level {few[0]!r} has fewer than two observations in total "
+            f"({int(counts[lv.index(few[0])])}); expected at least 2 per level; "
+            f"merge or remove that level{hint}"
+        )
+
+
+def swapped_hint_error(exc: ResponseError, c: str, lc: tuple[int, int], factors: tuple[str, str],
+                       response: str) -> ResponseError:
+    """A non-numeric response error with the hint that column ``c`` looks like the measurement."""
+    fac = [x for x in factors if x != c] + ([response] if c in factors else [])
+    return ResponseError(
+        f"{exc}; column {c!r} looks like the measurement ({lc[0]} distinct numbers): are the response "
+        f"and a factor swapped? try --response {c} --factors {' '.join(fac)}"
+    )
+
+
 def prepare(
     frame,
     *,
@@ -794,8 +971,7 @@ def prepare(
         )
     factors = _check_factors_option(factors)
     levels = _check_levels_option(levels)
-    if decimal not in (None, ".", ","):
-        raise OptionError(f"decimal: expected '.' or ',', found {decimal!r}; give --decimal , for decimal commas")
+    check_decimal(decimal)
     if source is None:
         source = Source(path="<DataFrame>", sha256=None, format="dataframe")
     if rows is None:
@@ -803,32 +979,7 @@ def prepare(
     else:
         row_kind = "line"
     cols = [str(c) for c in frame.columns]
-    seen: set[str] = set()
-    for c in cols:
-        if c in seen:
-            raise ColumnError(f"column name {c!r} appears twice; expected unique column names; rename one of them")
-        seen.add(c)
-    for role, name in (("response", response), ("factor", factors[0]), ("factor", factors[1]),
-                       ("order", order), ("unit", unit)):
-        if name is None:
-            continue
-        if name not in cols:
-            hint = ""
-            parts = [p.strip() for p in str(name).split(",")]
-            if role == "factor" and len(parts) == 2 and all(p in cols for p in parts):
-                hint = f"; give two names separated by a space: --factors {parts[0]} {parts[1]}"
-            raise ColumnError(
-                f"{role} column {name!r} not found; the columns are: {', '.join(cols)}{hint}"
-            )
-    if response in factors:
-        raise ColumnError(f"response {response!r} is also named as a factor; name a different column")
-    for key in levels:
-        if key not in factors:
-            what = "a column but not one of the factors" if key in cols else "not a column"
-            raise OptionError(
-                f"--levels: {key!r} is {what}; expected COLUMN=L1,L2,... with COLUMN one of the factors "
-                f"{factors[0]!r} and {factors[1]!r}; fix the name before '='"
-            )
+    check_columns(cols, response=response, factors=factors, levels=levels, order=order, unit=unit)
     frame = frame.copy(deep=False)
     frame.columns = cols
     notes: list[str] = []
@@ -858,20 +1009,8 @@ def prepare(
         miss_y = is_na[ycodes] & nb
         if decimal is None:
             vals = [v for v, m in zip(lookup, is_na) if not m]
-            commas = [v for v in vals if "," in v]
-            if commas and all(_DEC_COMMA_RE.match(v) or _NUMBER_RE.match(v) for v in vals):
-                i = int(np.flatnonzero(ytxt == commas[0])[0])
-                if source.delimiter == ";":
-                    decimal = ","
-                    notes.append(
-                        f"decimal commas: the file is ';'-delimited and response values such as {commas[0]!r} "
-                        "were read with ',' as the decimal mark (give --decimal . to refuse)"
-                    )
-                else:
-                    raise ResponseError(
-                        f"response column {response!r} uses decimal commas (found {commas[0]!r} at row {rows[i]}); "
-                        "expected a decimal point; give --decimal , (API decimal=',')"
-                    )
+            decimal = decimal_from_values(vals, response=response, delimiter=source.delimiter, decimal=decimal,
+                                          row_of=lambda v: rows[int(np.flatnonzero(ytxt == v)[0])], notes=notes)
         ytxt = _respell(ytxt, decimal)
 
     miss = {}
@@ -902,42 +1041,21 @@ def prepare(
 
     for f in factors:
         if miss[f][nb].all():
-            raise FactorError(
-                f"factor column {f!r} is empty (no value on any of the {int(nb.sum())} data rows); "
-                "expected a level on every row; fill it in or choose another column"
-            )
+            raise empty_factor_error(f, int(nb.sum()))
         h = merged_hint(f)
         if h:
             notes.append(f"factor {f!r}: {h[2:]}")
     if miss_y[nb].all():
-        raise ResponseError(
-            f"response column {response!r} is empty (no value on any of the {int(nb.sum())} data rows); "
-            "expected numbers; choose the measured column"
-        )
+        raise empty_response_error(response, int(nb.sum()))
 
     codes = []
     level_sets = []
     how_ordered = []
     for f in factors:
         txt = _merge_numeric_spellings(f, texts[f], levels.get(f), notes)
-        present = pd.unique(pd.Series(txt[~miss[f]], dtype=object)).tolist()
-        given = levels.get(f)
-        if given is not None:
-            absent = [lv for lv in present if lv not in given]
-            if absent:
-                raise FactorError(
-                    f"factor {f!r}: level(s) {', '.join(repr(x) for x in absent)} occur in the data but not in "
-                    f"--levels {f}={','.join(given)}; expected every level listed; add them"
-                )
-            unknown = [g for g in given if g not in present]
-            if unknown:
-                raise OptionError(
-                    f"--levels {f}: level {unknown[0]!r} does not occur in column {f!r} (its levels are "
-                    f"{', '.join(repr(x) for x in present)}); fix the spelling or remove it"
-                )
-            lv, how = tuple(given), "given"
-        else:
-            lv, how = order_levels(present)
+        # blank rows hold None here and are no level (they are counted apart)
+        present = pd.unique(pd.Series(txt[~np.equal(txt, None)], dtype=object)).tolist()
+        lv, how = factor_levels(f, present, levels.get(f))
         how_ordered.append(how)
         lookup = {v: i for i, v in enumerate(lv)}
         c = pd.Series(txt, dtype=object).map(lookup).fillna(-1).to_numpy(dtype=np.int64)
@@ -962,28 +1080,8 @@ def prepare(
     remap_b = np.cumsum(obs_b > 0) - 1 if levels.get(factors[1]) is None else np.arange(K0)
     for f, lv, n_all, counts in ((factors[0], la, J0, np.bincount(remap_a[a_keep], minlength=len(la))),
                                  (factors[1], lb, K0, np.bincount(remap_b[b_keep], minlength=len(lb)))):
-        if len(lv) < 2:
-            why = (f" after dropping rows with missing values ({n_all} level(s) before)" if n_all > len(lv) else "")
-            raise FactorError(
-                f"factor {f!r} has {len(lv)} level(s) with data ({', '.join(lv) or 'none'}){why}; "
-                f"expected at least 2; choose a factor that varies{merged_hint(f)}"
-            )
-        few = [lv_ for lv_, c in zip(lv, counts) if c < 2]
-        lc = _looks_continuous(texts[f]) if few else None
-        if lc:
-            other = factors[1] if f == factors[0] else factors[0]
-            raise FactorError(
-                f"factor {f!r} looks like a measurement, not a factor ({lc[0]} distinct numbers, {lc[1]} seen "
-                f"once; level {few[0]!r} has {int(counts[lv.index(few[0])])} observation(s)); expected a few "
-                f"repeated levels; are the response and a factor swapped? try --response {f} --factors {other} "
-                f"{response}"
-            )
-        if few:
-            raise FactorError(
-                f"factor {f!r}: level {few[0]!r} has fewer than two observations in total "
-                f"({int(counts[lv.index(few[0])])}); expected at least 2 per level; "
-                f"merge or remove that level{merged_hint(f)}"
-            )
+        check_level_counts(f, lv, n_all, counts, factors=factors, response=response,
+                           looks_continuous=lambda f=f: _looks_continuous(texts[f]), hint=merged_hint(f))
     if native_y:
         ycol_parse, y_is_text = ycol, False
     else:
@@ -997,11 +1095,7 @@ def prepare(
         for c in (*factors, *(c for c in cols if c not in (response, *factors))):
             lc = _looks_continuous(texts[c] if c in texts else _as_level_text(frame[c]))
             if lc:
-                fac = [x for x in factors if x != c] + ([response] if c in factors else [])
-                raise ResponseError(
-                    f"{exc}; column {c!r} looks like the measurement ({lc[0]} distinct numbers): are the response "
-                    f"and a factor swapped? try --response {c} --factors {' '.join(fac)}"
-                ) from None
+                raise swapped_hint_error(exc, c, lc, factors, response) from None
         raise
     J, K = len(la), len(lb)
     miss_cells = np.zeros((J, K), dtype=np.int64)
@@ -1094,3 +1188,17 @@ def load(data, *, response: str, factors, levels=None, order=None, unit=None, sh
     raise AuditInputError(
         f"data: expected a file path or a pandas DataFrame, found {type(data).__name__}"
     )
+
+
+# public names of intake's rules, shared with the engines (audit/engines/rules.py)
+fmt_scalar = _fmt_scalar
+check_factors_option = _check_factors_option
+check_levels_option = _check_levels_option
+check_encoding = _check_encoding
+sniff_delimiter = _sniff_delimiter
+header_names = _header_names
+merge_numeric_spellings = _merge_numeric_spellings
+comma_to_point = _comma_to_point
+parse_response = _parse_response
+NUMBER_RE = _NUMBER_RE
+DEC_COMMA_RE = _DEC_COMMA_RE

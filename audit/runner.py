@@ -24,8 +24,9 @@ from dataclasses import dataclass
 
 from .config import VERDICTS, AuditSpec, RunConfig, check_claims
 
-__all__ = ["AuditResult", "RunOutcome", "run_config", "cache_key", "render_line", "render_junit",
-           "render_markdown", "render_json"]
+__all__ = ["AuditResult", "RunOutcome", "run_config", "cache_key", "available_cores", "worker_count",
+           "judged_effects", "failing_effects",
+           "render_line", "render_junit", "render_markdown", "render_json"]
 
 _CAUTION = ("An automated audit supports a statistician's judgement; it does not replace it. "
             "Independence of observations cannot be checked from the data.")
@@ -47,12 +48,19 @@ class AuditResult:
     error : str or None
         The input problem that stopped the audit.
     failed : bool
-        The verdict is one of the audit's ``fail_on`` verdicts.
+        The verdict on a judged effect is one of the audit's ``fail_on``
+        verdicts: the interaction's, or that of a main effect a claim names
+        (see :func:`failing_effects`).
     fail_on : tuple of str
     cached : bool
         Reused from the cache folder.
     seconds : float
         Time taken (the cache look-up, for a cached audit).
+    effects : tuple of (str, str)
+        (effect, verdict) for every judged effect: the interaction ('AB')
+        first, then each main effect ('A', 'B') a claim names.
+    failed_effects : tuple of str
+        The effects whose verdict is in ``fail_on``, in the order of ``effects``.
     """
 
     name: str
@@ -64,6 +72,8 @@ class AuditResult:
     fail_on: tuple[str, ...]
     cached: bool
     seconds: float
+    effects: tuple[tuple[str, str], ...] = ()
+    failed_effects: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -133,11 +143,12 @@ def _run_spec(spec: AuditSpec) -> dict:
                           calibration=spec.calibration, equivalence=spec.equivalence, timestamp=False)
             else:
                 from .api import check_summary
-                from .intake import read_table
 
-                table, _, _ = read_table(spec.path)
-                f = check_summary(table, factors=spec.factors, mean=spec.mean, sd=spec.sd, n=spec.n,
-                                  response=spec.response, alpha=spec.alpha, seed=spec.seed,
+                # the file itself, as check-summary reads it: one reader, so an error names the
+                # same file line (a DataFrame read here first would number its rows from 0)
+                f = check_summary(spec.path, factors=spec.factors, mean=spec.mean, sd=spec.sd, n=spec.n,
+                                  response=spec.response, alpha=spec.alpha, sheet=spec.sheet,
+                                  encoding=spec.encoding, decimal=spec.decimal, seed=spec.seed,
                                   claim=list(spec.claim) if spec.claim else None, calibration=spec.calibration,
                                   equivalence=spec.equivalence, timestamp=False)
         d = f.to_dict()
@@ -148,6 +159,8 @@ def _run_spec(spec: AuditSpec) -> dict:
     prov["input"] = spec.rel            # as declared, relative to the config file: same in every checkout
     prov["input_sha256"] = prov.get("input_sha256") or _sha256(spec.path)
     prov["command"] = None              # run mode: the settings are in the config file, not a command line
+    if isinstance(d.get("summary_input"), dict) and d["summary_input"].get("input") is not None:
+        d["summary_input"]["input"] = spec.rel   # the cell table's path, also as declared
     return {"findings": d, "seconds": time.perf_counter() - t0}
 
 
@@ -166,11 +179,18 @@ def _library_versions() -> dict:
     return out
 
 
+#: raised when run mode's findings change shape within a version (2: a summary audit records its
+#: cell table as declared and is read through check_summary), so older cache entries are not reused
+CACHE_FORMAT = 2
+
+
 def cache_key(spec: AuditSpec, *, libraries: dict | None = None) -> str:
-    """SHA-256 of the input file's SHA-256, the audit's settings and the tool, Python and library versions."""
+    """SHA-256 of the input file's SHA-256, the audit's settings, :data:`CACHE_FORMAT` and the tool,
+    Python and library versions."""
     from . import __version__
 
-    doc = {"tool": "twoway-audit", "version": __version__, "python": platform.python_version(),
+    doc = {"tool": "twoway-audit", "version": __version__, "cache_format": CACHE_FORMAT,
+           "python": platform.python_version(),
            "libraries": libraries if libraries is not None else _library_versions(),
            "settings": spec.settings(), "input_sha256": _sha256(spec.path)}
     return hashlib.sha256(json.dumps(doc, sort_keys=True, ensure_ascii=True).encode("ascii")).hexdigest()
@@ -200,11 +220,66 @@ def _cache_load(path: str, key: str, name: str) -> dict | None:
 # ------------------------------------------------------------------ running all
 
 
+def available_cores() -> int:
+    """The cores this process may run on: ``os.process_cpu_count()`` (Python 3.13+), else
+    the CPU affinity mask, else ``os.cpu_count()``; at least 1."""
+    fn = getattr(os, "process_cpu_count", None)
+    n = fn() if fn is not None else None
+    if not n and hasattr(os, "sched_getaffinity"):
+        try:
+            n = len(os.sched_getaffinity(0))
+        except OSError:
+            n = None
+    if not n:
+        n = os.cpu_count()
+    return max(1, int(n or 1))
+
+
+def worker_count(jobs: int, audits: int) -> tuple[int, str | None]:
+    """The worker processes to start for ``jobs`` requested and ``audits`` to run: at most
+    the cores available and the number of audits.  Returns (count, why it is lower than
+    ``jobs``, or None)."""
+    cores = available_cores()
+    n = max(1, min(jobs, cores, max(audits, 1)))
+    if n >= jobs:
+        return n, None
+    why = []
+    if cores < jobs and n == cores:
+        why.append(f"{cores} core{'s' if cores != 1 else ''} available")
+    if audits < jobs and n == max(audits, 1):
+        why.append(f"{audits} audit{'s' if audits != 1 else ''} to run")
+    return n, ", ".join(why)
+
+
 def _worker_init() -> None:
     import signal
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)   # the parent handles Ctrl-C and stops the workers
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
+
+
+_EFFECTS = ("AB", "A", "B")
+
+
+def judged_effects(findings: dict) -> tuple[tuple[str, str], ...]:
+    """(effect, verdict) for every effect the findings judge: the interaction first, then
+    each main effect a claim names (findings without per-effect verdicts: the overall one)."""
+    out = [(e["effect"], e["verdict"]) for e in findings.get("effect_verdicts") or ()
+           if isinstance(e, dict) and e.get("effect") in _EFFECTS and e.get("verdict") in VERDICTS]
+    if not any(e == "AB" for e, _ in out) and findings.get("verdict") in VERDICTS:
+        out.insert(0, ("AB", findings["verdict"]))
+    return tuple(out)
+
+
+def failing_effects(findings: dict, fail_on) -> tuple[str, ...]:
+    """The judged effects whose verdict is one of ``fail_on``.
+
+    The rule of run mode: an audit fails when the verdict on *any* judged effect is in
+    its ``fail_on`` -- the interaction's, and that of each main effect a claim names
+    (a main-effect line that cannot be reproduced or does not hold fails the audit,
+    exactly like an interaction line).  Main effects that no claim names are not judged.
+    """
+    return tuple(e for e, v in judged_effects(findings) if v in fail_on)
 
 
 def _result(spec: AuditSpec, raw: dict, *, cached: bool, seconds: float | None = None) -> AuditResult:
@@ -213,9 +288,11 @@ def _result(spec: AuditSpec, raw: dict, *, cached: bool, seconds: float | None =
                            failed=False, fail_on=spec.fail_on, cached=False, seconds=raw["seconds"])
     f = raw["findings"]
     v = f.get("verdict")
+    failing = failing_effects(f, spec.fail_on)
     return AuditResult(name=spec.name, verdict=v, reasons=tuple(f.get("reasons") or ()), findings=f, error=None,
-                       failed=v in spec.fail_on, fail_on=spec.fail_on, cached=cached,
-                       seconds=raw["seconds"] if seconds is None else seconds)
+                       failed=bool(failing), fail_on=spec.fail_on, cached=cached,
+                       seconds=raw["seconds"] if seconds is None else seconds,
+                       effects=judged_effects(f), failed_effects=failing)
 
 
 def run_config(config: RunConfig, *, jobs: int = 1, cache: str | None = None, on_result=None) -> RunOutcome:
@@ -225,7 +302,9 @@ def run_config(config: RunConfig, *, jobs: int = 1, cache: str | None = None, on
     ----------
     config : RunConfig
     jobs : int, default 1
-        Worker processes (1 runs the audits in this process, one after another).
+        Worker processes (1 runs the audits in this process, one after another);
+        never more than the cores available (:func:`available_cores`) or the
+        audits left to run.
     cache : str, optional
         Folder of stored findings (created when missing); audits whose key is
         unchanged are not run again.
@@ -266,7 +345,8 @@ def run_config(config: RunConfig, *, jobs: int = 1, cache: str | None = None, on
         return r
 
     results: list[AuditResult] = []
-    if jobs <= 1 or len(todo) <= 1:
+    jobs, _ = worker_count(jobs, len(todo))
+    if jobs <= 1:
         for i in range(len(specs)):
             r = ready[i] if i in ready else store(i, _run_spec(specs[i]))
             results.append(r)
@@ -275,7 +355,7 @@ def run_config(config: RunConfig, *, jobs: int = 1, cache: str | None = None, on
     else:
         from concurrent.futures import ProcessPoolExecutor
 
-        pool = ProcessPoolExecutor(max_workers=min(jobs, len(todo)), initializer=_worker_init)
+        pool = ProcessPoolExecutor(max_workers=jobs, initializer=_worker_init)
         try:
             futures = {i: pool.submit(_run_spec, specs[i]) for i in todo}
             for i in range(len(specs)):
@@ -300,10 +380,48 @@ def _shorten(text: str, width: int) -> str:
     return text if len(text) <= width else text[: width - 3].rstrip() + "..."
 
 
+def _effect_name(r: AuditResult, effect: str) -> str:
+    """'A (flour)' for a main effect, 'interaction' for AB."""
+    if effect == "AB":
+        return "interaction"
+    factors = (r.findings or {}).get("factors") or ()
+    i = "AB".index(effect)
+    return f"{effect} ({factors[i]})" if len(factors) == 2 else effect
+
+
+def _effect_reasons(r: AuditResult, effect: str) -> tuple:
+    if effect == "AB":
+        return r.reasons
+    for e in (r.findings or {}).get("effect_verdicts") or ():
+        if isinstance(e, dict) and e.get("effect") == effect:
+            return tuple(e.get("reasons") or ())
+    return ()
+
+
+def _lead_effect(r: AuditResult) -> str:
+    """The effect whose reasons lead: the interaction unless only a main effect fails."""
+    return r.failed_effects[0] if r.failed_effects else "AB"
+
+
+def _verdict_text(r: AuditResult, code=lambda v: v, name=lambda t: t) -> str:
+    """The overall verdict, then each claimed main effect's: 'holds; A (flour): not-reproducible'
+    (``code`` marks up a verdict word, ``name`` escapes an effect's name)."""
+    parts = [code(r.verdict)] + [f"{name(_effect_name(r, e))}: {code(v)}" for e, v in r.effects if e != "AB"]
+    return "; ".join(parts)
+
+
+def _failed_verdict(r: AuditResult) -> str:
+    e = _lead_effect(r)
+    return dict(r.effects).get(e, r.verdict) if e != "AB" else r.verdict
+
+
 def _top_reason(r: AuditResult) -> str:
     if r.error is not None:
         return r.error
-    return r.reasons[0]["text"] if r.reasons else "(no reason given)"
+    e = _lead_effect(r)
+    reasons = _effect_reasons(r, e)
+    text = reasons[0]["text"] if reasons else "(no reason given)"
+    return text if e == "AB" else f"{_effect_name(r, e)}: {text}"
 
 
 def _status(r: AuditResult) -> str:
@@ -314,7 +432,7 @@ def render_line(r: AuditResult, *, width: int = 110) -> str:
     """One line for the terminal: status, name, verdict, '(cached)', the top reason shortened."""
     from .render.text import sanitize
 
-    what = "could not run" if r.error is not None else r.verdict
+    what = "could not run" if r.error is not None else _verdict_text(r)
     cached = " (cached)" if r.cached else ""
     return sanitize(f"{_status(r):<5} {r.name}: {what}{cached} - {_shorten(_top_reason(r), width)}")
 
@@ -328,8 +446,12 @@ def _x(text) -> str:
 
 
 def _reason_lines(r: AuditResult) -> str:
-    lines = [f"verdict: {r.verdict}", f"fail_on: {', '.join(r.fail_on) or '(nothing)'}", "reasons:"]
-    lines += [f"- [{x.get('weight')}] {x.get('text')} ({x.get('ref')})" for x in r.reasons]
+    lines = [f"verdict: {_verdict_text(r)}", f"fail_on: {', '.join(r.fail_on) or '(nothing)'}"]
+    if r.failed_effects:
+        lines.append(f"failed: {', '.join(_effect_name(r, e) for e in r.failed_effects)}")
+    for e, v in r.effects or (("AB", r.verdict),):
+        lines.append("reasons:" if e == "AB" else f"reasons ({_effect_name(r, e)}: {v}):")
+        lines += [f"- [{x.get('weight')}] {x.get('text')} ({x.get('ref')})" for x in _effect_reasons(r, e)]
     return "\n".join(lines)
 
 
@@ -351,8 +473,8 @@ def render_junit(outcome: RunOutcome) -> bytes:
             e.text = _x(r.error)
             continue
         if r.failed:
-            fl = ET.SubElement(tc, "failure", type=_x(r.verdict),
-                               message=_x(f"{r.verdict}: {_shorten(_top_reason(r), 300)}"))
+            fl = ET.SubElement(tc, "failure", type=_x(_failed_verdict(r)),
+                               message=_x(f"{_failed_verdict(r)}: {_shorten(_top_reason(r), 300)}"))
             fl.text = _x(_reason_lines(r))
         out = ET.SubElement(tc, "system-out")
         out.text = _x(_reason_lines(r) + ("\n(cached)" if r.cached else ""))
@@ -382,7 +504,7 @@ def render_markdown(outcome: RunOutcome) -> str:
              "| Audit | Result | Verdict | Main reason |", "|---|---|---|---|"]
     for r in outcome.results:
         status = {"ERROR": "**error**", "FAIL": "**fail**", "pass": "pass"}[_status(r)]
-        verdict = "-" if r.verdict is None else f"`{r.verdict}`"
+        verdict = "-" if r.verdict is None else _verdict_text(r, lambda v: f"`{v}`", _md)
         lines.append(f"| {_md(r.name)} | {status} | {verdict} | {_md(_shorten(_top_reason(r), 300))} |")
     lines += ["", f"_{_CAUTION}_", ""]
     return "\n".join(lines)
@@ -398,7 +520,8 @@ def render_json(outcome: RunOutcome) -> str:
         "config": outcome.config_name,
         "exit_status": outcome.exit_status(),
         "audits": {
-            r.name: {"verdict": r.verdict, "failed": r.failed, "fail_on": list(r.fail_on), "error": r.error,
+            r.name: {"verdict": r.verdict, "effects": dict(r.effects), "failed": r.failed,
+                     "failed_effects": list(r.failed_effects), "fail_on": list(r.fail_on), "error": r.error,
                      "findings": r.findings}
             for r in outcome.results
         },

@@ -266,3 +266,27 @@ def test_exit_code_3_and_2_through_the_command(tmp_path):
     assert r.returncode == 3, r.stderr
     r = _run("check", str(p), "--response", "y", "--factors", "a", "b", "--claim", "F is big")
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1
+
+
+def test_claimed_main_effect_not_reproducible_fails_check():
+    # the interaction holds on the greenhouse scenario; a main-effect claim whose F the data
+    # cannot give must still fail the command (exit 1), one that the data give must not.
+    # reference: statsmodels anova_lm(typ=2) for the main effect's F and df
+    import statsmodels.api as sm
+    import statsmodels.formula.api as smf
+
+    make, response, factors = make_demo.DATASETS["greenhouse_tomato"]
+    df = make()
+    b = factors[1]   # irrigation: a clearly absent main effect (p about .6)
+    model = smf.ols(f"Q('{response}') ~ C(Q('{factors[0]}')) * C(Q('{b}'))", data=df).fit()
+    row = sm.stats.anova_lm(model, typ=2).iloc[1]
+    f_a, df1, df2 = float(row["F"]), int(row["df"]), int(model.df_resid)
+    base = _check("greenhouse_tomato")
+    assert base.verdict == "holds" and base.exit_status() == 0
+    wrong = _check("greenhouse_tomato", claim=(f"{b}: F({df1}, {df2}) = {f_a * 3 + 5:.2f}",))
+    assert wrong.verdict == "holds"
+    assert wrong.judgement.verdict.effect("B").verdict == "not-reproducible"
+    assert wrong.exit_status() == 1
+    right = _check("greenhouse_tomato", claim=(f"{b}: F({df1}, {df2}) = {f_a:.2f}",))
+    assert right.judgement.verdict.effect("B").verdict in ("holds", "holds-with-caveats")
+    assert right.exit_status() == 0

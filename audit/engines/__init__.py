@@ -37,7 +37,7 @@ def _size(data) -> int | None:
     total = 0
     for it in items:
         it = os.fspath(it)
-        for f in (glob.glob(it) if glob.has_magic(it) else [it]):
+        for f in (glob.glob(it) if glob.has_magic(it) and not os.path.exists(it) else [it]):
             try:
                 total += os.path.getsize(f)
             except OSError:
@@ -56,7 +56,8 @@ def choose_engine(data, engine: str | None) -> str:
     if engine != "auto":
         return engine
     is_path = isinstance(data, (str, os.PathLike))
-    many = isinstance(data, (list, tuple)) or (is_path and glob.has_magic(os.fspath(data)))
+    many = isinstance(data, (list, tuple)) or (is_path and glob.has_magic(os.fspath(data))
+                                               and not os.path.exists(data))
     size = _size(data) if (is_path or many) else None
     if many or (size is not None and size > AUTO_ENGINE_BYTES):
         try:
@@ -72,13 +73,16 @@ def choose_engine(data, engine: str | None) -> str:
     return "memory"
 
 
-def open_backend(engine: str, data, *, spark_master: str | None = None):
+def open_backend(engine: str, data, *, spark_master: str | None = None, encoding: str | None = None, sheet=None):
     if engine == "duckdb":
         from .duckdb_engine import DuckDBBackend
 
-        return DuckDBBackend(data)
+        return DuckDBBackend(data, encoding=encoding, sheet=sheet)
     if engine == "spark":
         from .spark_engine import SparkBackend
 
+        if encoding is not None or sheet is not None:
+            raise OptionError("encoding / sheet: not available with engine spark (it reads UTF-8 text and "
+                              "Parquet); leave them out or use --engine duckdb")
         return SparkBackend(data, master=spark_master)
     raise OptionError(f"engine: expected duckdb or spark here, found {engine!r}")

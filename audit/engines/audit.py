@@ -123,9 +123,9 @@ def findings_from_scan(scan: Scan, *, alpha, resamples, seed, diagnostics, metho
     cm = scan.moments
     cells = cm.cells
     la, lb = cells.levels_a, cells.levels_b
-    dropped = DroppedRows(total=int(cm.missing_response.sum()) + cm.missing_factor,
-                          missing_response=cm.missing_response, missing_factor=cm.missing_factor,
-                          missing_other=0, blank_lines=0, rows=())
+    dropped = scan.dropped if scan.dropped is not None else DroppedRows(
+        total=int(cm.missing_response.sum()) + cm.missing_factor, missing_response=cm.missing_response,
+        missing_factor=cm.missing_factor, missing_other=0, blank_lines=0, rows=())
     source = Source(path=str(source_path), sha256=None, format=scan.info["source"].get("format", "engine"))
     obs_s = sample_observations(scan, dropped, source)
     fit_m = fit_cells(cells, alpha=alpha)
@@ -135,7 +135,10 @@ def findings_from_scan(scan: Scan, *, alpha, resamples, seed, diagnostics, metho
     fa = fit_m.anova.additive_fit.ravel()[cell]
     hybrid = Fit(cells=cells, anova=fit_m.anova, alpha=fit_m.alpha, obs=obs_s, fitted_full=ff,
                  resid_full=obs_s.y - ff, fitted_additive=fa, resid_additive=obs_s.y - fa)
-    design = describe_design(cells, dropped=dropped.to_dict(la, lb), centring=scan.centring)
+    design = describe_design(cells, dropped=dropped.to_dict(la, lb), centring=scan.centring,
+                             level_order=scan.level_order)
+    if scan.notes:
+        design = dataclasses.replace(design, notes=(*scan.notes, *design.notes))
     N = cells.N
     sentence = _sample_sentence(scan.info, N)
     sample = {"rows": scan.info["sample_rows"], "per_cell": scan.info["sample_per_cell"],
@@ -160,9 +163,11 @@ def findings_from_scan(scan: Scan, *, alpha, resamples, seed, diagnostics, metho
         by_id["homogeneity"] = homogeneity(fit_m, tests=_exact_homogeneity_tests(cm, fit_s))
         by_id["balance"] = balance(fit_m)
         by_id["missingness"] = missingness(hybrid)
+        # when the sample is every row, the row-based checks are exact and vote as in memory
+        whole_rows = scan.info["sample_rows"] == N
         for fn in (outliers, influence, fragility, scale):
             d = fn(fit_s)
-            by_id[d.id] = _mark_diag(d, sample, sentence, keep_facts=d.id not in _NO_FACTS)
+            by_id[d.id] = _mark_diag(d, sample, sentence, keep_facts=whole_rows or d.id not in _NO_FACTS)
         by_id["shape"] = shape(fit_m)
         ind = independence(fit_m)
         by_id["independence"] = dataclasses.replace(

@@ -108,13 +108,34 @@ def _yr(d: Dialect, y: str, rk: ResponseKind) -> tuple[str, str]:
     return yr, bad
 
 
+def pow2_factors(s: float) -> tuple[float, ...]:
+    """Powers of two whose product is exactly 1 / s (s an exact power of two): one
+    factor when 1 / s is a normal double, else two (1 / s overflows for s < 2^-1023)."""
+    e = math.frexp(s)[1] - 1
+    if -1022 <= -e <= 1023:
+        return (math.ldexp(1.0, -e),)
+    h = -e // 2
+    return (math.ldexp(1.0, h), math.ldexp(1.0, -e - h))
+
+
+def scaled(d: Dialect, x: str, s: float) -> str:
+    """SQL of x / s for an exact power of two s, exact wherever the result is a normal double."""
+    out = x
+    for f in pow2_factors(s):
+        if f != 1.0:
+            out = f"({out}) * {d.double(f)}"
+    return out
+
+
 def base_select(d: Dialect, source: str, *, response: str, factors: tuple[str, str], rk: ResponseKind,
-                key: str | None = None, rowno: str | None = None) -> str:
+                key: str | None = None, rowno: str | None = None, scale: float | None = None) -> str:
     """The one row-level definition every pass aggregates: factor levels as text,
-    y - offset as DOUBLE (NULL when missing), a flag for unusable values, and
-    optionally the sample key."""
+    y - offset as DOUBLE (NULL when missing; divided by the exact power of two
+    ``scale`` when given), a flag for unusable values, and optionally the sample key."""
     fa, fb = (f"CAST({d.q(f)} AS {d.string_type})" for f in factors)
     yr, bad = _yr(d, d.q(response), rk)
+    if scale is not None:
+        yr = scaled(d, yr, scale)
     extra = (f", {key} AS skey" if key else "") + (f", {rowno} AS rowno" if rowno else "")
     return f"SELECT {fa} AS fa, {fb} AS fb, {yr} AS yr, {bad} AS bad{extra} FROM {source}"
 
@@ -126,9 +147,9 @@ def pass_counts_sql(d: Dialect, base: str) -> str:
 
 
 def pass_centred_sql(d: Dialect, base: str, cell_table: str, inv_s: float) -> str:
-    s = d.double(inv_s)
-    return (f"WITH src AS ({base}), t AS (SELECT src.fa AS fa, src.fb AS fb, src.yr * {s} - p.mu AS dd, "
-            f"src.yr * {s} - p.md AS ee FROM src JOIN {cell_table} p ON src.fa = p.fa AND src.fb = p.fb "
+    ys = scaled(d, "src.yr", 1.0 / inv_s) if inv_s != 1.0 else "src.yr"
+    return (f"WITH src AS ({base}), t AS (SELECT src.fa AS fa, src.fb AS fb, {ys} - p.mu AS dd, "
+            f"{ys} - p.md AS ee FROM src JOIN {cell_table} p ON src.fa = p.fa AND src.fb = p.fb "
             f"WHERE src.yr IS NOT NULL) "
             f"SELECT fa, fb, SUM(dd) AS s1, SUM(dd * dd) AS s2, SUM(dd * dd * dd) AS s3, "
             f"SUM((dd * dd) * (dd * dd)) AS s4, AVG(abs(dd)) AS zm, VAR_SAMP(abs(dd)) AS zv, "
@@ -162,12 +183,13 @@ def order_levels(found: list[str], factor: str, given=None) -> tuple[str, ...]:
 
 
 def assemble_moments(counts_rows, centred_rows, *, factors, response, offset, levels=None,
-                     unit_scale: float) -> tuple[CellMoments, dict]:
+                     unit_scale: float, prescaled: bool = False) -> tuple[CellMoments, dict]:
     """Turn the rows of the first two passes into CellMoments (and level codes).
 
     ``counts_rows``: (fa, fb, n_rows, n, n_bad, lo, hi, mean0, med) per group,
     NULL factor groups included; ``centred_rows``: (fa, fb, s1, s2, s3, s4, zm,
-    zv, em, ev); ``unit_scale``: the power of two the second pass divided by.
+    zv, em, ev); ``unit_scale``: the power of two the second pass divided by
+    (``prescaled``: the first pass's values are already in its units).
     """
     missing_factor = sum(int(r[2]) for r in counts_rows if r[0] is None or r[1] is None)
     rows = [r for r in counts_rows if r[0] is not None and r[1] is not None]
@@ -196,7 +218,8 @@ def assemble_moments(counts_rows, centred_rows, *, factors, response, offset, le
         n[j, k] = int(nn)
         miss[j, k] = int(n_rows) - int(nn)
         if nn:
-            lo[j, k], hi[j, k], med[j, k], mu0[j, k] = (float(x) / s for x in (a_lo, a_hi, md, m0))
+            lo[j, k], hi[j, k], med[j, k], mu0[j, k] = (float(x) / (1.0 if prescaled else s)
+                                                        for x in (a_lo, a_hi, md, m0))
     if n.sum() == 0:
         raise ResponseError(f"response {response!r}: no usable values; expected numbers in the column")
     S = np.zeros((4, J, K))

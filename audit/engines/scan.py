@@ -15,9 +15,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..design import CellMoments, pow2_scale
-from ..errors import ResponseError
-from .moments import (SAMPLE_MARGIN, ResponseKind, assemble_moments, base_select, check_columns,
-                      pass_centred_sql, pass_counts_sql, pass_sample_sql, _na_clause)
+from .moments import (SAMPLE_MARGIN, assemble_moments, base_select, pass_centred_sql, pass_counts_sql,
+                      pass_sample_sql)
 
 __all__ = ["Scan", "run_scan", "DEFAULT_SAMPLE_PER_CELL"]
 
@@ -41,43 +40,9 @@ class Scan:
     sample_rows: np.ndarray | None
     centring: str | None
     info: dict
-
-
-def _response_kind(backend, response: str) -> ResponseKind:
-    d = backend.dialect
-    y = d.q(response)
-    src = backend.source
-    kind = backend.column_kind(response)
-    if kind == "double":
-        inf = "CAST('Infinity' AS DOUBLE)"
-        yd = f"CAST({y} AS DOUBLE)"
-        # MIN, not "LIMIT 1": a parallel scan returns an arbitrary first row, and the offset must
-        # not change between runs (the sample is reported relative to it)
-        rows = backend.query(f"SELECT MIN({yd}) FROM {src} WHERE {yd} IS NOT NULL AND NOT isnan({yd}) "
-                             f"AND abs({yd}) < {inf}")
-        rows = [r for r in rows if r[0] is not None]
-        return ResponseKind("double", offset=float(rows[0][0]) if rows else 0.0)
-    if kind[0] == "decimal":
-        rows = backend.query(f"SELECT CAST(MIN({y}) AS {d.string_type}) FROM {src} WHERE {y} IS NOT NULL")
-        text = rows[0][0] if rows and rows[0][0] is not None else "0"
-        return ResponseKind("decimal", scale=int(kind[1]), offset_text=text, offset=float(text))
-    # text: decimal scale from the digits found, else parsed as double
-    na = _na_clause(d, y)
-    t = f"trim({y})"
-    rows = backend.query(
-        f"SELECT MAX(length(regexp_extract({t}, '[.]([0-9]+)', 1))), "
-        f"MAX(length(regexp_extract({t}, '^[+-]?0*([0-9]*)', 1))), "
-        f"SUM(CASE WHEN lower({t}) LIKE '%e%' THEN 1 ELSE 0 END) FROM {src} WHERE NOT {na}")
-    dec, intd, expo = rows[0] if rows else (0, 0, 0)
-    dec, intd, expo = int(dec or 0), int(intd or 0), int(expo or 0)
-    first = backend.query(f"SELECT MIN({t}) FROM {src} WHERE NOT {na} AND try_cast({t} AS DOUBLE) IS NOT NULL")
-    first = [r for r in first if r[0] is not None]
-    if not first:
-        raise ResponseError(f"response {response!r}: no numeric values found; expected numbers in the column")
-    text = str(first[0][0])
-    if expo == 0 and dec + intd <= 38 and "e" not in text.lower():
-        return ResponseKind("text", scale=dec, offset_text=text, offset=float(text))
-    return ResponseKind("text", offset=float(text))
+    dropped: object = None          # intake.DroppedRows, counted by the in-memory intake's rules
+    notes: tuple = ()               # what intake decided for the user (merged spellings, decimal commas)
+    level_order: tuple = ("first appearance", "first appearance")
 
 
 def _timed(backend, sql: str, label: str, progress):
@@ -87,29 +52,35 @@ def _timed(backend, sql: str, label: str, progress):
 
 
 def run_scan(backend, *, response: str, factors: tuple[str, str], levels=None,
-             sample_per_cell: int = DEFAULT_SAMPLE_PER_CELL, seed: int = 0, progress: bool = True) -> Scan:
-    """Run the three passes on ``backend`` and assemble moments and sample."""
-    check_columns(backend.columns(), response, factors, backend.dialect.name)
+             sample_per_cell: int = DEFAULT_SAMPLE_PER_CELL, seed: int = 0, progress: bool = True,
+             decimal: str | None = None) -> Scan:
+    """Validate the data by the in-memory intake's rules (:mod:`audit.engines.rules`), run the
+    three passes on ``backend`` and assemble moments and sample."""
+    from .rules import apply_intake
+
     d = backend.dialect
-    rk = _response_kind(backend, response)
-    base = base_select(d, backend.source, response=response, factors=factors, rk=rk)
+    ei = apply_intake(backend, response=response, factors=factors, levels=levels, decimal=decimal)
+    factors = tuple(factors)
+    rk = ei.rk
+    src = ei.source
     timings = {}
+    # the exact power of two of both moment passes, from the kept responses' extremes (minus the
+    # offset): every moment is formed on values of order one, so 1e307 or 1e-310 neither overflow
+    # nor underflow (as design.pow2_scale does in memory)
+    s = pow2_scale(np.asarray([abs(ei.lo), abs(ei.hi)]))
+    base = base_select(d, src, response="y", factors=("fa", "fb"), rk=rk, scale=s)
     counts_rows, timings["counts"] = _timed(backend, pass_counts_sql(d, base), "pass 1/3 (counts, median)", progress)
-    # the exact power of two of the second pass (so d^4 stays inside float64)
-    ext = [abs(float(x)) for r in counts_rows if r[0] is not None and r[1] is not None and r[3]
-           for x in (r[5], r[6])]
-    s = pow2_scale(np.asarray(ext)) if ext else 1.0
-    # provisional means and medians per cell, in units of s
     import pandas as pd
 
     good = [r for r in counts_rows if r[0] is not None and r[1] is not None and r[3]]
     params = pd.DataFrame({"fa": [r[0] for r in good], "fb": [r[1] for r in good],
-                           "mu": [float(r[7]) / s for r in good], "md": [float(r[8]) / s for r in good]})
+                           "mu": [float(r[7]) for r in good], "md": [float(r[8]) for r in good]})
     cell_table = backend.register("twa_cells", params)
-    centred_rows, timings["centred"] = _timed(backend, pass_centred_sql(d, base, cell_table, 1.0 / s),
+    centred_rows, timings["centred"] = _timed(backend, pass_centred_sql(d, base, cell_table, 1.0),
                                               "pass 2/3 (centred moments)", progress)
     cm, lv = assemble_moments(counts_rows, centred_rows, factors=factors, response=response, offset=rk.offset,
-                              levels=levels, unit_scale=s)
+                              levels={factors[0]: ei.levels_a, factors[1]: ei.levels_b}, unit_scale=s,
+                              prescaled=True)
     # pass 3: the seeded sample
     k = int(sample_per_cell)
     n_by = {(r[0], r[1]): int(r[3]) for r in good}
@@ -117,8 +88,7 @@ def run_scan(backend, *, response: str, factors: tuple[str, str], levels=None,
     thr = {c: (2.0 if n <= k else min(2.0, SAMPLE_MARGIN * k / n + 16.0 / n)) for c, n in n_by.items()}
     key = backend.sample_key(seed)
     rowno = backend.row_number_expr()
-    sbase = base_select(d, backend.source, response=response, factors=factors, rk=rk,
-                        key=key, rowno=rowno)
+    sbase = base_select(d, src, response="y", factors=("fa", "fb"), rk=rk, key=key, rowno=rowno)
     extra = ", src.rowno AS rowno" if rowno is not None else ""
     got = None
     t0 = time.perf_counter()
@@ -143,11 +113,7 @@ def run_scan(backend, *, response: str, factors: tuple[str, str], levels=None,
     order = np.lexsort((np.arange(a.size), b, a))
     a, b, y = a[order], b[order], y[order]
     rows_out = got["rowno"].to_numpy(np.int64)[order] if rowno is not None else None
-    centring = None
-    if rk.offset != 0.0:
-        how = "as exact decimals" if rk.offset_text is not None else "in double precision"
-        centring = (f"{rk.offset_text or repr(rk.offset)} (one value of the response) was subtracted {how} "
-                    "inside the engine's first pass before any moment was formed")
+    centring = ei.centring
     info = {
         "name": backend.dialect.name,
         "version": backend.version,
@@ -160,4 +126,5 @@ def run_scan(backend, *, response: str, factors: tuple[str, str], levels=None,
         "sample_seed": int(seed),
         "sample_key": backend.sample_key_description,
     }
-    return Scan(moments=cm, sample_a=a, sample_b=b, sample_y=y, sample_rows=rows_out, centring=centring, info=info)
+    return Scan(moments=cm, sample_a=a, sample_b=b, sample_y=y, sample_rows=rows_out, centring=centring, info=info,
+                dropped=ei.dropped, notes=ei.notes, level_order=ei.level_order)

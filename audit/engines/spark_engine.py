@@ -78,6 +78,14 @@ class SparkBackend:
         self.df = df
         self.source = _VIEW
         self._seed = 0
+        # what audit/engines/rules.py reads (untested: pyspark is not in the test environment)
+        from pyspark.sql import functions as F
+
+        df.withColumn("twa_rn", F.monotonically_increasing_id()).createOrReplaceTempView(_VIEW + "_rn")
+        self.raw, self.raw_rn = _VIEW, _VIEW + "_rn"
+        self.format = self.kind
+        self.files = [str(self.data)]
+        self.delimiter = ("\t" if str(self.data).lower().endswith(".tsv") else ",") if self.kind == "csv" else None
 
     def describe(self) -> dict:
         return {"format": self.kind, "table_or_path": str(self.data),
@@ -85,6 +93,15 @@ class SparkBackend:
 
     def columns(self) -> list[str]:
         return list(self.df.columns)
+
+    def column_type(self, name: str) -> str:
+        t = self.df.schema[name].dataType.simpleString().upper()
+        return {"STRING": "VARCHAR", "INT": "INTEGER", "LONG": "BIGINT", "SHORT": "SMALLINT", "BYTE": "TINYINT",
+                "BOOLEAN": "BOOLEAN"}.get(t, t)
+
+    def row_numbers(self, rns) -> dict:
+        """monotonically_increasing_id is no row number: shown as given (untested)."""
+        return {int(r): int(r) + 1 for r in rns}
 
     def column_kind(self, name: str):
         from pyspark.sql.types import DecimalType, StringType
