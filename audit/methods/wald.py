@@ -23,7 +23,13 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..core import additive_wls_filled, type3_contrasts, type3_main_rdiag, type3_main_wald
+from ..core import (
+    Type3Contrast,
+    dense_contrast,
+    structured_rdiag,
+    structured_ss,
+    type3_contrasts,
+)
 
 __all__ = ["wald_quadratic", "welch_james_a"]
 
@@ -45,14 +51,8 @@ def wald_quadratic(means: np.ndarray, v: np.ndarray, C: np.ndarray) -> np.ndarra
     v = np.asarray(v, dtype=float)
     st = _structure(C, v)
     if st is not None:
-        J, K, effect = st
-        if effect != "AB":
-            return type3_main_wald(means, v, J, K, effect)
-        w = 1.0 / v
-        R, _ = additive_wls_filled(w.reshape(w.shape[:-1] + (J, K)),
-                                   means.reshape(means.shape[:-1] + (J, K)))
-        R = R.reshape(R.shape[:-2] + (J * K,))
-        return np.sum(w * R * R, axis=-1)
+        return structured_ss(Type3Contrast(*st), means, v)
+    C = dense_contrast(C, _SKIP)
     Cy = means @ C.T                                  # (..., r)
     M = (C * v[..., None, :]) @ C.T                   # (..., r, r)
     sol = np.linalg.solve(M, Cy[..., None])[..., 0]
@@ -69,15 +69,8 @@ def welch_james_a(v: np.ndarray, dfs: np.ndarray, C: np.ndarray) -> np.ndarray:
     v = np.asarray(v, dtype=float)
     st = _structure(C, v)
     if st is not None:
-        J, K, effect = st
-        if effect != "AB":
-            R_diag = type3_main_rdiag(v, J, K, effect)
-        else:
-            w = 1.0 / v
-            _, g = additive_wls_filled(w.reshape(w.shape[:-1] + (J, K)), np.zeros(v.shape[:-1] + (J, K)),
-                                       leverage=True)
-            R_diag = 1.0 - w * g.reshape(g.shape[:-2] + (J * K,))
-        return np.sum(R_diag ** 2 / dfs, axis=-1)
+        return np.sum(structured_rdiag(Type3Contrast(*st), v) ** 2 / dfs, axis=-1)
+    C = dense_contrast(C, _SKIP)
     M = (C * v[..., None, :]) @ C.T                   # (..., r, r)
     Minv_C = np.linalg.solve(M, np.broadcast_to(C, M.shape[:-2] + C.shape))  # (..., r, m)
     R_diag = v * np.sum(C * Minv_C, axis=-2)          # (..., m)
@@ -88,11 +81,21 @@ def welch_james_a(v: np.ndarray, dfs: np.ndarray, C: np.ndarray) -> np.ndarray:
 #: keep their numbers bit for bit; the structured forms agree to rounding)
 _DENSE_WORK = 2_000_000
 
+#: how to avoid a dense Wald form that does not fit the memory budget
+_SKIP = ("a cell with zero variance leaves no structured Welch-James/HC form; skip the alternative methods "
+         "(check(methods=False), --no-methods)")
+
 
 def _structure(C: np.ndarray, v: np.ndarray):
     """(J, K, effect) when C is exactly the Type III contrast of ``effect`` on a
     full J x K grid, every v is positive and finite, and the dense form would
-    cost more than :data:`_DENSE_WORK`; else None."""
+    cost more than :data:`_DENSE_WORK`; else None.  A :class:`audit.core.Type3Contrast`
+    says so by its type (never compared entry by entry)."""
+    if isinstance(C, Type3Contrast):
+        r, m = C.shape
+        if r * r * m < _DENSE_WORK or not (np.all(np.isfinite(v)) and np.all(v > 0)):
+            return None
+        return C.J, C.K, C.effect
     C = np.asarray(C)
     if C.ndim != 2:
         return None
