@@ -21,6 +21,7 @@ References
 
 from __future__ import annotations
 
+import contextlib
 import math
 from dataclasses import dataclass
 
@@ -47,6 +48,7 @@ __all__ = [
     "dense_contrast",
     "structured_ss",
     "structured_rdiag",
+    "structured_ss_rdiag",
     "structured_restricted_fit",
     "structured_restricted_leverage",
     "interaction_traces",
@@ -199,6 +201,25 @@ def weighted_ls_residual(X: np.ndarray, w: np.ndarray, target: np.ndarray) -> tu
     return out, int(rank)
 
 
+_BLAS = None
+
+
+def one_blas_thread():
+    """Context in which BLAS/LAPACK run on one thread (``threadpoolctl`` when it is
+    installed, else a no-op).  The structured solver's batched k x k inverses and
+    products are small: on a busy machine a threaded BLAS spends most of their time
+    waiting (149 x 149 inverses measured 1.3 ms on one thread, 11-60 ms on two with
+    the cores shared), so these paths ask for one thread."""
+    global _BLAS
+    try:
+        from threadpoolctl import ThreadpoolController
+    except ImportError:                       # optional: the numbers are the same without it
+        return contextlib.nullcontext()
+    if _BLAS is None:
+        _BLAS = ThreadpoolController()
+    return _BLAS.limit(limits=1, user_api="blas")
+
+
 class _AdditiveSystem:
     """The normal equations of the additive model A + B on a J x K grid of cells
     with weights n (0 for an empty cell), reduced by eliminating the larger
@@ -240,8 +261,9 @@ class _AdditiveSystem:
         self.rank = int(ia.size + ib.size)
         self.Da = na[ia]
         self.Nm = n[np.ix_(ia, ib)]
-        S = np.diag(nb[ib]) - self.Nm.T @ (self.Nm / self.Da[:, None])
-        self.Si = np.linalg.inv(S) if ib.size else np.zeros((0, 0))
+        with one_blas_thread():
+            S = np.diag(nb[ib]) - self.Nm.T @ (self.Nm / self.Da[:, None])
+            self.Si = np.linalg.inv(S) if ib.size else np.zeros((0, 0))
 
     def residual(self, v: np.ndarray) -> np.ndarray:
         """v - fit of v (in this system's orientation), 0 on empty cells; v may
@@ -371,6 +393,11 @@ def additive_wls_filled(w: np.ndarray, t: np.ndarray, *, leverage: bool = False)
     refinement.  Returns the residual R (..., J, K) and, with ``leverage``, the
     leverages g = x' (X' W X)^-1 x (..., J, K) (None otherwise).
     """
+    with one_blas_thread():
+        return _additive_wls_filled(w, t, leverage)
+
+
+def _additive_wls_filled(w, t, leverage):
     w = np.asarray(w, dtype=float)
     t = np.asarray(t, dtype=float)
     swap = w.shape[-2] < w.shape[-1]
@@ -382,24 +409,29 @@ def additive_wls_filled(w: np.ndarray, t: np.ndarray, *, leverage: bool = False)
     Da = w.sum(axis=-1)                                       # (..., J)
     Nm = w[..., :k]                                           # (..., J, k)
     a = Nm / Da[..., None]
-    S = -np.einsum("...jk,...jl->...kl", Nm, a)
+    S = -(np.swapaxes(Nm, -1, -2) @ a)                        # matmul: BLAS, not an einsum loop
     idx = np.arange(k)
     S[..., idx, idx] += w.sum(axis=-2)[..., :k]
-    Si = np.linalg.inv(S) if k else np.zeros(shape[:-2] + (0, 0))
+    Si = (np.linalg.inv(S) if k else np.zeros(shape[:-2] + (0, 0))) if leverage else None
 
     def residual(v):
         wv = w * v
         ra, rb = wv.sum(axis=-1), wv.sum(axis=-2)[..., :k]
-        rhs = rb - np.einsum("...j,...jk->...k", ra / Da, Nm)
-        beta_b = np.einsum("...kl,...l->...k", Si, rhs)
-        alpha = (ra - np.einsum("...jk,...k->...j", Nm, beta_b)) / Da
+        rhs = rb - ((ra / Da)[..., None, :] @ Nm)[..., 0, :]
+        if not k:
+            beta_b = rhs
+        elif Si is not None:
+            beta_b = (Si @ rhs[..., None])[..., 0]
+        else:
+            beta_b = np.linalg.solve(S, rhs[..., None])[..., 0]
+        alpha = (ra - (Nm @ beta_b[..., None])[..., 0]) / Da
         beta = np.concatenate([beta_b, np.zeros(beta_b.shape[:-1] + (1,))], axis=-1)
         return v - alpha[..., :, None] - beta[..., None, :]
 
     R = residual(residual(np.broadcast_to(t, shape)))
     g = None
     if leverage:
-        aS = np.einsum("...jk,...kl->...jl", a, Si)           # (..., J, k)
+        aS = a @ Si                                           # (..., J, k)
         q = np.sum(aS * a, axis=-1)                           # (..., J)
         g = (1.0 / Da + q)[..., None] + np.zeros(shape)
         g[..., :k] += np.diagonal(Si, axis1=-2, axis2=-1)[..., None, :] - 2.0 * aS
@@ -636,6 +668,20 @@ def structured_rdiag(C: Type3Contrast, v: np.ndarray) -> np.ndarray:
     return 1.0 - w * g.reshape(g.shape[:-2] + (J * K,))
 
 
+def structured_ss_rdiag(C: Type3Contrast, means: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`structured_ss` and :func:`structured_rdiag` together (the interaction's
+    additive fit solved once, with its leverages)."""
+    if C.effect != "AB":
+        return structured_ss(C, means, v), structured_rdiag(C, v)
+    J, K = C.J, C.K
+    means = np.asarray(means, dtype=float)
+    w = 1.0 / np.asarray(v, dtype=float)
+    R, g = additive_wls_filled(w.reshape(w.shape[:-1] + (J, K)), means.reshape(means.shape[:-1] + (J, K)),
+                               leverage=True)
+    R = R.reshape(R.shape[:-2] + (J * K,))
+    return np.sum(w * R * R, axis=-1), 1.0 - w * g.reshape(g.shape[:-2] + (J * K,))
+
+
 def structured_restricted_fit(C: Type3Contrast, means: np.ndarray, counts: np.ndarray) -> np.ndarray:
     """Weighted LS fit of the cell means (m,) under C mu = 0, weights n (full grid):
     mu_r = ybar - D C' (C D C')^-1 C ybar, D = diag(1/n), in O(JK min(J, K)).
@@ -686,6 +732,11 @@ def interaction_traces(n: np.ndarray, t: np.ndarray) -> tuple[np.ndarray, np.nda
     complement) and G = diag + [[0, U_m], [U_m', 0]], so M^-1 G is a diagonal plus a
     rank-2k product (k = min(J, K) - 1) and its squared trace needs only k x k and
     J x k products: O(J K min(J, K)) per t."""
+    with one_blas_thread():
+        return _interaction_traces(n, t)
+
+
+def _interaction_traces(n, t):
     n = np.asarray(n, dtype=float)
     t = np.asarray(t, dtype=float)
     if n.shape[0] < n.shape[1]:                  # the diagonal block takes the larger factor

@@ -343,7 +343,7 @@ def wald_statistic_maker(layout: Layout, Cs: list[np.ndarray], *, kind: str, sca
 
     from scipy import special
 
-    from .wald import wald_quadratic, welch_james_a
+    from .wald import wald_and_a, wald_quadratic
 
     m = layout.m
     # per hypothesis: the direct r x r form, or the null-space form when the
@@ -372,8 +372,10 @@ def wald_statistic_maker(layout: Layout, Cs: list[np.ndarray], *, kind: str, sca
         out = np.empty((S.shape[0], len(Cs)))
         for e, (C, Z, ZZ) in enumerate(zip(Cs, bases, outer)):
             if Z is None:
-                T = wald_quadratic(means, v, C)
-                A = welch_james_a(v, n - 1.0, C) if kind == "wj" else None
+                if kind == "wj":
+                    T, A = wald_and_a(means, v, n - 1.0, C)
+                else:
+                    T, A = wald_quadratic(means, v, C), None
             else:
                 T, A = wald_null_form(means, v, Z, n - 1.0 if kind == "wj" else None, ZZ=ZZ)
             if kind == "wj":

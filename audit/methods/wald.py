@@ -28,10 +28,21 @@ from ..core import (
     dense_contrast,
     structured_rdiag,
     structured_ss,
+    structured_ss_rdiag,
     type3_contrasts,
 )
 
-__all__ = ["wald_quadratic", "welch_james_a"]
+__all__ = ["wald_quadratic", "welch_james_a", "wald_and_a"]
+
+
+def wald_and_a(means: np.ndarray, v: np.ndarray, dfs: np.ndarray, C) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`wald_quadratic` and :func:`welch_james_a` together (the structured
+    interaction form solves its system once for both)."""
+    st = _structure(C, np.asarray(v, dtype=float))
+    if st is not None:
+        T, Rd = structured_ss_rdiag(Type3Contrast(*st), means, v)
+        return T, np.sum(Rd ** 2 / dfs, axis=-1)
+    return wald_quadratic(means, v, C), welch_james_a(v, dfs, C)
 
 
 def wald_quadratic(means: np.ndarray, v: np.ndarray, C: np.ndarray) -> np.ndarray:

@@ -39,7 +39,7 @@ from ..core import Type3Contrast
 from ..errors import OptionError
 from ..fit import Fit
 from ..results import MethodResult
-from .wald import wald_quadratic, welch_james_a
+from .wald import wald_and_a
 
 __all__ = [
     "EFFECTS",
@@ -150,8 +150,7 @@ def welch_james_cells(means, variances, counts, C, *, dfs=None):
     v = np.asarray(variances, dtype=float) / counts
     f = counts - 1.0 if dfs is None else np.asarray(dfs, dtype=float)
     r = C.shape[0]
-    T = wald_quadratic(means, v, C)
-    A = welch_james_a(v, f, C)
+    T, A = wald_and_a(means, v, f, C)
     c = r + 2.0 * A - 6.0 * A / (r + 2.0)
     with np.errstate(divide="ignore"):
         df2 = r * (r + 2.0) / (3.0 * A)

@@ -176,8 +176,8 @@ from ..core import (
     additive_residual,
     check_dense_budget,
     contrast_matrix,
-    structured_rdiag,
     structured_ss,
+    structured_ss_rdiag,
     type3_main_wald,
 )
 from ..errors import OptionError
@@ -503,8 +503,11 @@ def _batched_wald(means, v, C, *, need_r=True):
             good = np.all(np.isfinite(v), axis=1) & np.all(w > 0, axis=1)
         vs = np.where(good[:, None], v, 1.0)
         with np.errstate(all="ignore"):
-            T = np.where(good, structured_ss(C, means, vs), np.nan)
-            Rdiag = structured_rdiag(C, vs) if need_r else None
+            if need_r:
+                T, Rdiag = structured_ss_rdiag(C, means, vs)
+            else:
+                T, Rdiag = structured_ss(C, means, vs), None
+            T = np.where(good, T, np.nan)
         return T, Rdiag, good
     if isinstance(C, Type3Contrast):
         C = C.dense()
