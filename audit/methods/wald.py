@@ -16,7 +16,12 @@ interaction as the residual SS of the additive model fitted with weights 1/v
 C'(C V C')^-1 C = V^-1 - V^-1 X (X' V^-1 X)^-1 X' V^-1; common practice) by the
 core's structured solver (:func:`audit.core.additive_wls_filled`), whose
 leverages give diag R = 1 - g / v.  Same numbers to rounding, O(JK min(J, K))
-instead of O(r^2 JK).
+instead of O(r^2 JK).  A large design's cell with zero variance (two equal values
+in a cell of two) would give the interaction's structured fit an infinite weight:
+such a v enters as :data:`ZERO_V_FLOOR` times the median positive v of its row, the
+limit the form tends to (T changes by a relative amount of that order; the
+structured solver keeps about 1e-8 of conditioning to spare), instead of a dense
+(J-1)(K-1)-row system that would not fit in memory.
 """
 
 from __future__ import annotations
@@ -38,9 +43,10 @@ __all__ = ["wald_quadratic", "welch_james_a", "wald_and_a"]
 def wald_and_a(means: np.ndarray, v: np.ndarray, dfs: np.ndarray, C) -> tuple[np.ndarray, np.ndarray]:
     """:func:`wald_quadratic` and :func:`welch_james_a` together (the structured
     interaction form solves its system once for both)."""
-    st = _structure(C, np.asarray(v, dtype=float))
+    v = np.asarray(v, dtype=float)
+    st = _structure(C, v)
     if st is not None:
-        T, Rd = structured_ss_rdiag(Type3Contrast(*st), means, v)
+        T, Rd = structured_ss_rdiag(Type3Contrast(*st), means, _floored(v, C))
         return T, np.sum(Rd ** 2 / dfs, axis=-1)
     return wald_quadratic(means, v, C), welch_james_a(v, dfs, C)
 
@@ -62,7 +68,7 @@ def wald_quadratic(means: np.ndarray, v: np.ndarray, C: np.ndarray) -> np.ndarra
     v = np.asarray(v, dtype=float)
     st = _structure(C, v)
     if st is not None:
-        return structured_ss(Type3Contrast(*st), means, v)
+        return structured_ss(Type3Contrast(*st), means, _floored(v, C))
     C = dense_contrast(C, _SKIP)
     Cy = means @ C.T                                  # (..., r)
     M = (C * v[..., None, :]) @ C.T                   # (..., r, r)
@@ -80,7 +86,7 @@ def welch_james_a(v: np.ndarray, dfs: np.ndarray, C: np.ndarray) -> np.ndarray:
     v = np.asarray(v, dtype=float)
     st = _structure(C, v)
     if st is not None:
-        return np.sum(structured_rdiag(Type3Contrast(*st), v) ** 2 / dfs, axis=-1)
+        return np.sum(structured_rdiag(Type3Contrast(*st), _floored(v, C)) ** 2 / dfs, axis=-1)
     C = dense_contrast(C, _SKIP)
     M = (C * v[..., None, :]) @ C.T                   # (..., r, r)
     Minv_C = np.linalg.solve(M, np.broadcast_to(C, M.shape[:-2] + C.shape))  # (..., r, m)
@@ -97,6 +103,21 @@ _SKIP = ("a cell with zero variance leaves no structured Welch-James/HC form; sk
          "(check(methods=False), --no-methods)")
 
 
+#: a zero cell variance in the structured interaction form enters as this fraction of
+#: the median positive variance (see the module docstring)
+ZERO_V_FLOOR = 1e-8
+
+
+def _floored(v: np.ndarray, C) -> np.ndarray:
+    """v with zeros raised to :data:`ZERO_V_FLOOR` x the median positive v (per row), for
+    the interaction's structured form; v unchanged otherwise."""
+    if np.all(v > 0) or getattr(C, "effect", None) != "AB":
+        return v
+    pos = np.where(v > 0, v, np.nan)
+    floor = ZERO_V_FLOOR * np.nanmedian(pos, axis=-1, keepdims=True)
+    return np.where(v > 0, v, floor)
+
+
 def _structure(C: np.ndarray, v: np.ndarray):
     """(J, K, effect) when C is exactly the Type III contrast of ``effect`` on a
     full J x K grid, every v is positive and finite, and the dense form would
@@ -104,8 +125,15 @@ def _structure(C: np.ndarray, v: np.ndarray):
     says so by its type (never compared entry by entry)."""
     if isinstance(C, Type3Contrast):
         r, m = C.shape
-        if r * r * m < _DENSE_WORK or not (np.all(np.isfinite(v)) and np.all(v > 0)):
+        if r * r * m < _DENSE_WORK or not (np.all(np.isfinite(v)) and np.all(v >= 0)):
             return None
+        if not np.all(v > 0):
+            if C.effect == "AB" and not np.all(np.any(v > 0, axis=-1)):
+                return None
+            if C.effect != "AB":                # a main effect needs every marginal variance > 0
+                vv = v.reshape(v.shape[:-1] + (C.J, C.K)).sum(axis=-1 if C.effect == "A" else -2)
+                if not np.all(vv > 0):
+                    return None
         return C.J, C.K, C.effect
     C = np.asarray(C)
     if C.ndim != 2:
