@@ -230,9 +230,9 @@ def restricted_cell_fit(means: np.ndarray, counts: np.ndarray, C: np.ndarray) ->
     interaction this is the additive model's fitted cell means; for a main
     effect it is the full model with that effect removed (sum-to-zero coding).
     """
-    if isinstance(C, Type3Contrast):
+    if _structured(C):
         return structured_restricted_fit(C, means, counts)
-    C = np.asarray(C, dtype=float)
+    C = dense_contrast(C)
     d = 1.0 / counts
     Cy = C @ means
     M = (C * d) @ C.T
@@ -246,9 +246,9 @@ def restricted_leverage(counts: np.ndarray, C: np.ndarray) -> np.ndarray:
     has rows b_c, so h_c = b_c' (B' W B)^-1 b_c, W = diag(n).  For the
     interaction this is the additive model's leverage.
     """
-    if isinstance(C, Type3Contrast):
+    if _structured(C):
         return structured_restricted_leverage(C, counts)
-    Bn = null_space_basis(C)                            # (m, p_r)
+    Bn = null_space_basis(dense_contrast(C))                            # (m, p_r)
     G = Bn.T @ (Bn * counts[:, None])
     return np.einsum("ij,jk,ik->i", Bn, np.linalg.inv(G), Bn)
 

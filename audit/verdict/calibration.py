@@ -511,7 +511,14 @@ def _batched_wald(means, v, C, *, need_r=True):
         return T, Rdiag, good
     if isinstance(C, Type3Contrast):
         C = C.dense()
-    r = C.shape[0]
+    r, m = C.shape
+    rows = max(1, _SIM_BYTES // (16 * r * m))               # (rows, r, m) products held twice
+    if means.shape[0] > rows:                               # rows are independent: same numbers by blocks
+        parts = [_batched_wald(means[i:i + rows], v[i:i + rows], C, need_r=need_r)
+                 for i in range(0, means.shape[0], rows)]
+        return (np.concatenate([p[0] for p in parts]),
+                np.concatenate([p[1] for p in parts]) if need_r else None,
+                np.concatenate([p[2] for p in parts]))
     Cy = means @ C.T                                        # (R, r)
     M = (C[None, :, :] * v[:, None, :]) @ C.T               # (R, r, r)
     good = np.all(np.isfinite(v), axis=1)
