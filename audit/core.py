@@ -21,6 +21,7 @@ References
 
 from __future__ import annotations
 
+import contextlib
 import math
 from dataclasses import dataclass
 
@@ -42,6 +43,17 @@ __all__ = [
     "type3_main_wald",
     "type3_main_rdiag",
     "contrast_matrix",
+    "type3_contrast",
+    "Type3Contrast",
+    "dense_contrast",
+    "structured_ss",
+    "structured_rdiag",
+    "structured_ss_rdiag",
+    "structured_restricted_fit",
+    "structured_restricted_leverage",
+    "interaction_traces",
+    "check_dense_budget",
+    "DENSE_BUDGET",
     "partial_eta_sq_ci",
     "ncf_cdf",
     "ncf_cdf_mixture",
@@ -189,6 +201,25 @@ def weighted_ls_residual(X: np.ndarray, w: np.ndarray, target: np.ndarray) -> tu
     return out, int(rank)
 
 
+_BLAS = None
+
+
+def one_blas_thread():
+    """Context in which BLAS/LAPACK run on one thread (``threadpoolctl`` when it is
+    installed, else a no-op).  The structured solver's batched k x k inverses and
+    products are small: on a busy machine a threaded BLAS spends most of their time
+    waiting (149 x 149 inverses measured 1.3 ms on one thread, 11-60 ms on two with
+    the cores shared), so these paths ask for one thread."""
+    global _BLAS
+    try:
+        from threadpoolctl import ThreadpoolController
+    except ImportError:                       # optional: the numbers are the same without it
+        return contextlib.nullcontext()
+    if _BLAS is None:
+        _BLAS = ThreadpoolController()
+    return _BLAS.limit(limits=1, user_api="blas")
+
+
 class _AdditiveSystem:
     """The normal equations of the additive model A + B on a J x K grid of cells
     with weights n (0 for an empty cell), reduced by eliminating the larger
@@ -230,8 +261,9 @@ class _AdditiveSystem:
         self.rank = int(ia.size + ib.size)
         self.Da = na[ia]
         self.Nm = n[np.ix_(ia, ib)]
-        S = np.diag(nb[ib]) - self.Nm.T @ (self.Nm / self.Da[:, None])
-        self.Si = np.linalg.inv(S) if ib.size else np.zeros((0, 0))
+        with one_blas_thread():
+            S = np.diag(nb[ib]) - self.Nm.T @ (self.Nm / self.Da[:, None])
+            self.Si = np.linalg.inv(S) if ib.size else np.zeros((0, 0))
 
     def residual(self, v: np.ndarray) -> np.ndarray:
         """v - fit of v (in this system's orientation), 0 on empty cells; v may
@@ -361,6 +393,11 @@ def additive_wls_filled(w: np.ndarray, t: np.ndarray, *, leverage: bool = False)
     refinement.  Returns the residual R (..., J, K) and, with ``leverage``, the
     leverages g = x' (X' W X)^-1 x (..., J, K) (None otherwise).
     """
+    with one_blas_thread():
+        return _additive_wls_filled(w, t, leverage)
+
+
+def _additive_wls_filled(w, t, leverage):
     w = np.asarray(w, dtype=float)
     t = np.asarray(t, dtype=float)
     swap = w.shape[-2] < w.shape[-1]
@@ -372,24 +409,29 @@ def additive_wls_filled(w: np.ndarray, t: np.ndarray, *, leverage: bool = False)
     Da = w.sum(axis=-1)                                       # (..., J)
     Nm = w[..., :k]                                           # (..., J, k)
     a = Nm / Da[..., None]
-    S = -np.einsum("...jk,...jl->...kl", Nm, a)
+    S = -(np.swapaxes(Nm, -1, -2) @ a)                        # matmul: BLAS, not an einsum loop
     idx = np.arange(k)
     S[..., idx, idx] += w.sum(axis=-2)[..., :k]
-    Si = np.linalg.inv(S) if k else np.zeros(shape[:-2] + (0, 0))
+    Si = (np.linalg.inv(S) if k else np.zeros(shape[:-2] + (0, 0))) if leverage else None
 
     def residual(v):
         wv = w * v
         ra, rb = wv.sum(axis=-1), wv.sum(axis=-2)[..., :k]
-        rhs = rb - np.einsum("...j,...jk->...k", ra / Da, Nm)
-        beta_b = np.einsum("...kl,...l->...k", Si, rhs)
-        alpha = (ra - np.einsum("...jk,...k->...j", Nm, beta_b)) / Da
+        rhs = rb - ((ra / Da)[..., None, :] @ Nm)[..., 0, :]
+        if not k:
+            beta_b = rhs
+        elif Si is not None:
+            beta_b = (Si @ rhs[..., None])[..., 0]
+        else:
+            beta_b = np.linalg.solve(S, rhs[..., None])[..., 0]
+        alpha = (ra - (Nm @ beta_b[..., None])[..., 0]) / Da
         beta = np.concatenate([beta_b, np.zeros(beta_b.shape[:-1] + (1,))], axis=-1)
         return v - alpha[..., :, None] - beta[..., None, :]
 
     R = residual(residual(np.broadcast_to(t, shape)))
     g = None
     if leverage:
-        aS = np.einsum("...jk,...kl->...jl", a, Si)           # (..., J, k)
+        aS = a @ Si                                           # (..., J, k)
         q = np.sum(aS * a, axis=-1)                           # (..., J)
         g = (1.0 / Da + q)[..., None] + np.zeros(shape)
         g[..., :k] += np.diagonal(Si, axis1=-2, axis2=-1)[..., None, :] - 2.0 * aS
@@ -518,6 +560,216 @@ def type3_contrasts(J: int, K: int) -> dict[str, np.ndarray]:
         "B": np.tile(CK * (np.ones(1) / J), (1, J)),
         "AB": (CJ[:, None, :, None] * CK[None, :, None, :]).reshape((J - 1) * (K - 1), J * K),
     }
+
+
+#: a dense array in the number of cells (an (J-1)(K-1) x JK contrast matrix, a JK x JK
+#: projection, an m x m basis) larger than this many bytes is refused with
+#: :class:`audit.errors.DesignTooLargeError` instead of being allocated; every default
+#: path of a full grid has a structured form and never asks for one
+DENSE_BUDGET = 256 * 2**20
+
+
+def check_dense_budget(nbytes: float, *, what: str, J: int, K: int | None, skip: str) -> None:
+    """Refuse an allocation of ``nbytes`` that grows faster than the number of cells.
+
+    Raises :class:`audit.errors.DesignTooLargeError` (one line: the design size,
+    the stage, the bytes it would take and ``skip``, the option that avoids the
+    stage) when ``nbytes`` exceeds :data:`DENSE_BUDGET`.  ``K`` None: ``J`` is the number
+    of cells."""
+    if nbytes > DENSE_BUDGET:
+        from .errors import DesignTooLargeError
+
+        size = f"a design with {J:,} cells" if K is None else f"a {J} x {K} design ({J * K:,} cells)"
+        raise DesignTooLargeError(
+            f"design too large for {what}: {size} would need "
+            f"{nbytes / 2**20:,.0f} MB for a dense matrix in the number of cells (budget "
+            f"{DENSE_BUDGET // 2**20} MB); {skip}")
+
+
+def type3_contrast(J: int, K: int, effect: str, *, skip: str = "this stage has no structured form") -> np.ndarray:
+    """The dense Type III contrast matrix of one effect (``type3_contrasts(J, K)[effect]``),
+    after the memory budget check (:func:`check_dense_budget`)."""
+    r = {"A": J - 1, "B": K - 1, "AB": (J - 1) * (K - 1)}[effect]
+    check_dense_budget(8.0 * r * J * K, what=f"the dense Type III contrast of {effect}", J=J, K=K, skip=skip)
+    CJ, CK = contrast_matrix(J), contrast_matrix(K)
+    if effect == "A":
+        return np.repeat(CJ, K, axis=1) * (np.ones(1) / K)
+    if effect == "B":
+        return np.tile(CK * (np.ones(1) / J), (1, J))
+    return (CJ[:, None, :, None] * CK[None, :, None, :]).reshape(r, J * K)
+
+
+class Type3Contrast:
+    """The Type III contrast C of one effect on a full J x K grid, kept by its
+    structure (``shape`` (r, J*K) as the matrix has) instead of as r x JK numbers.
+
+    Consumers that have a structured form use ``J``, ``K``, ``effect`` (the Wald
+    forms of :mod:`audit.methods.wald`, the resampling statistics, the size check);
+    :meth:`dense` (also ``numpy.asarray``) builds the matrix after the memory budget
+    check, for the few paths that need it (small designs keep the dense numbers bit
+    for bit)."""
+
+    __slots__ = ("J", "K", "effect", "shape", "_dense")
+    ndim = 2
+
+    def __init__(self, J: int, K: int, effect: str):
+        self.J, self.K, self.effect = int(J), int(K), effect
+        r = {"A": J - 1, "B": K - 1, "AB": (J - 1) * (K - 1)}[effect]
+        self.shape = (r, self.J * self.K)
+        self._dense = None
+
+    def dense(self, skip: str = "this stage has no structured form") -> np.ndarray:
+        if self._dense is None:
+            self._dense = type3_contrast(self.J, self.K, self.effect, skip=skip)
+        return self._dense
+
+    def __array__(self, dtype=None, copy=None):
+        d = self.dense()
+        return d if dtype is None else d.astype(dtype, copy=False)
+
+    def __repr__(self) -> str:
+        return f"Type3Contrast(J={self.J}, K={self.K}, effect={self.effect!r})"
+
+
+def dense_contrast(C, skip: str = "this stage has no structured form") -> np.ndarray:
+    """C as a dense float array (a :class:`Type3Contrast` after the budget check)."""
+    if isinstance(C, Type3Contrast):
+        return C.dense(skip)
+    return np.asarray(C, dtype=float)
+
+
+def structured_ss(C: Type3Contrast, means: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """(C ybar)' (C V C')^-1 (C ybar), V = diag(v) > 0, for a Type III contrast of a full
+    grid, batched over leading axes of ``means`` / ``v`` (..., J*K): a main effect by
+    :func:`type3_main_wald`, the interaction as the residual SS of the additive model
+    fitted with weights 1/v (C_AB spans the complement of the additive columns, so
+    C'(C V C')^-1 C = V^-1 - V^-1 X (X' V^-1 X)^-1 X' V^-1; common practice)."""
+    J, K = C.J, C.K
+    means = np.asarray(means, dtype=float)
+    v = np.asarray(v, dtype=float)
+    if C.effect != "AB":
+        return type3_main_wald(means, v, J, K, C.effect)
+    w = 1.0 / v
+    R, _ = additive_wls_filled(w.reshape(w.shape[:-1] + (J, K)), means.reshape(means.shape[:-1] + (J, K)))
+    R = R.reshape(R.shape[:-2] + (J * K,))
+    return np.sum(w * R * R, axis=-1)
+
+
+def structured_rdiag(C: Type3Contrast, v: np.ndarray) -> np.ndarray:
+    """diag R, R = V C' (C V C')^-1 C, for a Type III contrast of a full grid (v > 0,
+    batched (..., J*K)): :func:`type3_main_rdiag` for a main effect, 1 - g / v (g the
+    leverages of the additive fit with weights 1/v) for the interaction."""
+    J, K = C.J, C.K
+    v = np.asarray(v, dtype=float)
+    if C.effect != "AB":
+        return type3_main_rdiag(v, J, K, C.effect)
+    w = 1.0 / v
+    _, g = additive_wls_filled(w.reshape(w.shape[:-1] + (J, K)), np.zeros(v.shape[:-1] + (J, K)), leverage=True)
+    return 1.0 - w * g.reshape(g.shape[:-2] + (J * K,))
+
+
+def structured_ss_rdiag(C: Type3Contrast, means: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`structured_ss` and :func:`structured_rdiag` together (the interaction's
+    additive fit solved once, with its leverages)."""
+    if C.effect != "AB":
+        return structured_ss(C, means, v), structured_rdiag(C, v)
+    J, K = C.J, C.K
+    means = np.asarray(means, dtype=float)
+    w = 1.0 / np.asarray(v, dtype=float)
+    R, g = additive_wls_filled(w.reshape(w.shape[:-1] + (J, K)), means.reshape(means.shape[:-1] + (J, K)),
+                               leverage=True)
+    R = R.reshape(R.shape[:-2] + (J * K,))
+    return np.sum(w * R * R, axis=-1), 1.0 - w * g.reshape(g.shape[:-2] + (J * K,))
+
+
+def structured_restricted_fit(C: Type3Contrast, means: np.ndarray, counts: np.ndarray) -> np.ndarray:
+    """Weighted LS fit of the cell means (m,) under C mu = 0, weights n (full grid):
+    mu_r = ybar - D C' (C D C')^-1 C ybar, D = diag(1/n), in O(JK min(J, K)).
+
+    Interaction: the additive model's fit.  Main effect A: C_A' (C_A D C_A')^-1 C_A =
+    G kron 1 1' / K^2 with G = W^-1 - W^-1 1 1' W^-1 / s (w_j = sum_k d_jk / K^2,
+    s = sum 1/w; :func:`type3_main_wald`), so (D P ybar)_jk = d_jk (mbar_j - m*) / (w_j K)."""
+    J, K = C.J, C.K
+    means = np.asarray(means, dtype=float)
+    n = np.asarray(counts, dtype=float)
+    if C.effect == "AB":
+        R, _ = additive_wls_filled(n.reshape(J, K), means.reshape(J, K))
+        return means - R.ravel()
+    d = 1.0 / n
+    w, L = _marginal_parts(d, J, K, C.effect)
+    mm = means.reshape(J, K)
+    mbar = mm.mean(axis=1) if C.effect == "A" else mm.mean(axis=0)
+    iw = 1.0 / w
+    centre = np.sum(mbar * iw) / np.sum(iw)
+    g = (mbar - centre) * iw / L
+    corr = d.reshape(J, K) * (g[:, None] if C.effect == "A" else g[None, :])
+    return means - corr.ravel()
+
+
+def structured_restricted_leverage(C: Type3Contrast, counts: np.ndarray) -> np.ndarray:
+    """Observation leverage of each cell under the restricted model {C mu = 0}, weights n
+    (full grid): h = (1 - diag R) / n with R = D C'(C D C')^-1 C, D = diag(1/n) (the
+    restricted fit's cell-level hat diagonal over n); the additive leverage for the
+    interaction."""
+    n = np.asarray(counts, dtype=float)
+    return (1.0 - structured_rdiag(C, 1.0 / n)) / n
+
+
+def interaction_traces(n: np.ndarray, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """tr(P T) and tr((P T)^2) for the interaction of a full J x K grid, P = C' (C D C')^-1 C
+    (C = C_AB, D = diag(1/n)), T = diag(t), batched over leading axes of ``t`` (..., J, K);
+    no JK x JK or (J-1)(K-1)-row matrix.
+
+    C_AB spans the complement of the additive columns X, so P = N - N H N with N = diag(n),
+    H = X M^-1 X', M = X' N X (the additive model's normal equations, J + K - 1 unknowns).
+    With g = diag H (the additive leverages per unit weight) and U = diag(n^2 t):
+
+        tr(P T)     = sum n t - sum n^2 t g
+        tr((P T)^2) = sum n^2 t^2 - 2 sum n^3 t^2 g + tr((M^-1 G)^2),  G = X' U X.
+
+    In dummy coding (every level of the larger factor, the other's levels but its last)
+    M^-1 = E + Y S^-1 Y' (E = diag(1/n_j., 0), Y = [-N_m / n_j. ; I], S the Schur
+    complement) and G = diag + [[0, U_m], [U_m', 0]], so M^-1 G is a diagonal plus a
+    rank-2k product (k = min(J, K) - 1) and its squared trace needs only k x k and
+    J x k products: O(J K min(J, K)) per t."""
+    with one_blas_thread():
+        return _interaction_traces(n, t)
+
+
+def _interaction_traces(n, t):
+    n = np.asarray(n, dtype=float)
+    t = np.asarray(t, dtype=float)
+    if n.shape[0] < n.shape[1]:                  # the diagonal block takes the larger factor
+        n, t = n.T, np.swapaxes(t, -1, -2)
+    J, K = n.shape
+    k = K - 1
+    _, g = additive_wls_filled(n, np.zeros_like(n), leverage=True)
+    nt = n * t
+    tr1 = np.sum(nt, axis=(-2, -1)) - np.sum(nt * n * g, axis=(-2, -1))
+    base = np.sum(nt * nt, axis=(-2, -1)) - 2.0 * np.sum(nt * nt * n * g, axis=(-2, -1))
+    Da = n.sum(axis=1)
+    Nm = n[:, :k]
+    Ya = -Nm / Da[:, None]                                   # (J, k)
+    S = np.diag(n.sum(axis=0)[:k]) + Nm.T @ Ya
+    Si = np.linalg.inv(S) if k else np.zeros((0, 0))
+    U = n * nt                                               # n^2 t
+    Ua = U.sum(axis=-1)                                      # (..., J)
+    Ub = U.sum(axis=-2)[..., :k]                             # (..., k)
+    Um = U[..., :k]                                          # (..., J, k)
+    # Y' G = [Ya' diag(Ua) + Um',  Ya' Um + diag(Ub)]  (k x (J + k)); W = S^-1 Y' G
+    YGa = Ya.T * Ua[..., None, :] + np.swapaxes(Um, -1, -2)          # (..., k, J)
+    YGb = np.einsum("jk,...jl->...kl", Ya, Um)                       # (..., k, k)
+    idx = np.arange(k)
+    YGb[..., idx, idx] += Ub
+    Wa = Si @ YGa                                                    # (..., k, J)
+    Wb = Si @ YGb                                                    # (..., k, k)
+    delta = Ua / Da                                                  # (..., J)
+    cross = np.einsum("jk,...kj->...j", Ya, Wa)                      # Y[i] . W[:, i], i < J
+    Bm = Wa @ (Um / Da[:, None])                                     # (..., k, k)
+    Cm = Wa @ Ya + Wb
+    tr_mg2 = (np.sum(delta * delta, axis=-1) + 2.0 * np.sum(delta * cross, axis=-1)
+              + 2.0 * np.trace(Bm, axis1=-2, axis2=-1) + np.sum(Cm * np.swapaxes(Cm, -1, -2), axis=(-2, -1)))
+    return tr1, base + tr_mg2
 
 
 #: an SS at or below this fraction of the uncorrected total SS (sum of the
