@@ -690,16 +690,23 @@ def _refuse_repeated_header(texts, named, nb, rows, row_kind, source, cols) -> N
     if not hit.any():
         return
     idx = np.flatnonzero(hit)
+    raise repeated_header_error(source.path, _lines_text(rows, idx, row_kind), int(idx.size), cols, row_kind)
+
+
+def repeated_header_error(path: str, where_all: str, count: int, cols, row_kind: str = "line") -> DataFileError:
+    """The error for data rows that repeat the header ('lines 26, 51' in ``where_all``)."""
+    from .errors import shorten
+
     header = shorten(",".join(cols))
     if row_kind == "line":
-        raise DataFileError(
-            f"{source.path}: {_lines_text(rows, idx, row_kind)} repeat{'s' if idx.size == 1 else ''} the header "
-            f"line ({header}) inside the data ({idx.size} such line(s)), as when files with a header each are "
+        return DataFileError(
+            f"{path}: {where_all} repeat{'s' if count == 1 else ''} the header "
+            f"line ({header}) inside the data ({count} such line(s)), as when files with a header each are "
             "concatenated; expected one header line, then data rows; fix: delete the repeated header lines "
             "(or join the files without their headers)")
-    raise DataFileError(
-        f"{source.path}: {_lines_text(rows, idx, row_kind)} repeat{'s' if idx.size == 1 else ''} the column "
-        f"names ({header}) as data ({idx.size} such row(s)), as when tables read with their headers are "
+    return DataFileError(
+        f"{path}: {where_all} repeat{'s' if count == 1 else ''} the column "
+        f"names ({header}) as data ({count} such row(s)), as when tables read with their headers are "
         "concatenated; expected data rows only; fix: drop those rows")
 
 
@@ -743,18 +750,30 @@ _THOUSANDS_RE = re.compile(r"^\s*[-+]?\d{1,3}(?:[, ]\d{3})+(?:\.\d+)?\s*$")
 
 def _text_response_error(name: str, text, bad: np.ndarray, keep: np.ndarray, rows: np.ndarray,
                          row_kind: str) -> ResponseError:
+    """The error for a response column with text in it (see :func:`text_response_error`)."""
+    idx = np.flatnonzero(bad)
+    labels = list(dict.fromkeys(str(text.iloc[j]) for j in idx[:10_000]))[:21]
+    return text_response_error(name, found=str(text.iloc[int(idx[0])]), n_bad=int(idx.size),
+                               n_keep=int(keep.sum()), labels=labels,
+                               where_first=_where(rows, int(idx[0]), row_kind),
+                               where_all=_lines_text(rows, idx, row_kind))
+
+
+def text_response_error(name: str, *, found: str, n_bad: int, n_keep: int, labels, where_first: str,
+                        where_all: str) -> ResponseError:
     """The error for a response column with text in it, naming the cause: the whole
     column is text (a label or category column, not the measurement), or some cells
-    carry a unit, thousands separators, a decimal comma or another word."""
+    carry a unit, thousands separators, a decimal comma or another word.
+
+    From the facts alone (so an engine that reads the data in SQL words it the same):
+    the first non-number ``found``, how many of the ``n_keep`` kept values are not numbers,
+    the distinct non-numbers in order of appearance (the first 21 among the first 10,000
+    suffice), and where they are ('on line 7'; 'lines 6, 11 and 16')."""
     from .errors import shorten
 
-    idx = np.flatnonzero(bad)
-    i = int(idx[0])
-    found = str(text.iloc[i])
-    n_keep, n_bad = int(keep.sum()), int(idx.size)
     shown = repr(shorten(found))
     if n_bad == n_keep:
-        labels = list(dict.fromkeys(str(text.iloc[j]) for j in idx[:10_000]))
+        labels = list(labels)
         if len(labels) <= 20:
             kind = (f"{len(labels)} distinct text label(s) such as "
                     f"{', '.join(repr(shorten(x, 30)) for x in labels[:4])}: it looks like a factor or a label column, "
@@ -763,9 +782,8 @@ def _text_response_error(name: str, text, bad: np.ndarray, keep: np.ndarray, row
             kind = f"text such as {shown}"
         return ResponseError(
             f"response column {_q(name)} must be numeric but holds text: none of its {n_keep:,} values is a number "
-            f"({kind}; first {_where(rows, i, row_kind)}); expected the measured numbers; fix: name the numeric "
+            f"({kind}; first {where_first}); expected the measured numbers; fix: name the numeric "
             f"column that holds the measurements with --response (API response=)")
-    where = _lines_text(rows, idx, row_kind)
     if _DEC_COMMA_RE.match(found):
         cause, fix = "a decimal comma", "give --decimal , (API decimal=',')"
     elif _THOUSANDS_RE.match(found):
@@ -776,8 +794,20 @@ def _text_response_error(name: str, text, bad: np.ndarray, keep: np.ndarray, row
         cause, fix = "text that is not a number", ("correct these cells or blank them out (blank cells are "
                                                    "dropped and counted)")
     return ResponseError(
-        f"response column {_q(name)} must be numeric; found {shown} {_where(rows, i, row_kind)}: {cause} "
-        f"({n_bad:,} of {n_keep:,} value(s) are not numbers, on {where}); fix: {fix}")
+        f"response column {_q(name)} must be numeric; found {shown} {where_first}: {cause} "
+        f"({n_bad:,} of {n_keep:,} value(s) are not numbers, on {where_all}); fix: {fix}")
+
+
+def where_text(first_rows, total: int, row_kind: str = "line") -> tuple[str, str]:
+    """('on line 7', 'lines 7, 9, 12, 15, 20 and 3 more'): the first rows in order (five, or all
+    when there are fewer) and how many there are in all, worded as the in-memory intake words them."""
+    shown = [int(r) for r in list(first_rows)[:5]]
+    word = {"line": "line", "index": "index label", "position": "position"}.get(row_kind, "row")
+    first = _where(np.asarray(shown), 0, row_kind)
+    if total == 1:
+        return first, f"{word} {shown[0]}"
+    more = f" and {total - 5} more" if total > 5 else ""
+    return first, f"{word}s {', '.join(map(str, shown))}{more}"
 
 
 def decimal_offset(text: str, spread: float) -> Decimal:

@@ -330,6 +330,29 @@ def _(t):
     return Case(str(t / "data.csv"))
 
 
+@case("a repeated header line inside the data (refused)")
+def _(t):
+    f = frame()
+    body = text(f).splitlines(keepends=True)
+    p = t / "d.csv"
+    p.write_text("".join(body[:9] + body[:1] + body[9:]))   # two files joined with their headers
+    return Case(str(p))
+
+
+@case("a unit after some response values (refused)")
+def _(t):
+    f = frame()
+    f.loc[[3, 8], Y] = f.loc[[3, 8], Y] + " mm"
+    return csv_case(t, f)
+
+
+@case("a response column of text labels (refused)")
+def _(t):
+    f = frame()
+    f[Y] = ["low" if i % 3 else "high" for i in range(len(f))]
+    return csv_case(t, f)
+
+
 # --- test_intake_odd.py -------------------------------------------------------------------------
 
 for _nm in ("None", "NA", "nan", "null", "N/A"):

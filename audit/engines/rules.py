@@ -175,6 +175,7 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
         raise intake.DataFileError(f"{backend.files[0]}: no data rows below the header; expected one row per "
                                    "observation")
     notes: list[str] = []
+    _refuse_repeated_header(backend, groups, response, factors, ykind, raw_rn, y)
 
     def row_of(rn):
         return backend.row_numbers([rn])[int(rn)]
@@ -306,9 +307,8 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
         return intake.parse_response(ser, is_text, response, np.asarray(rows, np.int64), keep)
 
     if k[0] is not None:
-        found = intake.fmt_scalar(k[1]) if ykind == "other" else k[1]
         try:
-            parse([found], [row_of(k[0])])
+            raise _text_error(backend, kept_src, response, ykind, n_kept=int(kept.sum()))
         except ResponseError as exc:
             if "must be numeric" not in str(exc):
                 raise
@@ -371,6 +371,46 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
                           missing_other=0, blank_lines=n_blank, rows=rows)
     return EngineIntake(levels_a=la, levels_b=lb, level_order=(how[0], how[1]), notes=tuple(notes), rk=rk,
                         centring=centring, dropped=dropped, source=source, lo=lo, hi=hi, decimal=decimal)
+
+
+def _refuse_repeated_header(backend, groups, response, factors, ykind, raw_rn, y) -> None:
+    """The in-memory intake's refusal of data rows that repeat the header (each named column
+    holds its own name), as when files with a header each are concatenated."""
+    if ykind != "text":
+        return   # a numeric response cannot hold its own name
+    fa, fb = factors
+    keys = [(g[0], g[1]) for g in groups if intake.fmt_scalar(g[2]) == fa and intake.fmt_scalar(g[3]) == fb]
+    if not keys:
+        return
+    q = backend.dialect.q
+    (ka, kb), = keys[:1]
+    cond = (f"CAST({q(fa)} AS VARCHAR) = {_s(ka)} AND CAST({q(fb)} AS VARCHAR) = {_s(kb)} "
+            f"AND twa_t = {_s(response)}")
+    count = int(backend.query(f"SELECT COUNT(*) FROM {raw_rn} WHERE {cond}", label="intake (header)")[0][0])
+    if not count:
+        return
+    rns = [int(r[0]) for r in backend.query(f"SELECT twa_rn FROM {raw_rn} WHERE {cond} ORDER BY twa_rn LIMIT 5",
+                                            label="intake (header)")]
+    got = backend.row_numbers(rns)
+    _, where_all = intake.where_text([got[r] for r in rns], count)
+    raise intake.repeated_header_error(backend.files[0], where_all, count, backend.columns())
+
+
+def _text_error(backend, kept_src: str, response: str, ykind: str, *, n_kept: int) -> ResponseError:
+    """The in-memory intake's error for text in the response, from the facts it words (how many
+    kept values are not numbers, the first of them and where, the distinct ones in order)."""
+    fmt = intake.fmt_scalar if ykind == "other" else str
+    n_bad = int(backend.query(f"WITH s AS ({kept_src}) SELECT COUNT(*) FROM s WHERE NOT na AND bad1",
+                              label="intake (response text)")[0][0])
+    first = backend.query(f"WITH s AS ({kept_src}) SELECT rn, shown FROM s WHERE NOT na AND bad1 ORDER BY rn LIMIT 5",
+                          label="intake (response text)")
+    labels = [fmt(r[0]) for r in backend.query(
+        f"WITH s AS (SELECT * FROM ({kept_src}) WHERE NOT na AND bad1 ORDER BY rn LIMIT 10000) "
+        f"SELECT shown, MIN(rn) FROM s GROUP BY shown ORDER BY 2 LIMIT 21", label="intake (response text)")]
+    got = backend.row_numbers([r[0] for r in first])
+    where_first, where_all = intake.where_text([got[int(r[0])] for r in first], n_bad)
+    return intake.text_response_error(response, found=fmt(first[0][1]), n_bad=n_bad, n_keep=n_kept, labels=labels,
+                                      where_first=where_first, where_all=where_all)
 
 
 def _fast_response(groups, map_a, map_b) -> tuple:
