@@ -480,7 +480,7 @@ def equivalence_test(
         lam = n_obs * r * r
         eta = lam / (lam + total) if math.isfinite(total) else None
     if not math.isfinite(lam):
-        return out(bound_partial_eta_sq=eta, bound_rms=rms,
+        return out(bound_partial_eta_sq=None, bound_rms=rms,
                    note="The bound's noncentrality is beyond the float64 range; the test cannot be formed.")
     p, method = noncentral_f_cdf(F, df1, df2, lam)
     note = None
