@@ -22,6 +22,15 @@ value was printed with.  Per column (the largest count over the column's rows):
 * ``decimals=`` (an int for every column, or {column: int}) overrides both.
 
 ``decimals_source`` in :class:`SummaryTable` says which was used.
+
+Sizes and levels
+----------------
+A cell size is a whole number from 1 to :data:`audit.design.MAX_CELL_SIZE` (10^12);
+a larger one is a typed error naming the row and column.  Factor levels that spell
+one number two ways ('1', '1.0') are merged with a note by the rule check mode uses
+(:func:`audit.intake.merge_numeric_spellings`); beside text they are an error.
+Means and SDs may be of any magnitude float64 holds: every square is formed on
+values divided by an exact power of two (:func:`audit.design.cells_from_summary`).
 """
 
 from __future__ import annotations

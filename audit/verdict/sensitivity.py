@@ -389,7 +389,8 @@ def detectable_interaction(anova, *, alpha: float = 0.05, power: float = 0.8, ef
     if effect != "AB":
         note = "rms_term is given for the interaction only."
     elif anova.ms_error is None or not n_obs:
-        note = "No error variance: the size in response units cannot be given."
+        note = ("No error variance on the response's scale (none, or outside the float64 range): the size in "
+                "response units cannot be given.")
     else:
         rms = math.sqrt(lam / n_obs) * math.sqrt(float(anova.ms_error))   # no overflow of lam * MS_error
     if method == _NCX2:
