@@ -214,7 +214,8 @@ def test_asymptotic_route_infinite_df2_is_noncentral_chi_square():
 
 
 def test_ncf_tail_bad_arguments_are_nan():
-    for args in ((1.0, 0, 10, 1.0), (1.0, 2, -1, 1.0), (math.nan, 2, 10, 1.0), (1.0, 2, 10, -1.0), (1.0, 2, 10, math.inf)):
+    for args in ((1.0, 0, 10, 1.0), (1.0, 2, -1, 1.0), (math.nan, 2, 10, 1.0), (1.0, 2, 10, -1.0),
+                 (1.0, 2, 10, math.inf)):
         assert math.isnan(ncf_cdf(*args))
 
 

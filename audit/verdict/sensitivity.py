@@ -396,7 +396,8 @@ def detectable_interaction(anova, *, alpha: float = 0.05, power: float = 0.8, ef
     if method == _NCX2:
         note = ((note + " ") if note else "") + "Computed with the noncentral chi-square limit (large df2)."
     elif method == _APPROX:
-        note = ((note + " ") if note else "") + "Computed with large-argument normal approximations of the noncentral F."
+        note = (((note + " ") if note else "")
+                + "Computed with large-argument normal approximations of the noncentral F.")
     return DetectableEffect(noncentrality=lam, partial_eta_sq=eta, cohens_f=f, rms_term=rms, method=method,
                             note=note, **base)
 
