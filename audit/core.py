@@ -55,8 +55,11 @@ __all__ = [
     "check_dense_budget",
     "DENSE_BUDGET",
     "partial_eta_sq_ci",
+    "partial_eta_sq_interval",
     "ncf_cdf",
+    "ncf_tail",
     "ncf_cdf_mixture",
+    "ncf_tail_asymptotic",
     "ZERO_SS_RTOL",
 ]
 
@@ -781,12 +784,102 @@ def _interaction_traces(n, t):
 #: variation within cells".
 ZERO_SS_RTOL = (1e3 * np.finfo(float).eps) ** 2
 
+#: scipy.stats.ncf (Boost's noncentral beta) is called only inside this box of
+#: arguments (checked BEFORE the call).  Outside it scipy returns NaN or numbers
+#: outside [0, 1] (ncf.sf(3, 2, 1e20, 10) = 15.4), takes up to a second a call
+#: (noncentralities of 1e12 and more), or aborts the whole process from C++
+#: (ncf.sf(6.0e17, 1, 4e15, 6.0e17): a std::out_of_range raised while Boost formats
+#: its "series did not converge" message), which no Python code can catch.
+#: Probed on a grid (df1 1-200, df2 5-1e18, lambda to 1e13, F from 1e-3 to 1e3
+#: times the numerator's centre): inside the box every call is fast and the only
+#: failures are NaN, which the fallbacks below catch.
+NCF_SCIPY_MAX_LAMBDA = 1e6
+NCF_SCIPY_MAX_DF = 1e9
+NCF_SCIPY_MAX_F = 1e12
+#: above this df1 + lambda the noncentral chi-square is taken from Sankaran's
+#: normal approximation (its error is below 1e-8 here, 7e-11 at 1e6; Sankaran
+#: 1963, Biometrika 50, 199-204, from memory), below it from scipy's ncx2
+_SANKARAN_MIN = 1e5
+#: above this many df the denominator chi-square is taken from the Wilson-Hilferty
+#: cube-root normal form (error about 1e-8 at 1e6 df and falling; scipy's chi2
+#: loses accuracy beyond about 1e7 df)
+_WH_MIN_DF = 1e6
+
 #: 1 - cdf is used where the noncentral F cdf is not a number; beyond this many
 #: error df, or where neither is a number, the cdf is the expectation of the
 #: noncentral chi-square cdf over the denominator chi-square (quadrature)
 _NCF_QUAD_PANELS = np.array([0.0, 1e-12, 1e-8, 1e-5, 1e-3, 0.02, 0.2, 0.5, 0.8, 0.98,
                              1 - 1e-3, 1 - 1e-5, 1 - 1e-8, 1 - 1e-12, 1.0])
 _NCF_QUAD_NODES = 32
+
+#: how the noncentral F was evaluated (:func:`ncf_tail`)
+NCF_ROUTE_SCIPY = "noncentral F"
+NCF_ROUTE_MIXTURE = "noncentral F (chi-square mixture by quadrature)"
+NCF_ROUTE_APPROX = "noncentral F (large-argument normal approximations, Sankaran / Wilson-Hilferty)"
+
+
+def _quad_nodes():
+    x, w = np.polynomial.legendre.leggauss(_NCF_QUAD_NODES)
+    a, b = _NCF_QUAD_PANELS[:-1, None], _NCF_QUAD_PANELS[1:, None]
+    return (a + (b - a) * (x + 1.0) / 2.0).ravel(), ((b - a) / 2.0 * w).ravel()
+
+
+def _in_scipy_box(F: float, df1: float, df2: float, lam: float) -> bool:
+    return (lam <= NCF_SCIPY_MAX_LAMBDA and df1 <= NCF_SCIPY_MAX_DF and math.isfinite(df2)
+            and df2 <= NCF_SCIPY_MAX_DF and F <= NCF_SCIPY_MAX_F)
+
+
+def _prob_or_nan(v) -> float:
+    v = float(v)
+    return v if math.isfinite(v) and 0.0 <= v <= 1.0 else math.nan
+
+
+def ncf_tail(F: float, df1: float, df2: float, lam: float, *, upper: bool = False) -> tuple[float, str | None]:
+    """P(F' <= F) (``upper``: P(F' > F)) for the noncentral F(df1, df2, lam) and
+    the route used; (NaN, None) when the arguments are not numbers in range or
+    every route fails.  Never raises on numbers and never calls scipy outside
+    the box where it is safe (:data:`NCF_SCIPY_MAX_LAMBDA`, ...).
+
+    Inside the box: scipy's ``ncf`` (the other tail as 1 - it where a tail is
+    NaN), then the chi-square mixture (:func:`ncf_cdf_mixture`).  Outside it
+    (huge F, df or noncentrality; df2 may be infinite, the noncentral chi-square
+    limit): :func:`ncf_tail_asymptotic`.
+    """
+    from scipy import stats
+
+    try:
+        F, df1, df2, lam = float(F), float(df1), float(df2), float(lam)
+    except (TypeError, ValueError, OverflowError):
+        return math.nan, None
+    if not (math.isfinite(df1) and df1 > 0 and df2 > 0 and not math.isnan(df2) and math.isfinite(lam)
+            and lam >= 0 and not math.isnan(F)):
+        return math.nan, None
+    if F <= 0:
+        return (1.0 if upper else 0.0), NCF_ROUTE_SCIPY
+    if math.isinf(F):
+        return (0.0 if upper else 1.0), NCF_ROUTE_SCIPY
+    if _in_scipy_box(F, df1, df2, lam):
+        first, other = ("sf", "cdf") if upper else ("cdf", "sf")
+        with np.errstate(all="ignore"):
+            try:
+                if lam <= 0:
+                    c = _prob_or_nan(getattr(stats.f, first)(F, df1, df2))
+                    if math.isfinite(c):
+                        return c, NCF_ROUTE_SCIPY
+                c = _prob_or_nan(getattr(stats.ncf, first)(F, df1, df2, lam))
+                if math.isfinite(c):
+                    return c, NCF_ROUTE_SCIPY
+                c = _prob_or_nan(1.0 - float(getattr(stats.ncf, other)(F, df1, df2, lam)))
+                if math.isfinite(c):
+                    return c, NCF_ROUTE_SCIPY
+            except (ArithmeticError, ValueError):
+                pass
+        c = ncf_cdf_mixture(F, df1, df2, lam)
+        if math.isfinite(c):
+            return (1.0 - c if upper else c), NCF_ROUTE_MIXTURE
+        return math.nan, None
+    c = ncf_tail_asymptotic(F, df1, df2, lam, upper=upper)
+    return (c, NCF_ROUTE_APPROX) if math.isfinite(c) else (math.nan, None)
 
 
 def ncf_cdf(F: float, df1: float, df2: float, lam: float) -> float:
@@ -796,94 +889,221 @@ def ncf_cdf(F: float, df1: float, df2: float, lam: float) -> float:
     F = 300, df1 = 15, df2 = 1e5, lam = 9000); then 1 - ncf.sf is used, and
     where that fails too, the defining mixture
     P(F' <= F) = E[ P(chi2'(df1, lam) <= F df1 X / df2) ], X ~ chi2(df2),
-    by Gauss-Legendre quadrature over the probability scale of X.
+    by Gauss-Legendre quadrature over the probability scale of X.  Outside the
+    box where scipy is safe, :func:`ncf_tail_asymptotic` (see :func:`ncf_tail`).
     Returns NaN only if every route fails.
     """
-    from scipy import stats
-
-    with np.errstate(all="ignore"):
-        if lam <= 0:
-            c = float(stats.f.cdf(F, df1, df2))
-            if math.isfinite(c):
-                return c
-        c = float(stats.ncf.cdf(F, df1, df2, lam))
-        if math.isfinite(c) and 0.0 <= c <= 1.0:
-            return c
-        c = 1.0 - float(stats.ncf.sf(F, df1, df2, lam))
-        if math.isfinite(c) and 0.0 <= c <= 1.0:
-            return c
-        return ncf_cdf_mixture(F, df1, df2, lam)
+    return ncf_tail(F, df1, df2, lam)[0]
 
 
 def ncf_cdf_mixture(F: float, df1: float, df2: float, lam: float) -> float:
     """P(F' <= F) as E[ncx2.cdf(F df1 X / df2; df1, lam)], X ~ chi2(df2), by
     Gauss-Legendre quadrature on 14 panels of u = P(X <= x), dense in the tails
     (the definition of the noncentral F as a ratio of independent chi-squares;
-    agrees with scipy.stats.ncf.cdf to about 1e-9 where that is defined)."""
+    agrees with scipy.stats.ncf.cdf to about 1e-9 where that is defined).
+    Meant for the box of :func:`ncf_tail` (lam up to 1e6); NaN when a value is
+    not a number."""
     from scipy import stats
 
-    x, w = np.polynomial.legendre.leggauss(_NCF_QUAD_NODES)
-    a, b = _NCF_QUAD_PANELS[:-1, None], _NCF_QUAD_PANELS[1:, None]
-    u = (a + (b - a) * (x + 1.0) / 2.0).ravel()
-    ww = ((b - a) / 2.0 * w).ravel()
-    with np.errstate(all="ignore"):
-        X = stats.chi2.ppf(u, df2) / df2
-        v = stats.ncx2.cdf(F * df1 * X, df1, lam) if lam > 0 else stats.chi2.cdf(F * df1 * X, df1)
+    u, ww = _quad_nodes()
+    try:
+        with np.errstate(all="ignore"):
+            X = stats.chi2.ppf(u, df2) / df2
+            v = _ncx2_cdf(F * df1 * X, df1, lam)
+    except (ArithmeticError, ValueError):
+        return float("nan")
     ok = np.isfinite(v)
     if not ok.all():
         return float("nan")
     return float(np.clip(np.sum(ww * v), 0.0, 1.0))
 
 
-#: largest noncentrality searched (eta^2 = 1 - (df1 + df2 + 1) / lam beyond it)
-_LAMBDA_MAX = 1e15
+def _ncx2_cdf(x: np.ndarray, k: float, lam: float, upper: bool = False) -> np.ndarray:
+    """scipy's noncentral (or central) chi-square tail, with arguments far in the
+    upper tail (where scipy's ncx2.sf overflows inside Boost's tgamma) answered
+    as 1 / 0 without a call: beyond k + lam + 1000 SD + 1000 the upper tail is
+    below 1e-300."""
+    from scipy import stats
+
+    x = np.asarray(x, dtype=float)
+    far = x > k + lam + 1000.0 * math.sqrt(2.0 * (k + 2.0 * lam)) + 1000.0
+    xs = np.where(far, k + lam, x)
+    with np.errstate(all="ignore"):
+        if upper:
+            v = stats.ncx2.sf(xs, k, lam) if lam > 0 else stats.chi2.sf(xs, k)
+        else:
+            v = stats.ncx2.cdf(xs, k, lam) if lam > 0 else stats.chi2.cdf(xs, k)
+    return np.where(far, 0.0 if upper else 1.0, v)
 
 
-def partial_eta_sq_ci(F: float, df1: int, df2: int, *, level: float = 0.95) -> tuple[float, float] | None:
-    """Confidence interval for partial eta^2 by inverting the noncentral F.
+def _sankaran(k: float, lam: float):
+    """(h, mu - 1, sigma): ((chi2'(k, lam) / (k + lam))^h - mu) / sigma is about
+    standard normal (Sankaran 1963; from memory, checked against scipy's ncx2 in
+    tests/test_ncf_guard.py)."""
+    kl, k2 = k + lam, k + 2.0 * lam
+    h = 1.0 - (2.0 / 3.0) * kl * (k + 3.0 * lam) / (k2 * k2)
+    p = k2 / (kl * kl)
+    m = (h - 1.0) * (1.0 - 3.0 * h)
+    dmu = h * p * (h - 1.0 - 0.5 * (2.0 - h) * m * p)
+    sig = h * math.sqrt(2.0 * p) * (1.0 + 0.5 * m * p)
+    return h, dmu, sig
+
+
+def ncf_tail_asymptotic(F: float, df1: float, df2: float, lam: float, *, upper: bool = False) -> float:
+    """P(F' <= F) (``upper``: P(F' > F)) for arguments beyond scipy's safe box.
+
+    F' = (N / df1) / (X / df2), N ~ chi2'(df1, lam), X ~ chi2(df2), so F' <= F
+    exactly when log(N / (df1 + lam)) - log(X / df2) <= a, a = log(F df1 / (df1 + lam)).
+    The probability is the expectation, over the more concentrated of N / (df1 + lam)
+    and X / df2 (smaller relative SD; the other's tail is then smooth across it), of
+    the other's tail, by Gauss-Legendre quadrature on the probability scale (14
+    panels, dense in the tails).  N is taken from scipy's ncx2 when df1 + lam <=
+    1e5, else from Sankaran's normal form; X from scipy's chi2 up to 1e6 df, else
+    Wilson-Hilferty, as infinite df2 by X / df2 = 1 (the noncentral chi-square
+    limit).  Every small difference is formed as such (log1p / expm1), so the
+    result holds at any magnitude of F and lam that float64 holds.  NaN if a
+    value is not a number.
+    """
+    from scipy import special, stats
+
+    k, nu = float(df1), float(df2)
+    kl = k + lam
+    a = math.log(F) + math.log(k) - math.log(kl)
+    approx_n = kl > _SANKARAN_MIN
+    rn = math.sqrt(2.0 * (k + 2.0 * lam)) / kl
+    rx = math.sqrt(2.0 / nu) if math.isfinite(nu) else 0.0
+    wh = math.isfinite(nu) and nu > _WH_MIN_DF
+    c9 = 2.0 / (9.0 * nu) if math.isfinite(nu) else 0.0
+    u, w = _quad_nodes()
+    try:
+        with np.errstate(all="ignore"):
+            if approx_n:
+                h, dmu, sig = _sankaran(k, lam)
+            if rx == 0.0 or rx <= rn or not approx_n:
+                # over X: P(log(N / kl) <= a + lx)
+                if rx == 0.0:
+                    lx, w = np.zeros(1), np.ones(1)
+                elif wh:
+                    lx = 3.0 * np.log1p(-c9 + special.ndtri(u) * math.sqrt(c9))
+                else:
+                    lx = np.log(stats.chi2.ppf(u, nu) / nu)
+                t = a + lx
+                if approx_n:
+                    z = (np.expm1(h * t) - dmu) / sig
+                    v = special.ndtr(-z) if upper else special.ndtr(z)
+                else:
+                    v = _ncx2_cdf(np.exp(math.log(F) + math.log(k) + lx), k, lam, upper)
+            else:
+                # over N: P(log(X / nu) >= log(N / kl) - a)
+                ln = np.log1p(dmu + sig * special.ndtri(u)) / h
+                t = ln - a
+                if wh:
+                    zx = (np.expm1(t / 3.0) + c9) / math.sqrt(c9)
+                    v = special.ndtr(zx) if upper else special.ndtr(-zx)
+                else:
+                    xq = nu * np.exp(t)
+                    v = stats.chi2.cdf(xq, nu) if upper else stats.chi2.sf(xq, nu)
+            v = np.asarray(v, dtype=float)
+    except (ArithmeticError, ValueError):
+        return math.nan
+    if not np.isfinite(v).all():
+        return math.nan
+    return float(np.clip(np.sum(w * v), 0.0, 1.0))
+
+
+#: largest noncentrality searched (about the float64 range; eta^2 is then 1 to
+#: double precision)
+_LAMBDA_MAX = 1e300
+#: the bracket for a bound is doubled at most this many times (the upper bound
+#: exceeds 2 F df1 by the reciprocal of a small quantile of chi2(df2) / df2: a
+#: factor of about 1e3 for df2 = 1, 2^10)
+_CI_MAX_DOUBLINGS = 200
+#: each bound's root search stops after this many cdf evaluations
+_CI_MAX_ITER = 100
+#: and a whole interval after this many seconds (a safety net: each evaluation
+#: is bounded, so the limit is not reached in practice)
+CI_TIME_LIMIT = 5.0
+
+
+def partial_eta_sq_interval(F: float, df1: float, df2: float, *, level: float = 0.95
+                            ) -> tuple[tuple[float, float] | None, str | None]:
+    """Confidence interval for partial eta^2 and a note: (interval, None), or
+    (interval, what approximation was used), or (None, why it is missing).
 
     Finds lambda_lo, lambda_hi with P(F' <= F_obs; lambda) = (1 + level)/2 and
     (1 - level)/2, then eta^2 = lambda / (lambda + df1 + df2 + 1) [3].  The cdf
-    comes from :func:`ncf_cdf` (scipy's noncentral F with fallbacks), the root
-    from a bracketing search (doubling, then Brent's method, bisection if a
-    value is not a number).  Returns None when the interval cannot be computed
-    (every cdf route failed or no bracket up to lambda = 1e15); the caller
-    states why.
+    comes from :func:`ncf_tail` (scipy's noncentral F inside its safe box, with
+    fallbacks; large-argument approximations outside it), the root from a
+    bracketing search (doubling from max(10, 2 F df1), at most
+    :data:`_CI_MAX_DOUBLINGS` times and up to lambda = 1e300, then Brent's
+    method with at most :data:`_CI_MAX_ITER` iterations), all within
+    :data:`CI_TIME_LIMIT` seconds.  Never raises on numbers.
     """
+    import time
+
     from scipy import optimize
 
-    if not (math.isfinite(F) and F >= 0 and df1 > 0 and df2 > 0):
-        return None
+    try:
+        F, df1, df2 = float(F), float(df1), float(df2)
+    except (TypeError, ValueError, OverflowError):
+        return None, "the F statistic or its df are not numbers"
+    if not (math.isfinite(F) and F >= 0 and math.isfinite(df1) and df1 > 0 and math.isfinite(df2) and df2 > 0):
+        return None, "the F statistic or its df are not finite positive numbers"
     hi_q = (1 + level) / 2
     lo_q = (1 - level) / 2
+    deadline = time.monotonic() + CI_TIME_LIMIT
+    routes: set = set()
 
     class _Fail(Exception):
         pass
 
     def cdf(lam: float) -> float:
-        c = ncf_cdf(F, df1, df2, lam)
+        if time.monotonic() > deadline:
+            raise _Fail(f"the noncentral F inversion did not finish within {CI_TIME_LIMIT:g} s")
+        c, route = ncf_tail(F, df1, df2, lam)
         if not math.isfinite(c):
-            raise _Fail
+            raise _Fail("the noncentral F could not be evaluated at these values")
+        routes.add(route)
         return c
 
     def solve(q: float) -> float:
         if cdf(0.0) <= q:
             return 0.0
-        lower, upper = 0.0, max(10.0, 2.0 * F * df1)
+        lower, upper = 0.0, min(max(10.0, 2.0 * F * df1), _LAMBDA_MAX)
+        steps = 0
         while cdf(upper) > q:
-            lower, upper = upper, upper * 2.0
-            if upper > _LAMBDA_MAX:
-                raise _Fail
+            if upper >= _LAMBDA_MAX or steps >= _CI_MAX_DOUBLINGS:
+                raise _Fail("no noncentrality up to 1e300 reaches the observed F")
+            lower, upper = upper, min(upper * 2.0, _LAMBDA_MAX)
+            steps += 1
         g = lambda lam: cdf(lam) - q  # noqa: E731
-        return float(optimize.brentq(g, lower, upper, xtol=1e-10, rtol=1e-12))
+        return float(optimize.brentq(g, lower, upper, xtol=1e-10, rtol=1e-12, maxiter=_CI_MAX_ITER))
 
     try:
         lam_lo, lam_hi = solve(hi_q), solve(lo_q)
-    except (_Fail, ValueError, RuntimeError):
-        return None
+    except _Fail as e:
+        return None, str(e)
+    except (ValueError, RuntimeError, ArithmeticError):
+        return None, "the noncentral F inversion did not converge"
     conv = lambda lam: lam / (lam + df1 + df2 + 1)  # noqa: E731
-    return (conv(lam_lo), conv(lam_hi))
+    note = None
+    if NCF_ROUTE_APPROX in routes:
+        note = ("the interval of partial eta squared uses large-argument normal approximations of the "
+                "noncentral F (Sankaran 1963; Wilson-Hilferty), as scipy's noncentral F is unreliable at "
+                "these values")
+    return (conv(lam_lo), conv(lam_hi)), note
 
+
+def partial_eta_sq_ci(F: float, df1: int, df2: int, *, level: float = 0.95) -> tuple[float, float] | None:
+    """Confidence interval for partial eta^2 by inverting the noncentral F
+    (:func:`partial_eta_sq_interval` without its note).
+
+    Finds lambda_lo, lambda_hi with P(F' <= F_obs; lambda) = (1 + level)/2 and
+    (1 - level)/2, then eta^2 = lambda / (lambda + df1 + df2 + 1) [3].  Returns
+    None when the interval cannot be computed (the caller states why, or use
+    :func:`partial_eta_sq_interval` for the reason).
+    """
+    return partial_eta_sq_interval(F, df1, df2, level=level)[0]
 
 @dataclass(frozen=True)
 class _Scale:
@@ -958,10 +1178,11 @@ def _row(effect, label, ss, df, sc: _Scale, note=None) -> AnovaRow:
     p = float(stats.f.sf(F, df, df_error))
     eta = ss / (ss + sse)
     omega = (ss - df * ms_error) / (ss + (N - df) * ms_error)
-    ci = partial_eta_sq_ci(F, df, df_error)
+    ci, ci_note = partial_eta_sq_interval(F, df, df_error)
     if ci is None:
-        notes.append("the confidence interval of partial eta squared could not be computed (the "
-                     "noncentral F could not be evaluated or inverted at these degrees of freedom)")
+        notes.append(f"the confidence interval of partial eta squared could not be computed ({ci_note})")
+    elif ci_note:
+        notes.append(ci_note)
     return AnovaRow(effect=effect, label=label, ss=ss_d, df=df, ms=ms_d, F=float(F), p=p,
                     partial_eta_sq=float(eta), partial_eta_sq_ci=ci, partial_omega_sq=float(omega),
                     note=_join(note, *notes))

@@ -53,7 +53,7 @@ import numpy as np
 from .errors import AuditInputError, ColumnError, DataFileError, FactorError, OptionError, ResponseError
 
 __all__ = ["Observations", "DroppedRows", "read_table", "prepare", "load", "order_levels", "RESPONSE_NA_TOKENS",
-           "LEVEL_ORDERS"]
+           "LEVEL_ORDERS", "merge_numeric_spellings"]
 
 TEXT_SUFFIXES = {".csv", ".tsv", ".tab", ".txt", ".dat"}
 SUPPORTED = sorted(TEXT_SUFFIXES | {".xlsx", ".parquet"})
@@ -620,8 +620,28 @@ def _number_key(s: str):
     return Decimal(s) if _NUMBER_RE.match(s) else None
 
 
-def _merge_numeric_spellings(f: str, txt: np.ndarray, given: list[str] | None, notes: list[str]) -> np.ndarray:
-    """Merge spellings of one number ('15', '15.0') when every value is numeric."""
+def merge_numeric_spellings(f: str, txt: np.ndarray, given: list[str] | None, notes: list[str]) -> np.ndarray:
+    """Merge spellings of one number ('15', '15.0') when every value is numeric.
+
+    The one rule for both modes (raw data and summary tables).
+
+    Parameters
+    ----------
+    f : str
+        The factor's column name (for the note and the error).
+    txt : ndarray of object
+        The level text of every row (None where missing).
+    given : list of str or None
+        Levels given by the user (the merged level takes a given spelling).
+    notes : list of str
+        A note is appended per merged group.
+
+    Returns
+    -------
+    ndarray
+        ``txt`` with each group of spellings replaced by one of them; raises
+        :class:`FactorError` when spellings of one number sit beside text.
+    """
     import pandas as pd
 
     codes, uniq = pd.factorize(pd.Series(txt, dtype=object), sort=False, use_na_sentinel=True)
@@ -1171,7 +1191,7 @@ def prepare(
     level_sets = []
     how_ordered = []
     for f in factors:
-        txt = _merge_numeric_spellings(f, texts[f], levels.get(f), notes)
+        txt = merge_numeric_spellings(f, texts[f], levels.get(f), notes)
         # blank rows hold None here and are no level (they are counted apart)
         present = pd.unique(pd.Series(txt[~np.equal(txt, None)], dtype=object)).tolist()
         lv, how = factor_levels(f, present, levels.get(f))
@@ -1316,7 +1336,6 @@ check_levels_option = _check_levels_option
 check_encoding = _check_encoding
 sniff_delimiter = _sniff_delimiter
 header_names = _header_names
-merge_numeric_spellings = _merge_numeric_spellings
 comma_to_point = _comma_to_point
 parse_response = _parse_response
 NUMBER_RE = _NUMBER_RE

@@ -965,6 +965,12 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
             raise OptionError(f"effects: expected effects among {EFFECTS}, found {e!r}")
     effects = tuple(e for e in EFFECTS if e in effects)
     cells = fit.cells
+    # the size check is scale-free: variances are simulated in units of an exact power of two
+    # (CellStats.standardised), so that SDs near 1e-300 or 1e300 neither underflow nor overflow
+    # when squared; the reported SDs and target variance are restored to the response scale
+    st = cells.standardised()
+    unit = st.unit
+    var_std = st.variances
     J, K = cells.J, cells.K
     counts = cells.counts
     filled = counts.ravel() > 0
@@ -990,11 +996,11 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
         # the sampling spread of log s2 under this residual shape, from a pilot on residuals
         # standardised by the normal-theory moderated SDs (standardising by each cell's own
         # SD would clip the tails of small cells and understate that spread)
-        post1, _, _ = moderated_variances(cells.variances, counts, prior_df=math.inf)
-        pilot_pool = _standardised_pool(fit, np.sqrt(post1))
+        post1, _, _ = moderated_variances(var_std, counts, prior_df=math.inf)
+        pilot_pool = _standardised_pool(fit, np.sqrt(post1) * unit)
         if pilot_pool.size >= 2:
             sampling = _pilot_log_variance(rng, counts, pilot_pool)
-    post, d0, pooled = moderated_variances(cells.variances, counts, prior_df=prior_df, sampling=sampling)
+    post, d0, pooled = moderated_variances(var_std, counts, prior_df=prior_df, sampling=sampling)
     if isinstance(prior_df, str):
         smethod = "equal" if math.isinf(d0) else "moderated"
     else:
@@ -1008,14 +1014,18 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
         "none": "each cell simulated with its own variance (no moderation)",
         "fixed-prior": f"cell variances moderated toward the pooled variance with a given prior df d0 = {d0:.3g}",
     }[smethod]
-    zero_sd = (counts > 1) & (np.nan_to_num(cells.variances) == 0)
+    zero_sd = (counts > 1) & (np.nan_to_num(var_std) == 0)
     if zero_sd.any():
         snote += (f"; {int(zero_sd.sum())} cell(s) with zero SD (ties or rounding?) "
                   + ("keep zero variance" if smethod == "none" else "take the moderated variance"))
-    cell_sd_json = [[(float(x) if np.isfinite(x) else None) for x in row] for row in sd_cells]
+    with np.errstate(all="ignore"):
+        sd_shown = sd_cells * unit
+        pooled_shown = float(pooled) * unit * unit
+    cell_sd_json = [[(float(x) if np.isfinite(x) else None) for x in row] for row in sd_shown]
     shrink = Shrinkage(method=smethod, prior_df=None if math.isinf(d0) else float(d0),
                        complete=bool(math.isinf(d0)),
-                       target_variance=float(pooled) if np.isfinite(pooled) else None,
+                       target_variance=pooled_shown if math.isfinite(pooled_shown) and
+                       (pooled_shown != 0 or pooled == 0) else None,
                        cell_sd=cell_sd_json, note=snote)
 
     def result(rows, source, enote, extra_notes=()):
