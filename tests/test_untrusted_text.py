@@ -174,3 +174,25 @@ def test_huge_value_and_name_are_echoed_short(tmp_path):
     with pytest.raises(Exception) as info:
         load(df, response="q" * 150_000, factors=("kiln", "glaze"))
     assert len(str(info.value)) <= MAX_ERROR
+
+
+def test_long_user_names_keep_the_summary_short(tmp_path):
+    # a 3,000-character factor name and a 5,000-character level: the terminal summary keeps its
+    # 40-line limit and no report line carries a name whole (the JSON keeps the names exactly)
+    rng = np.random.default_rng(2)
+    fac, lev = "F" * 3000, "x" * 5000
+    rows = [("t0", "l0"), ("t0", "l1"), (lev, "l0"), (lev, "l1"), ("t2", "l0"), ("t2", "l1")]
+    df = pd.DataFrame([(a, b, 10 + i + rng.normal()) for i, (a, b) in enumerate(rows) for _ in range(4)],
+                      columns=["tray", fac, "height"])
+    f = audit.check(df, response="height", factors=("tray", fac), resamples=199, seed=1)
+    text = f.to_terminal() if hasattr(f, "to_terminal") else None
+    if text is None:
+        from audit.render.terminal import render_terminal
+        from audit.report.build import build_report
+        text = render_terminal(build_report(f))
+    lines = text.splitlines()
+    assert len(lines) <= 40 and max(map(len, lines)) <= 80
+    md = f.to_markdown()
+    assert max(map(len, md.splitlines())) < 1500
+    assert fac not in md and lev not in md
+    assert f.factors == ("tray", fac) and lev in f.design.levels["tray"]
