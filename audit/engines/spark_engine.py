@@ -2,8 +2,16 @@
 
 The session is the active one, or one built with ``master`` (e.g.
 ``local[2]``, ``spark://host:7077``) or the session's defaults.  The same SQL
-as every engine runs through ``spark.sql``; the sample key is ``rand(seed)``,
+as every engine runs through ``spark.sql`` (the differences are the dialect's,
+:data:`audit.engines.moments.SPARK`); the sample key is ``rand(seed)``,
 repeatable for the same table layout (Spark seeds it per partition).
+
+A local text file is opened as the DuckDB engine opens it
+(:class:`~audit.engines.textfile.TextFile`: encoding, sniffed delimiter, header
+names), then read by Spark's CSV reader as text columns.  Row order is
+``monotonically_increasing_id()`` (partition index << 33 + position in the
+partition); :meth:`SparkBackend.row_numbers` turns it into the record's ordinal
+from the partitions' counts, and for a text file into its line number.
 """
 
 from __future__ import annotations
@@ -57,11 +65,33 @@ class SparkBackend:
 
         self.version = pyspark.__version__
         self.data = os.fspath(data) if isinstance(data, os.PathLike) else data
+        self.texts: list = []
+        self.delimiter = None
+        low = self.data.lower() if isinstance(self.data, str) else ""
+        if low.endswith((".csv", ".tsv", ".txt", ".tab", ".dat")) and os.path.isfile(self.data):
+            from .textfile import TextFile
+
+            # the in-memory intake's encoding, delimiter and header rules (its errors too)
+            self.texts.append(TextFile(self.data))
         try:
-            if isinstance(self.data, str) and (os.path.exists(self.data) or any(c in self.data for c in "*?/")):
-                low = self.data.lower()
+            if self.texts:
+                from pyspark.sql.types import StringType, StructField, StructType
+
+                tf = self.texts[0]
+                self.delimiter = tf.delimiter
+                schema = StructType([StructField(n, StringType(), True) for n in tf.names])
+                # quoted line breaks need the (unsplit) multi-line reader; a quote in the first
+                # 64 KiB turns it on
+                multi = '"' in tf._sample()
+                df = (self.spark.read.schema(schema).option("header", "true").option("sep", tf.delimiter)
+                      .option("quote", '"').option("escape", '"').option("encoding", "UTF-8")
+                      .option("multiLine", "true" if multi else "false").option("mode", "PERMISSIVE")
+                      .csv(tf.read_path))
+                self.kind = "csv"
+            elif isinstance(self.data, str) and (os.path.exists(self.data) or any(c in self.data for c in "*?/")):
                 if low.endswith((".csv", ".tsv", ".txt")):
                     sep = "\t" if low.endswith(".tsv") else ","
+                    self.delimiter = sep
                     df = self.spark.read.option("header", "true").option("sep", sep).csv(self.data)
                     self.kind = "csv"
                 else:
@@ -78,14 +108,15 @@ class SparkBackend:
         self.df = df
         self.source = _VIEW
         self._seed = 0
-        # what audit/engines/rules.py reads (untested: pyspark is not in the test environment)
+        # what audit/engines/rules.py reads: the rows with their order (raw_rn), the source's kind,
+        # its file name for messages, the delimiter (decimal commas are refused beside a comma)
         from pyspark.sql import functions as F
 
         df.withColumn("twa_rn", F.monotonically_increasing_id()).createOrReplaceTempView(_VIEW + "_rn")
         self.raw, self.raw_rn = _VIEW, _VIEW + "_rn"
         self.format = self.kind
         self.files = [str(self.data)]
-        self.delimiter = ("\t" if str(self.data).lower().endswith(".tsv") else ",") if self.kind == "csv" else None
+        self._starts = None
 
     def describe(self) -> dict:
         return {"format": self.kind, "table_or_path": str(self.data),
@@ -99,9 +130,27 @@ class SparkBackend:
         return {"STRING": "VARCHAR", "INT": "INTEGER", "LONG": "BIGINT", "SHORT": "SMALLINT", "BYTE": "TINYINT",
                 "BOOLEAN": "BOOLEAN"}.get(t, t)
 
+    def _ordinals(self, rns) -> dict:
+        """1-based record ordinals (file order) of monotonically_increasing_id values: the
+        partitions' row counts (one small GROUP BY, once) give each partition's first ordinal."""
+        if self._starts is None:
+            rows = self.query(f"SELECT shiftright(twa_rn, 33) AS p, COUNT(*) FROM {self.raw_rn} GROUP BY 1",
+                              label="row numbers")
+            self._starts, acc = {}, 0
+            for p, n in sorted((int(p), int(n)) for p, n in rows):
+                self._starts[p] = acc
+                acc += n
+        mask = (1 << 33) - 1
+        return {int(r): self._starts.get(int(r) >> 33, 0) + (int(r) & mask) + 1 for r in rns}
+
     def row_numbers(self, rns) -> dict:
-        """monotonically_increasing_id is no row number: shown as given (untested)."""
-        return {int(r): int(r) + 1 for r in rns}
+        """Report row numbers for engine row-order numbers: file lines for a text file (the
+        header is line 1), else 1-based row positions (as the in-memory intake)."""
+        ords = self._ordinals(rns)
+        if self.texts:
+            lines = self.texts[0].lines(list(ords.values()))
+            return {r: lines[o] for r, o in ords.items()}
+        return ords
 
     def column_kind(self, name: str):
         from pyspark.sql.types import DecimalType, StringType
@@ -114,11 +163,15 @@ class SparkBackend:
         return "double"
 
     def register(self, name: str, frame) -> str:
+        """A small pandas frame as a temporary view: numeric columns as DOUBLE, the others
+        (text) as STRING."""
+        from pandas.api.types import is_numeric_dtype
         from pyspark.sql.types import DoubleType, StringType, StructField, StructType
 
-        fields = [StructField(c, StringType() if c in ("fa", "fb") else DoubleType(), True) for c in frame.columns]
-        rows = [tuple(None if v is None else (str(v) if c in ("fa", "fb") else float(v))
-                      for c, v in zip(frame.columns, r)) for r in frame.itertuples(index=False)]
+        text = [not is_numeric_dtype(frame[c].dtype) for c in frame.columns]
+        fields = [StructField(c, StringType() if tx else DoubleType(), True) for c, tx in zip(frame.columns, text)]
+        rows = [tuple(None if v is None else (str(v) if tx else float(v))
+                      for tx, v in zip(text, r)) for r in frame.itertuples(index=False)]
         self.spark.createDataFrame(rows, StructType(fields)).createOrReplaceTempView(name)
         return name
 
@@ -146,4 +199,5 @@ class SparkBackend:
         return pd.DataFrame(rows, columns=cols) if rows else pd.DataFrame({c: [] for c in cols})
 
     def close(self) -> None:
-        pass
+        for t in self.texts:
+            t.close()
