@@ -16,15 +16,25 @@ from the partitions' counts, and for a text file into its line number.
 
 from __future__ import annotations
 
+import glob
 import os
+import re
 
-from ..errors import AuditInputError
+from .. import intake
+from ..errors import AuditInputError, DataFileError, OptionError
 from .moments import SPARK
 
 __all__ = ["SparkBackend", "MISSING"]
 
 MISSING = 'engine spark: the pyspark package is not installed; install it with pip install ".[spark]"'
 _VIEW = "twa_source"
+PARQUET_EXT = (".parquet", ".pq", ".parq")
+_SUFFIXES = tuple(intake.TEXT_SUFFIXES) + PARQUET_EXT + (".xlsx", ".json")
+
+
+def hadoop_literal(path: str) -> str:
+    """A path Spark (Hadoop's glob) reads literally: its glob characters backslash-escaped."""
+    return re.sub(r"([\\*?\[\]{}])", r"\\\1", path)
 
 
 def _import():
@@ -59,7 +69,7 @@ class SparkBackend:
     dialect = SPARK
     sample_key_description = "Spark rand(seed) (repeatable for the same table layout)"
 
-    def __init__(self, data, *, master: str | None = None, session=None):
+    def __init__(self, data, *, master: str | None = None, session=None, encoding: str | None = None):
         self.spark = session or start_session(master)
         import pyspark
 
@@ -67,12 +77,31 @@ class SparkBackend:
         self.data = os.fspath(data) if isinstance(data, os.PathLike) else data
         self.texts: list = []
         self.delimiter = None
-        low = self.data.lower() if isinstance(self.data, str) else ""
-        if low.endswith((".csv", ".tsv", ".txt", ".tab", ".dat")) and os.path.isfile(self.data):
-            from .textfile import TextFile
+        is_path = isinstance(self.data, str) and (os.path.exists(self.data) or any(c in self.data for c in "*?/")
+                                                  or self.data.lower().endswith(_SUFFIXES))
+        suffix = os.path.splitext(self.data)[1].lower() if is_path else ""
+        if is_path and (os.path.isfile(self.data) or not (os.path.exists(self.data) or glob.has_magic(self.data))):
+            # one local file (not a folder of Parquet parts, not a glob): the in-memory intake's
+            # path checks (not found, file options) and file-type errors
+            intake.check_path(self.data, encoding=encoding)
+            if suffix not in intake.TEXT_SUFFIXES and suffix not in PARQUET_EXT:
+                hint = "" if suffix not in intake.SUPPORTED else " (engine spark reads Parquet and text; use " \
+                    "--engine memory)"
+                raise DataFileError(f"{self.data}: unsupported file type {suffix!r}; expected one of "
+                                    f"{', '.join(intake.SUPPORTED)}{hint}")
+            if suffix in intake.TEXT_SUFFIXES:
+                from .textfile import TextFile
 
-            # the in-memory intake's encoding, delimiter and header rules (its errors too)
-            self.texts.append(TextFile(self.data))
+                # the in-memory intake's encoding, delimiter and header rules (their errors too);
+                # Spark's reader would replace bytes that are not UTF-8, so they are checked first
+                tf = TextFile(self.data, encoding=encoding)
+                self.texts.append(tf)
+                tf.check_decodable()
+        elif is_path and os.path.isdir(self.data) and not any(
+                not f.startswith((".", "_")) for _, _, fs in os.walk(self.data) for f in fs):
+            intake.check_path(self.data)      # a folder without data files: the in-memory intake's error
+        elif encoding is not None:
+            raise OptionError("encoding: applies to one local text file with engine spark; leave it out")
         try:
             if self.texts:
                 from pyspark.sql.types import StringType, StructField, StructType
@@ -86,20 +115,29 @@ class SparkBackend:
                 df = (self.spark.read.schema(schema).option("header", "true").option("sep", tf.delimiter)
                       .option("quote", '"').option("escape", '"').option("encoding", "UTF-8")
                       .option("multiLine", "true" if multi else "false").option("mode", "PERMISSIVE")
-                      .csv(tf.read_path))
+                      .csv(hadoop_literal(tf.read_path)))
                 self.kind = "csv"
-            elif isinstance(self.data, str) and (os.path.exists(self.data) or any(c in self.data for c in "*?/")):
-                if low.endswith((".csv", ".tsv", ".txt")):
-                    sep = "\t" if low.endswith(".tsv") else ","
+            elif is_path:
+                lit = hadoop_literal(self.data) if os.path.isfile(self.data) else self.data
+                if suffix in intake.TEXT_SUFFIXES:
+                    sep = "\t" if suffix == ".tsv" else ","
                     self.delimiter = sep
-                    df = self.spark.read.option("header", "true").option("sep", sep).csv(self.data)
+                    df = self.spark.read.option("header", "true").option("sep", sep).csv(lit)
                     self.kind = "csv"
                 else:
-                    df = self.spark.read.parquet(self.data)
+                    try:
+                        df = self.spark.read.parquet(lit)
+                    except Exception as e:  # noqa: BLE001
+                        if not os.path.isfile(self.data):
+                            raise
+                        first = " ".join(str(e).split())[:200]
+                        raise DataFileError(f"{self.data}: cannot be read as a Parquet file ({first})") from None
                     self.kind = "parquet"
             else:
                 df = self.spark.table(str(self.data))
                 self.kind = "table"
+        except AuditInputError:
+            raise
         except Exception as e:  # noqa: BLE001
             msg = " ".join(str(e).split())[:300]
             raise AuditInputError(f"engine spark: cannot read {self.data!r} ({msg}); expected a table name or a "
