@@ -21,6 +21,7 @@ References
 
 from __future__ import annotations
 
+import contextlib
 import math
 from dataclasses import dataclass
 
@@ -42,9 +43,23 @@ __all__ = [
     "type3_main_wald",
     "type3_main_rdiag",
     "contrast_matrix",
+    "type3_contrast",
+    "Type3Contrast",
+    "dense_contrast",
+    "structured_ss",
+    "structured_rdiag",
+    "structured_ss_rdiag",
+    "structured_restricted_fit",
+    "structured_restricted_leverage",
+    "interaction_traces",
+    "check_dense_budget",
+    "DENSE_BUDGET",
     "partial_eta_sq_ci",
+    "partial_eta_sq_interval",
     "ncf_cdf",
+    "ncf_tail",
     "ncf_cdf_mixture",
+    "ncf_tail_asymptotic",
     "ZERO_SS_RTOL",
 ]
 
@@ -189,6 +204,25 @@ def weighted_ls_residual(X: np.ndarray, w: np.ndarray, target: np.ndarray) -> tu
     return out, int(rank)
 
 
+_BLAS = None
+
+
+def one_blas_thread():
+    """Context in which BLAS/LAPACK run on one thread (``threadpoolctl`` when it is
+    installed, else a no-op).  The structured solver's batched k x k inverses and
+    products are small: on a busy machine a threaded BLAS spends most of their time
+    waiting (149 x 149 inverses measured 1.3 ms on one thread, 11-60 ms on two with
+    the cores shared), so these paths ask for one thread."""
+    global _BLAS
+    try:
+        from threadpoolctl import ThreadpoolController
+    except ImportError:                       # optional: the numbers are the same without it
+        return contextlib.nullcontext()
+    if _BLAS is None:
+        _BLAS = ThreadpoolController()
+    return _BLAS.limit(limits=1, user_api="blas")
+
+
 class _AdditiveSystem:
     """The normal equations of the additive model A + B on a J x K grid of cells
     with weights n (0 for an empty cell), reduced by eliminating the larger
@@ -230,8 +264,9 @@ class _AdditiveSystem:
         self.rank = int(ia.size + ib.size)
         self.Da = na[ia]
         self.Nm = n[np.ix_(ia, ib)]
-        S = np.diag(nb[ib]) - self.Nm.T @ (self.Nm / self.Da[:, None])
-        self.Si = np.linalg.inv(S) if ib.size else np.zeros((0, 0))
+        with one_blas_thread():
+            S = np.diag(nb[ib]) - self.Nm.T @ (self.Nm / self.Da[:, None])
+            self.Si = np.linalg.inv(S) if ib.size else np.zeros((0, 0))
 
     def residual(self, v: np.ndarray) -> np.ndarray:
         """v - fit of v (in this system's orientation), 0 on empty cells; v may
@@ -361,6 +396,11 @@ def additive_wls_filled(w: np.ndarray, t: np.ndarray, *, leverage: bool = False)
     refinement.  Returns the residual R (..., J, K) and, with ``leverage``, the
     leverages g = x' (X' W X)^-1 x (..., J, K) (None otherwise).
     """
+    with one_blas_thread():
+        return _additive_wls_filled(w, t, leverage)
+
+
+def _additive_wls_filled(w, t, leverage):
     w = np.asarray(w, dtype=float)
     t = np.asarray(t, dtype=float)
     swap = w.shape[-2] < w.shape[-1]
@@ -372,24 +412,29 @@ def additive_wls_filled(w: np.ndarray, t: np.ndarray, *, leverage: bool = False)
     Da = w.sum(axis=-1)                                       # (..., J)
     Nm = w[..., :k]                                           # (..., J, k)
     a = Nm / Da[..., None]
-    S = -np.einsum("...jk,...jl->...kl", Nm, a)
+    S = -(np.swapaxes(Nm, -1, -2) @ a)                        # matmul: BLAS, not an einsum loop
     idx = np.arange(k)
     S[..., idx, idx] += w.sum(axis=-2)[..., :k]
-    Si = np.linalg.inv(S) if k else np.zeros(shape[:-2] + (0, 0))
+    Si = (np.linalg.inv(S) if k else np.zeros(shape[:-2] + (0, 0))) if leverage else None
 
     def residual(v):
         wv = w * v
         ra, rb = wv.sum(axis=-1), wv.sum(axis=-2)[..., :k]
-        rhs = rb - np.einsum("...j,...jk->...k", ra / Da, Nm)
-        beta_b = np.einsum("...kl,...l->...k", Si, rhs)
-        alpha = (ra - np.einsum("...jk,...k->...j", Nm, beta_b)) / Da
+        rhs = rb - ((ra / Da)[..., None, :] @ Nm)[..., 0, :]
+        if not k:
+            beta_b = rhs
+        elif Si is not None:
+            beta_b = (Si @ rhs[..., None])[..., 0]
+        else:
+            beta_b = np.linalg.solve(S, rhs[..., None])[..., 0]
+        alpha = (ra - (Nm @ beta_b[..., None])[..., 0]) / Da
         beta = np.concatenate([beta_b, np.zeros(beta_b.shape[:-1] + (1,))], axis=-1)
         return v - alpha[..., :, None] - beta[..., None, :]
 
     R = residual(residual(np.broadcast_to(t, shape)))
     g = None
     if leverage:
-        aS = np.einsum("...jk,...kl->...jl", a, Si)           # (..., J, k)
+        aS = a @ Si                                           # (..., J, k)
         q = np.sum(aS * a, axis=-1)                           # (..., J)
         g = (1.0 / Da + q)[..., None] + np.zeros(shape)
         g[..., :k] += np.diagonal(Si, axis1=-2, axis2=-1)[..., None, :] - 2.0 * aS
@@ -520,6 +565,216 @@ def type3_contrasts(J: int, K: int) -> dict[str, np.ndarray]:
     }
 
 
+#: a dense array in the number of cells (an (J-1)(K-1) x JK contrast matrix, a JK x JK
+#: projection, an m x m basis) larger than this many bytes is refused with
+#: :class:`audit.errors.DesignTooLargeError` instead of being allocated; every default
+#: path of a full grid has a structured form and never asks for one
+DENSE_BUDGET = 256 * 2**20
+
+
+def check_dense_budget(nbytes: float, *, what: str, J: int, K: int | None, skip: str) -> None:
+    """Refuse an allocation of ``nbytes`` that grows faster than the number of cells.
+
+    Raises :class:`audit.errors.DesignTooLargeError` (one line: the design size,
+    the stage, the bytes it would take and ``skip``, the option that avoids the
+    stage) when ``nbytes`` exceeds :data:`DENSE_BUDGET`.  ``K`` None: ``J`` is the number
+    of cells."""
+    if nbytes > DENSE_BUDGET:
+        from .errors import DesignTooLargeError
+
+        size = f"a design with {J:,} cells" if K is None else f"a {J} x {K} design ({J * K:,} cells)"
+        raise DesignTooLargeError(
+            f"design too large for {what}: {size} would need "
+            f"{nbytes / 2**20:,.0f} MB for a dense matrix in the number of cells (budget "
+            f"{DENSE_BUDGET // 2**20} MB); {skip}")
+
+
+def type3_contrast(J: int, K: int, effect: str, *, skip: str = "this stage has no structured form") -> np.ndarray:
+    """The dense Type III contrast matrix of one effect (``type3_contrasts(J, K)[effect]``),
+    after the memory budget check (:func:`check_dense_budget`)."""
+    r = {"A": J - 1, "B": K - 1, "AB": (J - 1) * (K - 1)}[effect]
+    check_dense_budget(8.0 * r * J * K, what=f"the dense Type III contrast of {effect}", J=J, K=K, skip=skip)
+    CJ, CK = contrast_matrix(J), contrast_matrix(K)
+    if effect == "A":
+        return np.repeat(CJ, K, axis=1) * (np.ones(1) / K)
+    if effect == "B":
+        return np.tile(CK * (np.ones(1) / J), (1, J))
+    return (CJ[:, None, :, None] * CK[None, :, None, :]).reshape(r, J * K)
+
+
+class Type3Contrast:
+    """The Type III contrast C of one effect on a full J x K grid, kept by its
+    structure (``shape`` (r, J*K) as the matrix has) instead of as r x JK numbers.
+
+    Consumers that have a structured form use ``J``, ``K``, ``effect`` (the Wald
+    forms of :mod:`audit.methods.wald`, the resampling statistics, the size check);
+    :meth:`dense` (also ``numpy.asarray``) builds the matrix after the memory budget
+    check, for the few paths that need it (small designs keep the dense numbers bit
+    for bit)."""
+
+    __slots__ = ("J", "K", "effect", "shape", "_dense")
+    ndim = 2
+
+    def __init__(self, J: int, K: int, effect: str):
+        self.J, self.K, self.effect = int(J), int(K), effect
+        r = {"A": J - 1, "B": K - 1, "AB": (J - 1) * (K - 1)}[effect]
+        self.shape = (r, self.J * self.K)
+        self._dense = None
+
+    def dense(self, skip: str = "this stage has no structured form") -> np.ndarray:
+        if self._dense is None:
+            self._dense = type3_contrast(self.J, self.K, self.effect, skip=skip)
+        return self._dense
+
+    def __array__(self, dtype=None, copy=None):
+        d = self.dense()
+        return d if dtype is None else d.astype(dtype, copy=False)
+
+    def __repr__(self) -> str:
+        return f"Type3Contrast(J={self.J}, K={self.K}, effect={self.effect!r})"
+
+
+def dense_contrast(C, skip: str = "this stage has no structured form") -> np.ndarray:
+    """C as a dense float array (a :class:`Type3Contrast` after the budget check)."""
+    if isinstance(C, Type3Contrast):
+        return C.dense(skip)
+    return np.asarray(C, dtype=float)
+
+
+def structured_ss(C: Type3Contrast, means: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """(C ybar)' (C V C')^-1 (C ybar), V = diag(v) > 0, for a Type III contrast of a full
+    grid, batched over leading axes of ``means`` / ``v`` (..., J*K): a main effect by
+    :func:`type3_main_wald`, the interaction as the residual SS of the additive model
+    fitted with weights 1/v (C_AB spans the complement of the additive columns, so
+    C'(C V C')^-1 C = V^-1 - V^-1 X (X' V^-1 X)^-1 X' V^-1; common practice)."""
+    J, K = C.J, C.K
+    means = np.asarray(means, dtype=float)
+    v = np.asarray(v, dtype=float)
+    if C.effect != "AB":
+        return type3_main_wald(means, v, J, K, C.effect)
+    w = 1.0 / v
+    R, _ = additive_wls_filled(w.reshape(w.shape[:-1] + (J, K)), means.reshape(means.shape[:-1] + (J, K)))
+    R = R.reshape(R.shape[:-2] + (J * K,))
+    return np.sum(w * R * R, axis=-1)
+
+
+def structured_rdiag(C: Type3Contrast, v: np.ndarray) -> np.ndarray:
+    """diag R, R = V C' (C V C')^-1 C, for a Type III contrast of a full grid (v > 0,
+    batched (..., J*K)): :func:`type3_main_rdiag` for a main effect, 1 - g / v (g the
+    leverages of the additive fit with weights 1/v) for the interaction."""
+    J, K = C.J, C.K
+    v = np.asarray(v, dtype=float)
+    if C.effect != "AB":
+        return type3_main_rdiag(v, J, K, C.effect)
+    w = 1.0 / v
+    _, g = additive_wls_filled(w.reshape(w.shape[:-1] + (J, K)), np.zeros(v.shape[:-1] + (J, K)), leverage=True)
+    return 1.0 - w * g.reshape(g.shape[:-2] + (J * K,))
+
+
+def structured_ss_rdiag(C: Type3Contrast, means: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`structured_ss` and :func:`structured_rdiag` together (the interaction's
+    additive fit solved once, with its leverages)."""
+    if C.effect != "AB":
+        return structured_ss(C, means, v), structured_rdiag(C, v)
+    J, K = C.J, C.K
+    means = np.asarray(means, dtype=float)
+    w = 1.0 / np.asarray(v, dtype=float)
+    R, g = additive_wls_filled(w.reshape(w.shape[:-1] + (J, K)), means.reshape(means.shape[:-1] + (J, K)),
+                               leverage=True)
+    R = R.reshape(R.shape[:-2] + (J * K,))
+    return np.sum(w * R * R, axis=-1), 1.0 - w * g.reshape(g.shape[:-2] + (J * K,))
+
+
+def structured_restricted_fit(C: Type3Contrast, means: np.ndarray, counts: np.ndarray) -> np.ndarray:
+    """Weighted LS fit of the cell means (m,) under C mu = 0, weights n (full grid):
+    mu_r = ybar - D C' (C D C')^-1 C ybar, D = diag(1/n), in O(JK min(J, K)).
+
+    Interaction: the additive model's fit.  Main effect A: C_A' (C_A D C_A')^-1 C_A =
+    G kron 1 1' / K^2 with G = W^-1 - W^-1 1 1' W^-1 / s (w_j = sum_k d_jk / K^2,
+    s = sum 1/w; :func:`type3_main_wald`), so (D P ybar)_jk = d_jk (mbar_j - m*) / (w_j K)."""
+    J, K = C.J, C.K
+    means = np.asarray(means, dtype=float)
+    n = np.asarray(counts, dtype=float)
+    if C.effect == "AB":
+        R, _ = additive_wls_filled(n.reshape(J, K), means.reshape(J, K))
+        return means - R.ravel()
+    d = 1.0 / n
+    w, L = _marginal_parts(d, J, K, C.effect)
+    mm = means.reshape(J, K)
+    mbar = mm.mean(axis=1) if C.effect == "A" else mm.mean(axis=0)
+    iw = 1.0 / w
+    centre = np.sum(mbar * iw) / np.sum(iw)
+    g = (mbar - centre) * iw / L
+    corr = d.reshape(J, K) * (g[:, None] if C.effect == "A" else g[None, :])
+    return means - corr.ravel()
+
+
+def structured_restricted_leverage(C: Type3Contrast, counts: np.ndarray) -> np.ndarray:
+    """Observation leverage of each cell under the restricted model {C mu = 0}, weights n
+    (full grid): h = (1 - diag R) / n with R = D C'(C D C')^-1 C, D = diag(1/n) (the
+    restricted fit's cell-level hat diagonal over n); the additive leverage for the
+    interaction."""
+    n = np.asarray(counts, dtype=float)
+    return (1.0 - structured_rdiag(C, 1.0 / n)) / n
+
+
+def interaction_traces(n: np.ndarray, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """tr(P T) and tr((P T)^2) for the interaction of a full J x K grid, P = C' (C D C')^-1 C
+    (C = C_AB, D = diag(1/n)), T = diag(t), batched over leading axes of ``t`` (..., J, K);
+    no JK x JK or (J-1)(K-1)-row matrix.
+
+    C_AB spans the complement of the additive columns X, so P = N - N H N with N = diag(n),
+    H = X M^-1 X', M = X' N X (the additive model's normal equations, J + K - 1 unknowns).
+    With g = diag H (the additive leverages per unit weight) and U = diag(n^2 t):
+
+        tr(P T)     = sum n t - sum n^2 t g
+        tr((P T)^2) = sum n^2 t^2 - 2 sum n^3 t^2 g + tr((M^-1 G)^2),  G = X' U X.
+
+    In dummy coding (every level of the larger factor, the other's levels but its last)
+    M^-1 = E + Y S^-1 Y' (E = diag(1/n_j., 0), Y = [-N_m / n_j. ; I], S the Schur
+    complement) and G = diag + [[0, U_m], [U_m', 0]], so M^-1 G is a diagonal plus a
+    rank-2k product (k = min(J, K) - 1) and its squared trace needs only k x k and
+    J x k products: O(J K min(J, K)) per t."""
+    with one_blas_thread():
+        return _interaction_traces(n, t)
+
+
+def _interaction_traces(n, t):
+    n = np.asarray(n, dtype=float)
+    t = np.asarray(t, dtype=float)
+    if n.shape[0] < n.shape[1]:                  # the diagonal block takes the larger factor
+        n, t = n.T, np.swapaxes(t, -1, -2)
+    J, K = n.shape
+    k = K - 1
+    _, g = additive_wls_filled(n, np.zeros_like(n), leverage=True)
+    nt = n * t
+    tr1 = np.sum(nt, axis=(-2, -1)) - np.sum(nt * n * g, axis=(-2, -1))
+    base = np.sum(nt * nt, axis=(-2, -1)) - 2.0 * np.sum(nt * nt * n * g, axis=(-2, -1))
+    Da = n.sum(axis=1)
+    Nm = n[:, :k]
+    Ya = -Nm / Da[:, None]                                   # (J, k)
+    S = np.diag(n.sum(axis=0)[:k]) + Nm.T @ Ya
+    Si = np.linalg.inv(S) if k else np.zeros((0, 0))
+    U = n * nt                                               # n^2 t
+    Ua = U.sum(axis=-1)                                      # (..., J)
+    Ub = U.sum(axis=-2)[..., :k]                             # (..., k)
+    Um = U[..., :k]                                          # (..., J, k)
+    # Y' G = [Ya' diag(Ua) + Um',  Ya' Um + diag(Ub)]  (k x (J + k)); W = S^-1 Y' G
+    YGa = Ya.T * Ua[..., None, :] + np.swapaxes(Um, -1, -2)          # (..., k, J)
+    YGb = np.einsum("jk,...jl->...kl", Ya, Um)                       # (..., k, k)
+    idx = np.arange(k)
+    YGb[..., idx, idx] += Ub
+    Wa = Si @ YGa                                                    # (..., k, J)
+    Wb = Si @ YGb                                                    # (..., k, k)
+    delta = Ua / Da                                                  # (..., J)
+    cross = np.einsum("jk,...kj->...j", Ya, Wa)                      # Y[i] . W[:, i], i < J
+    Bm = Wa @ (Um / Da[:, None])                                     # (..., k, k)
+    Cm = Wa @ Ya + Wb
+    tr_mg2 = (np.sum(delta * delta, axis=-1) + 2.0 * np.sum(delta * cross, axis=-1)
+              + 2.0 * np.trace(Bm, axis1=-2, axis2=-1) + np.sum(Cm * np.swapaxes(Cm, -1, -2), axis=(-2, -1)))
+    return tr1, base + tr_mg2
+
+
 #: an SS at or below this fraction of the uncorrected total SS (sum of the
 #: squared responses about the intake offset) is rounding noise: each value
 #: carries a rounding error of at most eps |y|, so any SS formed from exactly
@@ -529,12 +784,102 @@ def type3_contrasts(J: int, K: int) -> dict[str, np.ndarray]:
 #: variation within cells".
 ZERO_SS_RTOL = (1e3 * np.finfo(float).eps) ** 2
 
+#: scipy.stats.ncf (Boost's noncentral beta) is called only inside this box of
+#: arguments (checked BEFORE the call).  Outside it scipy returns NaN or numbers
+#: outside [0, 1] (ncf.sf(3, 2, 1e20, 10) = 15.4), takes up to a second a call
+#: (noncentralities of 1e12 and more), or aborts the whole process from C++
+#: (ncf.sf(6.0e17, 1, 4e15, 6.0e17): a std::out_of_range raised while Boost formats
+#: its "series did not converge" message), which no Python code can catch.
+#: Probed on a grid (df1 1-200, df2 5-1e18, lambda to 1e13, F from 1e-3 to 1e3
+#: times the numerator's centre): inside the box every call is fast and the only
+#: failures are NaN, which the fallbacks below catch.
+NCF_SCIPY_MAX_LAMBDA = 1e6
+NCF_SCIPY_MAX_DF = 1e9
+NCF_SCIPY_MAX_F = 1e12
+#: above this df1 + lambda the noncentral chi-square is taken from Sankaran's
+#: normal approximation (its error is below 1e-8 here, 7e-11 at 1e6; Sankaran
+#: 1963, Biometrika 50, 199-204, from memory), below it from scipy's ncx2
+_SANKARAN_MIN = 1e5
+#: above this many df the denominator chi-square is taken from the Wilson-Hilferty
+#: cube-root normal form (error about 1e-8 at 1e6 df and falling; scipy's chi2
+#: loses accuracy beyond about 1e7 df)
+_WH_MIN_DF = 1e6
+
 #: 1 - cdf is used where the noncentral F cdf is not a number; beyond this many
 #: error df, or where neither is a number, the cdf is the expectation of the
 #: noncentral chi-square cdf over the denominator chi-square (quadrature)
 _NCF_QUAD_PANELS = np.array([0.0, 1e-12, 1e-8, 1e-5, 1e-3, 0.02, 0.2, 0.5, 0.8, 0.98,
                              1 - 1e-3, 1 - 1e-5, 1 - 1e-8, 1 - 1e-12, 1.0])
 _NCF_QUAD_NODES = 32
+
+#: how the noncentral F was evaluated (:func:`ncf_tail`)
+NCF_ROUTE_SCIPY = "noncentral F"
+NCF_ROUTE_MIXTURE = "noncentral F (chi-square mixture by quadrature)"
+NCF_ROUTE_APPROX = "noncentral F (large-argument normal approximations, Sankaran / Wilson-Hilferty)"
+
+
+def _quad_nodes():
+    x, w = np.polynomial.legendre.leggauss(_NCF_QUAD_NODES)
+    a, b = _NCF_QUAD_PANELS[:-1, None], _NCF_QUAD_PANELS[1:, None]
+    return (a + (b - a) * (x + 1.0) / 2.0).ravel(), ((b - a) / 2.0 * w).ravel()
+
+
+def _in_scipy_box(F: float, df1: float, df2: float, lam: float) -> bool:
+    return (lam <= NCF_SCIPY_MAX_LAMBDA and df1 <= NCF_SCIPY_MAX_DF and math.isfinite(df2)
+            and df2 <= NCF_SCIPY_MAX_DF and F <= NCF_SCIPY_MAX_F)
+
+
+def _prob_or_nan(v) -> float:
+    v = float(v)
+    return v if math.isfinite(v) and 0.0 <= v <= 1.0 else math.nan
+
+
+def ncf_tail(F: float, df1: float, df2: float, lam: float, *, upper: bool = False) -> tuple[float, str | None]:
+    """P(F' <= F) (``upper``: P(F' > F)) for the noncentral F(df1, df2, lam) and
+    the route used; (NaN, None) when the arguments are not numbers in range or
+    every route fails.  Never raises on numbers and never calls scipy outside
+    the box where it is safe (:data:`NCF_SCIPY_MAX_LAMBDA`, ...).
+
+    Inside the box: scipy's ``ncf`` (the other tail as 1 - it where a tail is
+    NaN), then the chi-square mixture (:func:`ncf_cdf_mixture`).  Outside it
+    (huge F, df or noncentrality; df2 may be infinite, the noncentral chi-square
+    limit): :func:`ncf_tail_asymptotic`.
+    """
+    from scipy import stats
+
+    try:
+        F, df1, df2, lam = float(F), float(df1), float(df2), float(lam)
+    except (TypeError, ValueError, OverflowError):
+        return math.nan, None
+    if not (math.isfinite(df1) and df1 > 0 and df2 > 0 and not math.isnan(df2) and math.isfinite(lam)
+            and lam >= 0 and not math.isnan(F)):
+        return math.nan, None
+    if F <= 0:
+        return (1.0 if upper else 0.0), NCF_ROUTE_SCIPY
+    if math.isinf(F):
+        return (0.0 if upper else 1.0), NCF_ROUTE_SCIPY
+    if _in_scipy_box(F, df1, df2, lam):
+        first, other = ("sf", "cdf") if upper else ("cdf", "sf")
+        with np.errstate(all="ignore"):
+            try:
+                if lam <= 0:
+                    c = _prob_or_nan(getattr(stats.f, first)(F, df1, df2))
+                    if math.isfinite(c):
+                        return c, NCF_ROUTE_SCIPY
+                c = _prob_or_nan(getattr(stats.ncf, first)(F, df1, df2, lam))
+                if math.isfinite(c):
+                    return c, NCF_ROUTE_SCIPY
+                c = _prob_or_nan(1.0 - float(getattr(stats.ncf, other)(F, df1, df2, lam)))
+                if math.isfinite(c):
+                    return c, NCF_ROUTE_SCIPY
+            except (ArithmeticError, ValueError):
+                pass
+        c = ncf_cdf_mixture(F, df1, df2, lam)
+        if math.isfinite(c):
+            return (1.0 - c if upper else c), NCF_ROUTE_MIXTURE
+        return math.nan, None
+    c = ncf_tail_asymptotic(F, df1, df2, lam, upper=upper)
+    return (c, NCF_ROUTE_APPROX) if math.isfinite(c) else (math.nan, None)
 
 
 def ncf_cdf(F: float, df1: float, df2: float, lam: float) -> float:
@@ -544,94 +889,221 @@ def ncf_cdf(F: float, df1: float, df2: float, lam: float) -> float:
     F = 300, df1 = 15, df2 = 1e5, lam = 9000); then 1 - ncf.sf is used, and
     where that fails too, the defining mixture
     P(F' <= F) = E[ P(chi2'(df1, lam) <= F df1 X / df2) ], X ~ chi2(df2),
-    by Gauss-Legendre quadrature over the probability scale of X.
+    by Gauss-Legendre quadrature over the probability scale of X.  Outside the
+    box where scipy is safe, :func:`ncf_tail_asymptotic` (see :func:`ncf_tail`).
     Returns NaN only if every route fails.
     """
-    from scipy import stats
-
-    with np.errstate(all="ignore"):
-        if lam <= 0:
-            c = float(stats.f.cdf(F, df1, df2))
-            if math.isfinite(c):
-                return c
-        c = float(stats.ncf.cdf(F, df1, df2, lam))
-        if math.isfinite(c) and 0.0 <= c <= 1.0:
-            return c
-        c = 1.0 - float(stats.ncf.sf(F, df1, df2, lam))
-        if math.isfinite(c) and 0.0 <= c <= 1.0:
-            return c
-        return ncf_cdf_mixture(F, df1, df2, lam)
+    return ncf_tail(F, df1, df2, lam)[0]
 
 
 def ncf_cdf_mixture(F: float, df1: float, df2: float, lam: float) -> float:
     """P(F' <= F) as E[ncx2.cdf(F df1 X / df2; df1, lam)], X ~ chi2(df2), by
     Gauss-Legendre quadrature on 14 panels of u = P(X <= x), dense in the tails
     (the definition of the noncentral F as a ratio of independent chi-squares;
-    agrees with scipy.stats.ncf.cdf to about 1e-9 where that is defined)."""
+    agrees with scipy.stats.ncf.cdf to about 1e-9 where that is defined).
+    Meant for the box of :func:`ncf_tail` (lam up to 1e6); NaN when a value is
+    not a number."""
     from scipy import stats
 
-    x, w = np.polynomial.legendre.leggauss(_NCF_QUAD_NODES)
-    a, b = _NCF_QUAD_PANELS[:-1, None], _NCF_QUAD_PANELS[1:, None]
-    u = (a + (b - a) * (x + 1.0) / 2.0).ravel()
-    ww = ((b - a) / 2.0 * w).ravel()
-    with np.errstate(all="ignore"):
-        X = stats.chi2.ppf(u, df2) / df2
-        v = stats.ncx2.cdf(F * df1 * X, df1, lam) if lam > 0 else stats.chi2.cdf(F * df1 * X, df1)
+    u, ww = _quad_nodes()
+    try:
+        with np.errstate(all="ignore"):
+            X = stats.chi2.ppf(u, df2) / df2
+            v = _ncx2_cdf(F * df1 * X, df1, lam)
+    except (ArithmeticError, ValueError):
+        return float("nan")
     ok = np.isfinite(v)
     if not ok.all():
         return float("nan")
     return float(np.clip(np.sum(ww * v), 0.0, 1.0))
 
 
-#: largest noncentrality searched (eta^2 = 1 - (df1 + df2 + 1) / lam beyond it)
-_LAMBDA_MAX = 1e15
+def _ncx2_cdf(x: np.ndarray, k: float, lam: float, upper: bool = False) -> np.ndarray:
+    """scipy's noncentral (or central) chi-square tail, with arguments far in the
+    upper tail (where scipy's ncx2.sf overflows inside Boost's tgamma) answered
+    as 1 / 0 without a call: beyond k + lam + 1000 SD + 1000 the upper tail is
+    below 1e-300."""
+    from scipy import stats
+
+    x = np.asarray(x, dtype=float)
+    far = x > k + lam + 1000.0 * math.sqrt(2.0 * (k + 2.0 * lam)) + 1000.0
+    xs = np.where(far, k + lam, x)
+    with np.errstate(all="ignore"):
+        if upper:
+            v = stats.ncx2.sf(xs, k, lam) if lam > 0 else stats.chi2.sf(xs, k)
+        else:
+            v = stats.ncx2.cdf(xs, k, lam) if lam > 0 else stats.chi2.cdf(xs, k)
+    return np.where(far, 0.0 if upper else 1.0, v)
 
 
-def partial_eta_sq_ci(F: float, df1: int, df2: int, *, level: float = 0.95) -> tuple[float, float] | None:
-    """Confidence interval for partial eta^2 by inverting the noncentral F.
+def _sankaran(k: float, lam: float):
+    """(h, mu - 1, sigma): ((chi2'(k, lam) / (k + lam))^h - mu) / sigma is about
+    standard normal (Sankaran 1963; from memory, checked against scipy's ncx2 in
+    tests/test_ncf_guard.py)."""
+    kl, k2 = k + lam, k + 2.0 * lam
+    h = 1.0 - (2.0 / 3.0) * kl * (k + 3.0 * lam) / (k2 * k2)
+    p = k2 / (kl * kl)
+    m = (h - 1.0) * (1.0 - 3.0 * h)
+    dmu = h * p * (h - 1.0 - 0.5 * (2.0 - h) * m * p)
+    sig = h * math.sqrt(2.0 * p) * (1.0 + 0.5 * m * p)
+    return h, dmu, sig
+
+
+def ncf_tail_asymptotic(F: float, df1: float, df2: float, lam: float, *, upper: bool = False) -> float:
+    """P(F' <= F) (``upper``: P(F' > F)) for arguments beyond scipy's safe box.
+
+    F' = (N / df1) / (X / df2), N ~ chi2'(df1, lam), X ~ chi2(df2), so F' <= F
+    exactly when log(N / (df1 + lam)) - log(X / df2) <= a, a = log(F df1 / (df1 + lam)).
+    The probability is the expectation, over the more concentrated of N / (df1 + lam)
+    and X / df2 (smaller relative SD; the other's tail is then smooth across it), of
+    the other's tail, by Gauss-Legendre quadrature on the probability scale (14
+    panels, dense in the tails).  N is taken from scipy's ncx2 when df1 + lam <=
+    1e5, else from Sankaran's normal form; X from scipy's chi2 up to 1e6 df, else
+    Wilson-Hilferty, as infinite df2 by X / df2 = 1 (the noncentral chi-square
+    limit).  Every small difference is formed as such (log1p / expm1), so the
+    result holds at any magnitude of F and lam that float64 holds.  NaN if a
+    value is not a number.
+    """
+    from scipy import special, stats
+
+    k, nu = float(df1), float(df2)
+    kl = k + lam
+    a = math.log(F) + math.log(k) - math.log(kl)
+    approx_n = kl > _SANKARAN_MIN
+    rn = math.sqrt(2.0 * (k + 2.0 * lam)) / kl
+    rx = math.sqrt(2.0 / nu) if math.isfinite(nu) else 0.0
+    wh = math.isfinite(nu) and nu > _WH_MIN_DF
+    c9 = 2.0 / (9.0 * nu) if math.isfinite(nu) else 0.0
+    u, w = _quad_nodes()
+    try:
+        with np.errstate(all="ignore"):
+            if approx_n:
+                h, dmu, sig = _sankaran(k, lam)
+            if rx == 0.0 or rx <= rn or not approx_n:
+                # over X: P(log(N / kl) <= a + lx)
+                if rx == 0.0:
+                    lx, w = np.zeros(1), np.ones(1)
+                elif wh:
+                    lx = 3.0 * np.log1p(-c9 + special.ndtri(u) * math.sqrt(c9))
+                else:
+                    lx = np.log(stats.chi2.ppf(u, nu) / nu)
+                t = a + lx
+                if approx_n:
+                    z = (np.expm1(h * t) - dmu) / sig
+                    v = special.ndtr(-z) if upper else special.ndtr(z)
+                else:
+                    v = _ncx2_cdf(np.exp(math.log(F) + math.log(k) + lx), k, lam, upper)
+            else:
+                # over N: P(log(X / nu) >= log(N / kl) - a)
+                ln = np.log1p(dmu + sig * special.ndtri(u)) / h
+                t = ln - a
+                if wh:
+                    zx = (np.expm1(t / 3.0) + c9) / math.sqrt(c9)
+                    v = special.ndtr(zx) if upper else special.ndtr(-zx)
+                else:
+                    xq = nu * np.exp(t)
+                    v = stats.chi2.cdf(xq, nu) if upper else stats.chi2.sf(xq, nu)
+            v = np.asarray(v, dtype=float)
+    except (ArithmeticError, ValueError):
+        return math.nan
+    if not np.isfinite(v).all():
+        return math.nan
+    return float(np.clip(np.sum(w * v), 0.0, 1.0))
+
+
+#: largest noncentrality searched (about the float64 range; eta^2 is then 1 to
+#: double precision)
+_LAMBDA_MAX = 1e300
+#: the bracket for a bound is doubled at most this many times (the upper bound
+#: exceeds 2 F df1 by the reciprocal of a small quantile of chi2(df2) / df2: a
+#: factor of about 1e3 for df2 = 1, 2^10)
+_CI_MAX_DOUBLINGS = 200
+#: each bound's root search stops after this many cdf evaluations
+_CI_MAX_ITER = 100
+#: and a whole interval after this many seconds (a safety net: each evaluation
+#: is bounded, so the limit is not reached in practice)
+CI_TIME_LIMIT = 5.0
+
+
+def partial_eta_sq_interval(F: float, df1: float, df2: float, *, level: float = 0.95
+                            ) -> tuple[tuple[float, float] | None, str | None]:
+    """Confidence interval for partial eta^2 and a note: (interval, None), or
+    (interval, what approximation was used), or (None, why it is missing).
 
     Finds lambda_lo, lambda_hi with P(F' <= F_obs; lambda) = (1 + level)/2 and
     (1 - level)/2, then eta^2 = lambda / (lambda + df1 + df2 + 1) [3].  The cdf
-    comes from :func:`ncf_cdf` (scipy's noncentral F with fallbacks), the root
-    from a bracketing search (doubling, then Brent's method, bisection if a
-    value is not a number).  Returns None when the interval cannot be computed
-    (every cdf route failed or no bracket up to lambda = 1e15); the caller
-    states why.
+    comes from :func:`ncf_tail` (scipy's noncentral F inside its safe box, with
+    fallbacks; large-argument approximations outside it), the root from a
+    bracketing search (doubling from max(10, 2 F df1), at most
+    :data:`_CI_MAX_DOUBLINGS` times and up to lambda = 1e300, then Brent's
+    method with at most :data:`_CI_MAX_ITER` iterations), all within
+    :data:`CI_TIME_LIMIT` seconds.  Never raises on numbers.
     """
+    import time
+
     from scipy import optimize
 
-    if not (math.isfinite(F) and F >= 0 and df1 > 0 and df2 > 0):
-        return None
+    try:
+        F, df1, df2 = float(F), float(df1), float(df2)
+    except (TypeError, ValueError, OverflowError):
+        return None, "the F statistic or its df are not numbers"
+    if not (math.isfinite(F) and F >= 0 and math.isfinite(df1) and df1 > 0 and math.isfinite(df2) and df2 > 0):
+        return None, "the F statistic or its df are not finite positive numbers"
     hi_q = (1 + level) / 2
     lo_q = (1 - level) / 2
+    deadline = time.monotonic() + CI_TIME_LIMIT
+    routes: set = set()
 
     class _Fail(Exception):
         pass
 
     def cdf(lam: float) -> float:
-        c = ncf_cdf(F, df1, df2, lam)
+        if time.monotonic() > deadline:
+            raise _Fail(f"the noncentral F inversion did not finish within {CI_TIME_LIMIT:g} s")
+        c, route = ncf_tail(F, df1, df2, lam)
         if not math.isfinite(c):
-            raise _Fail
+            raise _Fail("the noncentral F could not be evaluated at these values")
+        routes.add(route)
         return c
 
     def solve(q: float) -> float:
         if cdf(0.0) <= q:
             return 0.0
-        lower, upper = 0.0, max(10.0, 2.0 * F * df1)
+        lower, upper = 0.0, min(max(10.0, 2.0 * F * df1), _LAMBDA_MAX)
+        steps = 0
         while cdf(upper) > q:
-            lower, upper = upper, upper * 2.0
-            if upper > _LAMBDA_MAX:
-                raise _Fail
+            if upper >= _LAMBDA_MAX or steps >= _CI_MAX_DOUBLINGS:
+                raise _Fail("no noncentrality up to 1e300 reaches the observed F")
+            lower, upper = upper, min(upper * 2.0, _LAMBDA_MAX)
+            steps += 1
         g = lambda lam: cdf(lam) - q  # noqa: E731
-        return float(optimize.brentq(g, lower, upper, xtol=1e-10, rtol=1e-12))
+        return float(optimize.brentq(g, lower, upper, xtol=1e-10, rtol=1e-12, maxiter=_CI_MAX_ITER))
 
     try:
         lam_lo, lam_hi = solve(hi_q), solve(lo_q)
-    except (_Fail, ValueError, RuntimeError):
-        return None
+    except _Fail as e:
+        return None, str(e)
+    except (ValueError, RuntimeError, ArithmeticError):
+        return None, "the noncentral F inversion did not converge"
     conv = lambda lam: lam / (lam + df1 + df2 + 1)  # noqa: E731
-    return (conv(lam_lo), conv(lam_hi))
+    note = None
+    if NCF_ROUTE_APPROX in routes:
+        note = ("the interval of partial eta squared uses large-argument normal approximations of the "
+                "noncentral F (Sankaran 1963; Wilson-Hilferty), as scipy's noncentral F is unreliable at "
+                "these values")
+    return (conv(lam_lo), conv(lam_hi)), note
 
+
+def partial_eta_sq_ci(F: float, df1: int, df2: int, *, level: float = 0.95) -> tuple[float, float] | None:
+    """Confidence interval for partial eta^2 by inverting the noncentral F
+    (:func:`partial_eta_sq_interval` without its note).
+
+    Finds lambda_lo, lambda_hi with P(F' <= F_obs; lambda) = (1 + level)/2 and
+    (1 - level)/2, then eta^2 = lambda / (lambda + df1 + df2 + 1) [3].  Returns
+    None when the interval cannot be computed (the caller states why, or use
+    :func:`partial_eta_sq_interval` for the reason).
+    """
+    return partial_eta_sq_interval(F, df1, df2, level=level)[0]
 
 @dataclass(frozen=True)
 class _Scale:
@@ -706,10 +1178,11 @@ def _row(effect, label, ss, df, sc: _Scale, note=None) -> AnovaRow:
     p = float(stats.f.sf(F, df, df_error))
     eta = ss / (ss + sse)
     omega = (ss - df * ms_error) / (ss + (N - df) * ms_error)
-    ci = partial_eta_sq_ci(F, df, df_error)
+    ci, ci_note = partial_eta_sq_interval(F, df, df_error)
     if ci is None:
-        notes.append("the confidence interval of partial eta squared could not be computed (the "
-                     "noncentral F could not be evaluated or inverted at these degrees of freedom)")
+        notes.append(f"the confidence interval of partial eta squared could not be computed ({ci_note})")
+    elif ci_note:
+        notes.append(ci_note)
     return AnovaRow(effect=effect, label=label, ss=ss_d, df=df, ms=ms_d, F=float(F), p=p,
                     partial_eta_sq=float(eta), partial_eta_sq_ci=ci, partial_omega_sq=float(omega),
                     note=_join(note, *notes))

@@ -23,12 +23,18 @@ __all__ = [
     "cell_moments",
     "cell_moments_scaled",
     "pow2_scale",
+    "MAX_CELL_SIZE",
     "DesignSummary",
     "cells_from_observations",
     "cells_from_summary",
     "describe_design",
     "balance_class",
 ]
+
+
+#: largest cell size a summary table may state (10^12: beyond any study, and far
+#: inside the range where counts and their sums are exact in float64 and int64)
+MAX_CELL_SIZE = 10**12
 
 
 def pow2_scale(*arrays) -> float:
@@ -381,9 +387,10 @@ def cells_from_summary(
                 f"summary table row {i + 1}: cell {a_levels[ja]} x {b_levels[kb]} appears twice; "
                 "give each cell once"
             )
-        if not (np.isfinite(nn) and nn >= 1 and float(nn).is_integer()):
+        if not (np.isfinite(nn) and 1 <= nn <= MAX_CELL_SIZE and float(nn).is_integer()):
             raise ResponseError(
-                f"summary table row {i + 1}: column {n!r} must be a whole number >= 1, found {row[n]!r}"
+                f"summary table row {i + 1}: column {n!r} must be a whole number from 1 to "
+                f"{MAX_CELL_SIZE:.0e} (MAX_CELL_SIZE), found {row[n]!r}; give the cell's number of observations"
             )
         if not np.isfinite(mm) or not np.isfinite(ss) or ss < 0:
             raise ResponseError(

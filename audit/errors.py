@@ -17,7 +17,28 @@ __all__ = [
     "OptionError",
     "OutputError",
     "ConfigError",
+    "ClaimError",
+    "DesignTooLargeError",
+    "shorten",
+    "SHOWN_TEXT",
 ]
+
+#: longest piece of user text (a claim, a name, a value) echoed in an error,
+#: a reason or a report, in characters; longer text is cut by :func:`shorten`
+SHOWN_TEXT = 100
+
+
+def shorten(text, limit: int = SHOWN_TEXT) -> str:
+    """User text made safe to echo: ``repr``-free, cut to ``limit`` characters
+    with an ellipsis and the total length ("abc... (123,456 characters)").
+
+    Every place that puts text from the user (claims, column names, level
+    names, cell values) into an error, a reason or a report goes through this,
+    so a megabyte claim or value never turns into a megabyte message."""
+    s = text if isinstance(text, str) else str(text)
+    if len(s) <= limit:
+        return s
+    return f"{s[:max(limit - 3, 1)]}... ({len(s):,} characters)"
 
 
 class AuditInputError(ValueError):
@@ -42,6 +63,19 @@ class FactorError(AuditInputError):
 
 class OptionError(AuditInputError):
     """An option has a value outside its allowed range."""
+
+
+class ClaimError(OptionError):
+    """A reported claim (e.g. "F(2, 54) = 4.21, p = .020") cannot be read: too long,
+    malformed, or a number outside what a test can report (a p with more than 20
+    significant digits, an exponent or value beyond the float range, a
+    non-finite F or df)."""
+
+
+class DesignTooLargeError(AuditInputError):
+    """A stage would allocate more memory than its budget for this design (a
+    dense matrix in the number of cells where no structured form exists).  The
+    message names the design size, the stage and the option that skips it."""
 
 
 class OutputError(AuditInputError):

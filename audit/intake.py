@@ -53,7 +53,7 @@ import numpy as np
 from .errors import AuditInputError, ColumnError, DataFileError, FactorError, OptionError, ResponseError
 
 __all__ = ["Observations", "DroppedRows", "read_table", "prepare", "load", "order_levels", "RESPONSE_NA_TOKENS",
-           "LEVEL_ORDERS"]
+           "LEVEL_ORDERS", "merge_numeric_spellings"]
 
 TEXT_SUFFIXES = {".csv", ".tsv", ".tab", ".txt", ".dat"}
 SUPPORTED = sorted(TEXT_SUFFIXES | {".xlsx", ".parquet"})
@@ -219,12 +219,12 @@ def _check_encoding(encoding):
     if encoding is None:
         return None
     if not isinstance(encoding, str) or not encoding.strip():
-        raise OptionError(f"encoding: expected a codec name such as 'latin-1' or 'utf-16', found {encoding!r}")
+        raise OptionError(f"encoding: expected a codec name such as 'latin-1' or 'utf-16', found {_q(encoding)}")
     try:
         return codecs.lookup(encoding.strip()).name
     except LookupError:
         raise OptionError(
-            f"encoding: unknown text encoding {encoding!r}; expected a codec name such as "
+            f"encoding: unknown text encoding {_q(encoding)}; expected a codec name such as "
             "'utf-8', 'latin-1', 'cp1252' or 'utf-16'"
         ) from None
 
@@ -333,7 +333,7 @@ def _header_names(values, path: str) -> list[str]:
     for i, s in enumerate(names):
         if s in seen:
             raise ColumnError(
-                f"{path}: column name {s!r} appears twice in the header (columns {seen[s] + 1} and {i + 1}); "
+                f"{path}: column name {_q(s)} appears twice in the header (columns {seen[s] + 1} and {i + 1}); "
                 "expected unique names; rename one of them"
             )
         seen[s] = i
@@ -392,7 +392,7 @@ def _read_text(path: str, suffix: str, sha: str, encoding: str | None):
 
 
 def _pick_sheet(path: str, names: list[str], sheet) -> str:
-    listing = ", ".join(f"{i + 1} {n!r}" for i, n in enumerate(names))
+    listing = ", ".join(f"{i + 1} {_q(n)}" for i, n in enumerate(names))
     if sheet is None:
         if len(names) == 1:
             return names[0]
@@ -406,7 +406,7 @@ def _pick_sheet(path: str, names: list[str], sheet) -> str:
     if not isinstance(sheet, bool) and s.isdigit() and 1 <= int(s) <= len(names):
         return names[int(s) - 1]
     raise OptionError(
-        f"sheet: no sheet {sheet!r} in {path}; expected a name or a number from 1 to {len(names)}; "
+        f"sheet: no sheet {_q(sheet)} in {path}; expected a name or a number from 1 to {len(names)}; "
         f"the sheets are {listing}"
     )
 
@@ -430,11 +430,11 @@ def _read_xlsx(path: str, sha: str, sheet):
     try:
         table = pd.read_excel(book, sheet_name=chosen, header=None, keep_default_na=False)
     except Exception as exc:
-        raise DataFileError(f"{path}: sheet {chosen!r} cannot be read ({type(exc).__name__})") from None
+        raise DataFileError(f"{path}: sheet {_q(chosen)} cannot be read ({type(exc).__name__})") from None
     finally:
         book.close()
     if table.empty:
-        raise DataFileError(f"{path}: sheet {chosen!r} is empty; expected a header row and data rows")
+        raise DataFileError(f"{path}: sheet {_q(chosen)} is empty; expected a header row and data rows")
     names_row = _header_names(table.iloc[0].tolist(), path)
     frame = table.iloc[1:].reset_index(drop=True)
     frame.columns = names_row
@@ -449,9 +449,9 @@ def check_path(path, *, sheet=None, encoding: str | None = None) -> tuple[str, s
     path = os.fspath(path)
     encoding = _check_encoding(encoding)
     if not os.path.exists(path):
-        raise DataFileError(f"data file {path!r} not found; check the path (the current folder is {os.getcwd()!r})")
+        raise DataFileError(f"data file {_q(path)} not found; check the path (the current folder is {os.getcwd()!r})")
     if os.path.isdir(path):
-        raise DataFileError(f"{path!r} is a folder; expected a data file ({', '.join(SUPPORTED)})")
+        raise DataFileError(f"{_q(path)} is a folder; expected a data file ({', '.join(SUPPORTED)})")
     suffix = os.path.splitext(path)[1].lower()
     is_text = suffix in TEXT_SUFFIXES or suffix == ""
     if sheet is not None and suffix != ".xlsx":
@@ -500,7 +500,7 @@ def read_table(path: str | os.PathLike, *, sheet=None, encoding: str | None = No
         rows = np.arange(len(frame), dtype=np.int64) + 1
         return frame, Source(path=path, sha256=sha, format="parquet"), rows
     raise DataFileError(
-        f"{path}: unsupported file type {suffix!r}; expected one of {', '.join(SUPPORTED)}"
+        f"{path}: unsupported file type {_q(suffix)}; expected one of {', '.join(SUPPORTED)}"
     )
 
 
@@ -558,15 +558,15 @@ def _respell(txt: np.ndarray, decimal: str | None) -> np.ndarray:
 def _check_factors_option(factors) -> tuple[str, str]:
     if isinstance(factors, str):
         parts = [p.strip() for p in factors.replace(",", " ").split()]
-        hint = f"; give a pair such as factors=({parts[0]!r}, {parts[1]!r})" if len(parts) == 2 else ""
+        hint = f"; give a pair such as factors=({_q(parts[0])}, {_q(parts[1])})" if len(parts) == 2 else ""
         raise OptionError(
-            f"factors: expected a pair of two column names, found the single string {factors!r}{hint}"
+            f"factors: expected a pair of two column names, found the single string {_q(factors)}{hint}"
         )
     try:
         names = tuple(factors)
     except TypeError:
         raise OptionError(
-            f"factors: expected a pair of two column names, found {type(factors).__name__} {factors!r}"
+            f"factors: expected a pair of two column names, found {type(factors).__name__} {_q(factors)}"
         ) from None
     if len(names) != 2 or not all(isinstance(n, str) for n in names):
         raise OptionError(
@@ -575,7 +575,7 @@ def _check_factors_option(factors) -> tuple[str, str]:
         )
     if names[0] == names[1]:
         raise ColumnError(
-            f"factors: both factors are the same column {names[0]!r}; name two different columns"
+            f"factors: both factors are the same column {_q(names[0])}; name two different columns"
         )
     return names[0], names[1]
 
@@ -597,11 +597,11 @@ def _check_levels_option(levels) -> dict:
         name = str(name)
         if name in out:
             raise OptionError(
-                f"--levels: column {name!r} is given twice; expected one level order per factor; "
+                f"--levels: column {_q(name)} is given twice; expected one level order per factor; "
                 "keep one --levels for it"
             )
         if isinstance(given, str) or not hasattr(given, "__iter__"):
-            raise OptionError(f"--levels {name}: expected a list of levels, found {given!r}")
+            raise OptionError(f"--levels {name}: expected a list of levels, found {_q(given)}")
         lv = [str(x).strip() for x in given]
         if any(x == "" for x in lv):
             raise OptionError(f"--levels {name}: an empty level name in {lv}; expected names between the commas")
@@ -609,7 +609,7 @@ def _check_levels_option(levels) -> dict:
         for x in lv:
             if x in seen:
                 raise OptionError(
-                    f"--levels {name}: level {x!r} is listed twice; expected each level once; remove the repeat"
+                    f"--levels {name}: level {_q(x)} is listed twice; expected each level once; remove the repeat"
                 )
             seen.add(x)
         out[name] = lv
@@ -620,8 +620,28 @@ def _number_key(s: str):
     return Decimal(s) if _NUMBER_RE.match(s) else None
 
 
-def _merge_numeric_spellings(f: str, txt: np.ndarray, given: list[str] | None, notes: list[str]) -> np.ndarray:
-    """Merge spellings of one number ('15', '15.0') when every value is numeric."""
+def merge_numeric_spellings(f: str, txt: np.ndarray, given: list[str] | None, notes: list[str]) -> np.ndarray:
+    """Merge spellings of one number ('15', '15.0') when every value is numeric.
+
+    The one rule for both modes (raw data and summary tables).
+
+    Parameters
+    ----------
+    f : str
+        The factor's column name (for the note and the error).
+    txt : ndarray of object
+        The level text of every row (None where missing).
+    given : list of str or None
+        Levels given by the user (the merged level takes a given spelling).
+    notes : list of str
+        A note is appended per merged group.
+
+    Returns
+    -------
+    ndarray
+        ``txt`` with each group of spellings replaced by one of them; raises
+        :class:`FactorError` when spellings of one number sit beside text.
+    """
     import pandas as pd
 
     codes, uniq = pd.factorize(pd.Series(txt, dtype=object), sort=False, use_na_sentinel=True)
@@ -637,8 +657,8 @@ def _merge_numeric_spellings(f: str, txt: np.ndarray, given: list[str] | None, n
     if any(k is None for k in keys):
         other = next(u for u, k in zip(uniq, keys) if k is None)
         raise FactorError(
-            f"factor {f!r}: {multi[0][0]!r} and {multi[0][1]!r} spell the same number as two levels, and the "
-            f"column also holds text ({other!r}); expected one spelling per level; make the spellings the same"
+            f"factor {_q(f)}: {_q(multi[0][0])} and {_q(multi[0][1])} spell the same number as two levels, and the "
+            f"column also holds text ({_q(other)}); expected one spelling per level; make the spellings the same"
         )
     canon = {}
     for g in multi:
@@ -646,8 +666,8 @@ def _merge_numeric_spellings(f: str, txt: np.ndarray, given: list[str] | None, n
         for u in g:
             canon[u] = target
         notes.append(
-            f"factor {f!r}: the spellings {', '.join(repr(u) for u in g)} are the same number and were "
-            f"merged into level {target!r}"
+            f"factor {_q(f)}: the spellings {', '.join(repr(u) for u in g)} are the same number and were "
+            f"merged into level {_q(target)}"
         )
     lookup = np.array([canon.get(u, u) for u in uniq] + [None], dtype=object)
     return lookup[codes]
@@ -675,6 +695,41 @@ def looks_continuous_counts(counts) -> tuple[int, int] | None:
     return len(counts), int((counts == 1).sum())
 
 
+def _refuse_repeated_header(texts, named, nb, rows, row_kind, source, cols) -> None:
+    """Stop on data rows that repeat the header (every named column holds its own
+    name), as when files with a header each are concatenated: otherwise the names
+    would be read as a factor level and a response value, and the error would blame
+    the level or the number instead."""
+    from .errors import shorten
+
+    hit = nb.copy()
+    for c in named:
+        t = texts[c]
+        hit &= np.array([v is not None and v.strip() == c for v in t], dtype=bool) if t.dtype == object \
+            else (t == c)
+    if not hit.any():
+        return
+    idx = np.flatnonzero(hit)
+    raise repeated_header_error(source.path, _lines_text(rows, idx, row_kind), int(idx.size), cols, row_kind)
+
+
+def repeated_header_error(path: str, where_all: str, count: int, cols, row_kind: str = "line") -> DataFileError:
+    """The error for data rows that repeat the header ('lines 26, 51' in ``where_all``)."""
+    from .errors import shorten
+
+    header = shorten(",".join(cols))
+    if row_kind == "line":
+        return DataFileError(
+            f"{path}: {where_all} repeat{'s' if count == 1 else ''} the header "
+            f"line ({header}) inside the data ({count} such line(s)), as when files with a header each are "
+            "concatenated; expected one header line, then data rows; fix: delete the repeated header lines "
+            "(or join the files without their headers)")
+    return DataFileError(
+        f"{path}: {where_all} repeat{'s' if count == 1 else ''} the column "
+        f"names ({header}) as data ({count} such row(s)), as when tables read with their headers are "
+        "concatenated; expected data rows only; fix: drop those rows")
+
+
 def _frame_row_ids(frame) -> tuple[np.ndarray, str]:
     import pandas as pd
 
@@ -684,13 +739,104 @@ def _frame_row_ids(frame) -> tuple[np.ndarray, str]:
     return np.arange(len(frame), dtype=np.int64), "position"
 
 
+def _q(x) -> str:
+    """User text for an error: quoted and cut to :data:`audit.errors.SHOWN_TEXT`
+    characters (names, levels, cell values; other values by their repr)."""
+    from .errors import shorten
+
+    return repr(shorten(x)) if isinstance(x, str) else shorten(repr(x))
+
+
+def _where(rows: np.ndarray, i, row_kind: str = "line") -> str:
+    """'on line 7' (a file: its line number), 'at index label 7', 'at position 7'."""
+    return {"line": "on line", "index": "at index label", "position": "at position"}.get(row_kind, "at row") + \
+        f" {rows[i]}"
+
+
+def _lines_text(rows: np.ndarray, idx, row_kind: str, most: int = 5) -> str:
+    """'lines 6, 11 and 16' (at most ``most`` shown, then 'and N more')."""
+    idx = list(idx)
+    word = {"line": "line", "index": "index label", "position": "position"}.get(row_kind, "row")
+    shown = [str(rows[i]) for i in idx[:most]]
+    more = f" and {len(idx) - most} more" if len(idx) > most else ""
+    if len(idx) == 1:
+        return f"{word} {shown[0]}"
+    return f"{word}s {', '.join(shown)}{more}"
+
+
+_UNIT_RE = re.compile(r"^\s*[-+]?(?:\d+(?:[.,]\d*)?|[.,]\d+)(?:e[-+]?\d+)?\s*[^\d\s.,+-][^\d]*$", re.I)
+_THOUSANDS_RE = re.compile(r"^\s*[-+]?\d{1,3}(?:[, ]\d{3})+(?:\.\d+)?\s*$")
+
+
+def _text_response_error(name: str, text, bad: np.ndarray, keep: np.ndarray, rows: np.ndarray,
+                         row_kind: str) -> ResponseError:
+    """The error for a response column with text in it (see :func:`text_response_error`)."""
+    idx = np.flatnonzero(bad)
+    labels = list(dict.fromkeys(str(text.iloc[j]) for j in idx[:10_000]))[:21]
+    return text_response_error(name, found=str(text.iloc[int(idx[0])]), n_bad=int(idx.size),
+                               n_keep=int(keep.sum()), labels=labels,
+                               where_first=_where(rows, int(idx[0]), row_kind),
+                               where_all=_lines_text(rows, idx, row_kind))
+
+
+def text_response_error(name: str, *, found: str, n_bad: int, n_keep: int, labels, where_first: str,
+                        where_all: str) -> ResponseError:
+    """The error for a response column with text in it, naming the cause: the whole
+    column is text (a label or category column, not the measurement), or some cells
+    carry a unit, thousands separators, a decimal comma or another word.
+
+    From the facts alone (so an engine that reads the data in SQL words it the same):
+    the first non-number ``found``, how many of the ``n_keep`` kept values are not numbers,
+    the distinct non-numbers in order of appearance (the first 21 among the first 10,000
+    suffice), and where they are ('on line 7'; 'lines 6, 11 and 16')."""
+    from .errors import shorten
+
+    shown = repr(shorten(found))
+    if n_bad == n_keep:
+        labels = list(labels)
+        if len(labels) <= 20:
+            kind = (f"{len(labels)} distinct text label(s) such as "
+                    f"{', '.join(repr(shorten(x, 30)) for x in labels[:4])}: it looks like a factor or a label column, "
+                    "not a measurement")
+        else:
+            kind = f"text such as {shown}"
+        return ResponseError(
+            f"response column {_q(name)} must be numeric but holds text: none of its {n_keep:,} values is a number "
+            f"({kind}; first {where_first}); expected the measured numbers; fix: name the numeric "
+            f"column that holds the measurements with --response (API response=)")
+    if _DEC_COMMA_RE.match(found):
+        cause, fix = "a decimal comma", "give --decimal , (API decimal=',')"
+    elif _THOUSANDS_RE.match(found):
+        cause, fix = "thousands separators", "write the numbers without separators (1234.5, not 1,234.5)"
+    elif _UNIT_RE.match(found):
+        cause, fix = "a unit or other text after the number", "keep only the number in each cell (put the unit in the column name)"
+    else:
+        cause, fix = "text that is not a number", ("correct these cells or blank them out (blank cells are "
+                                                   "dropped and counted)")
+    return ResponseError(
+        f"response column {_q(name)} must be numeric; found {shown} {where_first}: {cause} "
+        f"({n_bad:,} of {n_keep:,} value(s) are not numbers, on {where_all}); fix: {fix}")
+
+
+def where_text(first_rows, total: int, row_kind: str = "line") -> tuple[str, str]:
+    """('on line 7', 'lines 7, 9, 12, 15, 20 and 3 more'): the first rows in order (five, or all
+    when there are fewer) and how many there are in all, worded as the in-memory intake words them."""
+    shown = [int(r) for r in list(first_rows)[:5]]
+    word = {"line": "line", "index": "index label", "position": "position"}.get(row_kind, "row")
+    first = _where(np.asarray(shown), 0, row_kind)
+    if total == 1:
+        return first, f"{word} {shown[0]}"
+    more = f" and {total - 5} more" if total > 5 else ""
+    return first, f"{word}s {', '.join(map(str, shown))}{more}"
+
+
 def decimal_offset(text: str, spread: float) -> Decimal:
     """The exact decimal offset subtracted from response text: the first kept value
     rounded to the decade of the spread (raises decimal.InvalidOperation)."""
     return Decimal(text).quantize(Decimal(1).scaleb(math.floor(math.log10(spread))))
 
 
-def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.ndarray):
+def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.ndarray, row_kind: str = "line"):
     """Return (y, offset, centring sentence) for the kept rows."""
     import pandas as pd
 
@@ -699,21 +845,13 @@ def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.nd
         vals = pd.to_numeric(text.where(keep, "0"), errors="coerce").to_numpy(dtype=float)
         bad = np.isnan(vals) & keep
         if bad.any():
-            i = int(np.argmax(bad))
-            found = text.iloc[i]
-            extra = ""
-            if _DEC_COMMA_RE.match(found):
-                extra = "; it uses a decimal comma: give --decimal , (API decimal=',')"
-            raise ResponseError(
-                f"response column {name!r} must be numeric; found {found!r} at row {rows[i]}; "
-                f"fix or blank out non-numeric entries (blank cells are dropped and counted){extra}"
-            )
+            raise _text_response_error(name, text, bad, keep, rows, row_kind)
         text_kept = text[keep].to_numpy(dtype=object)
     else:
         if not pd.api.types.is_numeric_dtype(col) or pd.api.types.is_bool_dtype(col):
             i = int(np.argmax(keep))
             raise ResponseError(
-                f"response column {name!r} must be numeric; found {col.iloc[i]!r} "
+                f"response column {_q(name)} must be numeric; found {_q(col.iloc[i])} "
                 f"(type {col.dtype}) at row {rows[i]}; choose a numeric column"
             )
         vals = col.to_numpy(dtype=float, na_value=np.nan)
@@ -724,16 +862,16 @@ def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.nd
         i = int(np.flatnonzero(keep)[np.argmax(inf)])
         shown = text_kept[np.argmax(inf)] if text_kept is not None else str(float(y[np.argmax(inf)]))
         raise ResponseError(
-            f"response column {name!r} has an infinite value ({shown!r}) at row {rows[i]}; "
+            f"response column {_q(name)} has an infinite value ({_q(shown)}) at row {rows[i]}; "
             "expected finite numbers; remove or correct it"
         )
     if y.size == 0:
-        raise ResponseError(f"response column {name!r} has no non-missing values; expected numbers")
+        raise ResponseError(f"response column {_q(name)} has no non-missing values; expected numbers")
     lo, hi = float(y.min()), float(y.max())
     spread = hi - lo
     if spread == 0.0:
         raise ResponseError(
-            f"response column {name!r} is constant (every value is {y[0]!r}); "
+            f"response column {_q(name)} is constant (every value is {_q(y[0])}); "
             "an ANOVA needs variation in the response"
         )
     scale = max(abs(lo), abs(hi))
@@ -756,7 +894,7 @@ def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.nd
         )
     offset = float(np.round(y[0], -e))
     return y - offset, offset, (
-        f"response values share many leading digits; {offset!r} was subtracted in floating point "
+        f"response values share many leading digits; {_q(offset)} was subtracted in floating point "
         "(the file stores binary numbers, so digits lost before reading cannot be recovered)"
     )
 
@@ -803,7 +941,7 @@ def _text_and_missing(col) -> tuple[np.ndarray, np.ndarray]:
 def check_decimal(decimal) -> None:
     """The ``decimal=`` option: None, '.' or ','."""
     if decimal not in (None, ".", ","):
-        raise OptionError(f"decimal: expected '.' or ',', found {decimal!r}; give --decimal , for decimal commas")
+        raise OptionError(f"decimal: expected '.' or ',', found {_q(decimal)}; give --decimal , for decimal commas")
 
 
 def check_columns(cols: list[str], *, response: str, factors: tuple[str, str], levels: dict, order=None,
@@ -813,7 +951,7 @@ def check_columns(cols: list[str], *, response: str, factors: tuple[str, str], l
     seen: set[str] = set()
     for c in cols:
         if c in seen:
-            raise ColumnError(f"column name {c!r} appears twice; expected unique column names; rename one of them")
+            raise ColumnError(f"column name {_q(c)} appears twice; expected unique column names; rename one of them")
         seen.add(c)
     for role, name in (("response", response), ("factor", factors[0]), ("factor", factors[1]),
                        ("order", order), ("unit", unit)):
@@ -825,16 +963,16 @@ def check_columns(cols: list[str], *, response: str, factors: tuple[str, str], l
             if role == "factor" and len(parts) == 2 and all(p in cols for p in parts):
                 hint = f"; give two names separated by a space: --factors {parts[0]} {parts[1]}"
             raise ColumnError(
-                f"{role} column {name!r} not found; the columns are: {', '.join(cols)}{hint}"
+                f"{role} column {_q(name)} not found; the columns are: {', '.join(cols)}{hint}"
             )
     if response in factors:
-        raise ColumnError(f"response {response!r} is also named as a factor; name a different column")
+        raise ColumnError(f"response {_q(response)} is also named as a factor; name a different column")
     for key in levels:
         if key not in factors:
             what = "a column but not one of the factors" if key in cols else "not a column"
             raise OptionError(
-                f"--levels: {key!r} is {what}; expected COLUMN=L1,L2,... with COLUMN one of the factors "
-                f"{factors[0]!r} and {factors[1]!r}; fix the name before '='"
+                f"--levels: {_q(key)} is {what}; expected COLUMN=L1,L2,... with COLUMN one of the factors "
+                f"{_q(factors[0])} and {_q(factors[1])}; fix the name before '='"
             )
 
 
@@ -851,12 +989,12 @@ def decimal_from_values(vals: list[str], *, response: str, delimiter: str | None
     if commas and all(_DEC_COMMA_RE.match(v) or _NUMBER_RE.match(v) for v in vals):
         if delimiter == ";":
             notes.append(
-                f"decimal commas: the file is ';'-delimited and response values such as {commas[0]!r} "
+                f"decimal commas: the file is ';'-delimited and response values such as {_q(commas[0])} "
                 "were read with ',' as the decimal mark (give --decimal . to refuse)"
             )
             return ","
         raise ResponseError(
-            f"response column {response!r} uses decimal commas (found {commas[0]!r} at row {row_of(commas[0])}); "
+            f"response column {_q(response)} uses decimal commas (found {_q(commas[0])} at row {row_of(commas[0])}); "
             "expected a decimal point; give --decimal , (API decimal=',')"
         )
     return decimal
@@ -864,14 +1002,14 @@ def decimal_from_values(vals: list[str], *, response: str, delimiter: str | None
 
 def empty_factor_error(f: str, n: int) -> FactorError:
     return FactorError(
-        f"factor column {f!r} is empty (no value on any of the {n} data rows); "
+        f"factor column {_q(f)} is empty (no value on any of the {n} data rows); "
         "expected a level on every row; fill it in or choose another column"
     )
 
 
 def empty_response_error(response: str, n: int) -> ResponseError:
     return ResponseError(
-        f"response column {response!r} is empty (no value on any of the {n} data rows); "
+        f"response column {_q(response)} is empty (no value on any of the {n} data rows); "
         "expected numbers; choose the measured column"
     )
 
@@ -883,13 +1021,13 @@ def factor_levels(f: str, present: list[str], given: list[str] | None) -> tuple[
         absent = [lv for lv in present if lv not in given]
         if absent:
             raise FactorError(
-                f"factor {f!r}: level(s) {', '.join(repr(x) for x in absent)} occur in the data but not in "
+                f"factor {_q(f)}: level(s) {', '.join(repr(x) for x in absent)} occur in the data but not in "
                 f"--levels {f}={','.join(given)}; expected every level listed; add them"
             )
         unknown = [g for g in given if g not in present]
         if unknown:
             raise OptionError(
-                f"--levels {f}: level {unknown[0]!r} does not occur in column {f!r} (its levels are "
+                f"--levels {f}: level {_q(unknown[0])} does not occur in column {_q(f)} (its levels are "
                 f"{', '.join(repr(x) for x in present)}); fix the spelling or remove it"
             )
         return tuple(given), "given"
@@ -904,7 +1042,7 @@ def check_level_counts(f: str, lv: tuple[str, ...], n_all: int, counts, *, facto
     if len(lv) < 2:
         why = (f" after dropping rows with missing values ({n_all} level(s) before)" if n_all > len(lv) else "")
         raise FactorError(
-            f"factor {f!r} has {len(lv)} level(s) with data ({', '.join(lv) or 'none'}){why}; "
+            f"factor {_q(f)} has {len(lv)} level(s) with data ({', '.join(lv) or 'none'}){why}; "
             f"expected at least 2; choose a factor that varies{hint}"
         )
     few = [lv_ for lv_, c in zip(lv, counts) if c < 2]
@@ -912,14 +1050,14 @@ def check_level_counts(f: str, lv: tuple[str, ...], n_all: int, counts, *, facto
     if lc:
         other = factors[1] if f == factors[0] else factors[0]
         raise FactorError(
-            f"factor {f!r} looks like a measurement, not a factor ({lc[0]} distinct numbers, {lc[1]} seen "
-            f"once; level {few[0]!r} has {int(counts[lv.index(few[0])])} observation(s)); expected a few "
+            f"factor {_q(f)} looks like a measurement, not a factor ({lc[0]} distinct numbers, {lc[1]} seen "
+            f"once; level {_q(few[0])} has {int(counts[lv.index(few[0])])} observation(s)); expected a few "
             f"repeated levels; are the response and a factor swapped? try --response {f} --factors {other} "
             f"{response}"
         )
     if few:
         raise FactorError(
-            f"factor {f!r}: level {few[0]!r} has fewer than two observations in total "
+            f"factor {_q(f)}: level {_q(few[0])} has fewer than two observations in total "
             f"({int(counts[lv.index(few[0])])}); expected at least 2 per level; "
             f"merge or remove that level{hint}"
         )
@@ -930,7 +1068,7 @@ def swapped_hint_error(exc: ResponseError, c: str, lc: tuple[int, int], factors:
     """A non-numeric response error with the hint that column ``c`` looks like the measurement."""
     fac = [x for x in factors if x != c] + ([response] if c in factors else [])
     return ResponseError(
-        f"{exc}; column {c!r} looks like the measurement ({lc[0]} distinct numbers): are the response "
+        f"{exc}; column {_q(c)} looks like the measurement ({lc[0]} distinct numbers): are the response "
         f"and a factor swapped? try --response {c} --factors {' '.join(fac)}"
     )
 
@@ -995,6 +1133,7 @@ def prepare(
     nb = ~blank
     if not nb.any():
         raise DataFileError(f"{source.path}: no data rows below the header; expected one row per observation")
+    _refuse_repeated_header(texts, (response, *factors), nb, rows, row_kind, source, cols)
 
     # response: native numbers, or text with missing tokens
     ycol = frame[response]
@@ -1023,7 +1162,7 @@ def prepare(
             m = np.equal(texts[c], None) & nb
             if m[nb].all():
                 raise ColumnError(
-                    f"{role} column {c!r} is empty (no value on any of the {int(nb.sum())} data rows); "
+                    f"{role} column {_q(c)} is empty (no value on any of the {int(nb.sum())} data rows); "
                     f"expected a value on every row; fill it in or leave out --{role}"
                 )
             miss_other |= m
@@ -1035,7 +1174,7 @@ def prepare(
         below = m & ~miss_y & np.concatenate([[False], ~m[:-1] & nb[:-1]])
         if not below.any():
             return ""
-        return (f"; {int(below.sum())} row(s) have a blank {f!r} cell below a filled one (first: row "
+        return (f"; {int(below.sum())} row(s) have a blank {_q(f)} cell below a filled one (first: row "
                 f"{rows[int(np.argmax(below))]}): merged cells read as blanks below their first row; "
                 "unmerge them and fill every row")
 
@@ -1044,7 +1183,7 @@ def prepare(
             raise empty_factor_error(f, int(nb.sum()))
         h = merged_hint(f)
         if h:
-            notes.append(f"factor {f!r}: {h[2:]}")
+            notes.append(f"factor {_q(f)}: {h[2:]}")
     if miss_y[nb].all():
         raise empty_response_error(response, int(nb.sum()))
 
@@ -1052,7 +1191,7 @@ def prepare(
     level_sets = []
     how_ordered = []
     for f in factors:
-        txt = _merge_numeric_spellings(f, texts[f], levels.get(f), notes)
+        txt = merge_numeric_spellings(f, texts[f], levels.get(f), notes)
         # blank rows hold None here and are no level (they are counted apart)
         present = pd.unique(pd.Series(txt[~np.equal(txt, None)], dtype=object)).tolist()
         lv, how = factor_levels(f, present, levels.get(f))
@@ -1088,7 +1227,7 @@ def prepare(
         ycol_parse = pd.Series(np.where(np.equal(ytxt, None), "", ytxt), dtype=object)
         y_is_text = True
     try:
-        y, offset, centring = _parse_response(ycol_parse, y_is_text, response, rows, keep)
+        y, offset, centring = _parse_response(ycol_parse, y_is_text, response, rows, keep, row_kind)
     except ResponseError as exc:
         if "must be numeric" not in str(exc):
             raise
@@ -1119,7 +1258,7 @@ def prepare(
         if np.isnan(ov).any():
             i = int(np.flatnonzero(keep)[np.argmax(np.isnan(ov))])
             raise ColumnError(
-                f"order column {order!r} must be numeric (run order); found {otxt[np.argmax(np.isnan(ov))]!r} "
+                f"order column {_q(order)} must be numeric (run order); found {_q(otxt[np.argmax(np.isnan(ov))])} "
                 f"at row {rows[i]}; expected a run number on every row"
             )
         order_v = ov
@@ -1197,7 +1336,6 @@ check_levels_option = _check_levels_option
 check_encoding = _check_encoding
 sniff_delimiter = _sniff_delimiter
 header_names = _header_names
-merge_numeric_spellings = _merge_numeric_spellings
 comma_to_point = _comma_to_point
 parse_response = _parse_response
 NUMBER_RE = _NUMBER_RE

@@ -22,6 +22,15 @@ value was printed with.  Per column (the largest count over the column's rows):
 * ``decimals=`` (an int for every column, or {column: int}) overrides both.
 
 ``decimals_source`` in :class:`SummaryTable` says which was used.
+
+Sizes and levels
+----------------
+A cell size is a whole number from 1 to :data:`audit.design.MAX_CELL_SIZE` (10^12);
+a larger one is a typed error naming the row and column.  Factor levels that spell
+one number two ways ('1', '1.0') are merged with a note by the rule check mode uses
+(:func:`audit.intake.merge_numeric_spellings`); beside text they are an error.
+Means and SDs may be of any magnitude float64 holds: every square is formed on
+values divided by an exact power of two (:func:`audit.design.cells_from_summary`).
 """
 
 from __future__ import annotations
@@ -33,7 +42,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .design import CellStats, cells_from_summary
+from .design import MAX_CELL_SIZE, CellStats, cells_from_summary
 from .errors import AuditInputError, ColumnError, FactorError, OptionError, ResponseError
 
 __all__ = ["SummaryTable", "read_summary", "cell_table_columns", "decimals_of"]
@@ -179,6 +188,14 @@ def _check_decimals(decimals, cols) -> dict | None:
     return out
 
 
+def _level_text(v) -> str | None:
+    """A factor cell as level text (None when blank); a whole float is written without '.0'."""
+    s = None if v is None or (isinstance(v, float) and math.isnan(v)) else str(v).strip()
+    if isinstance(v, (float, np.floating)) and s and float(v).is_integer():
+        s = str(int(v))
+    return s or None
+
+
 def _number(v, decimal: str | None):
     """(float, decimals) of a cell, or (None, None) when blank; raises ValueError on text."""
     if v is None:
@@ -226,7 +243,7 @@ def read_summary(table, *, factors, mean: str = "mean", sd: str | None = None, s
     """
     import pandas as pd
 
-    from .intake import _check_factors_option, read_table
+    from .intake import _check_factors_option, merge_numeric_spellings, read_table
 
     factors = _check_factors_option(factors)
     if sd is not None and se is not None:
@@ -265,6 +282,10 @@ def read_summary(table, *, factors, mean: str = "mean", sd: str | None = None, s
                           "expected distinct factor, mean, spread and n columns")
     dec = _check_decimals(decimals, [mean, spread])
     frame = frame.reset_index(drop=True)
+    notes: list[str] = []
+    level_text = {f: np.array([_level_text(v) for v in frame[f]], dtype=object) for f in factors}
+    for f in factors:   # '1' and '1.0' are one level, as in check mode (one rule: intake's)
+        level_text[f] = merge_numeric_spellings(f, level_text[f], None, notes)
     keyed: dict = {}
     recs = []
     dmax = {"mean": None, "spread": None}
@@ -272,13 +293,7 @@ def read_summary(table, *, factors, mean: str = "mean", sd: str | None = None, s
         row = frame.iloc[i]
         where = f"summary table row {rows[i]}"
         vals = {}
-        levels = []
-        for f in factors:
-            v = row[f]
-            s = None if v is None or (isinstance(v, float) and math.isnan(v)) else str(v).strip()
-            if isinstance(v, (float, np.floating)) and s and float(v).is_integer():
-                s = str(int(v))
-            levels.append(s or None)
+        levels = [level_text[f][i] for f in factors]
         blank = all(lv is None for lv in levels)
         for role, c in (("mean", mean), ("spread", spread), ("n", n)):
             try:
@@ -296,6 +311,10 @@ def read_summary(table, *, factors, mean: str = "mean", sd: str | None = None, s
         if nv is None or not math.isfinite(nv) or not float(nv).is_integer() or nv < 1:
             raise ResponseError(f"{where}, column {n!r}: expected a whole number >= 1 (the cell size), found "
                                 f"{str(row[n])!r}; leave empty cells out of the table")
+        if nv > MAX_CELL_SIZE:
+            raise ResponseError(f"{where}, column {n!r}: expected a cell size of at most {MAX_CELL_SIZE:.0e} "
+                                f"(MAX_CELL_SIZE), found {str(row[n])!r}; give the number of observations in "
+                                "the cell")
         if mv is None or not math.isfinite(mv):
             raise ResponseError(f"{where}, column {mean!r}: expected a finite cell mean, found {str(row[mean])!r}")
         if nv < 2 and sv is not None:
@@ -345,7 +364,6 @@ def read_summary(table, *, factors, mean: str = "mean", sd: str | None = None, s
     for r, s in zip(recs, spread_v):
         spread_grid[ia[r[0]], ib[r[1]]] = s
         row_grid[ia[r[0]], ib[r[1]]] = r[5]
-    notes = []
     if spread_kind == "se":
         notes.append(f"column {spread!r} holds standard errors of the means; SD = SE * sqrt(n) per cell")
     if source_kind == "float repr":

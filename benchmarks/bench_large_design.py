@@ -18,14 +18,25 @@ and 200 only; the figures at L = 400 and 1,000 are EXTRAPOLATED from the L = 200
 run (the dense solves grow as L^3; the rest of the audit is counted as in the
 new run) and printed as such.
 
-Run from the repository root:  python benchmarks/bench_large_design.py [--quick]
+Many cells in both factors (``--square J``, default 150): a J x J design (baker's
+trial, crumb weight by flour lot x oven, n = 2 per cell, and n = 1-2 drawn at random),
+``audit.check`` with its defaults (9,999 resamples, the 2,000-replication size check)
+and ``twoway-audit check`` on the same data as a CSV, each in a fresh process: wall
+time and peak RSS (``resource.getrusage``; the acceptance target is under 1 GB and
+60 s at 150 x 150, n = 2).  Before the structured homogeneity check and Wald forms a
+50 x 50 design reached 0.45 GB in the homogeneity check alone, 150 x 150 passed 8 GB.
+
+Run from the repository root:  python benchmarks/bench_large_design.py [--quick] [--square J]
 """
 
 from __future__ import annotations
 
 import contextlib
 import os
+import subprocess
 import sys
+import tempfile
+import textwrap
 import time
 
 import numpy as np
@@ -160,5 +171,64 @@ def main(quick: bool = False) -> None:
             print(f"L = {L} check with the default size check FAILED: {type(exc).__name__}: {exc}", flush=True)
 
 
+_CHILD = textwrap.dedent("""
+    import resource, sys, time
+    import numpy as np, pandas as pd
+    J, n_lo, n_hi, mode, path = int(sys.argv[1]), int(sys.argv[2]), int(sys.argv[3]), sys.argv[4], sys.argv[5]
+    if mode == "cli":
+        import subprocess
+        t0 = time.perf_counter()
+        r = subprocess.run([sys.executable, "-m", "audit", "check", path, "--response", "crumb_g",
+                            "--factors", "lot", "oven", "--json", path + ".json"], capture_output=True, text=True)
+        wall = time.perf_counter() - t0
+        rss = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024
+        err = r.stderr.strip().splitlines()[-1] if r.returncode == 2 else ""
+        print(f"{wall:.1f} {rss:.0f} exit={r.returncode} {err}")
+    else:
+        import audit
+        frame = pd.read_csv(path)
+        t0 = time.perf_counter()
+        f = audit.check(frame, response="crumb_g", factors=("lot", "oven"))
+        wall = time.perf_counter() - t0
+        rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+        print(f"{wall:.1f} {rss:.0f} verdict={f.judgement.verdict.verdict if f.judgement else None}")
+""")
+
+
+def square_frame(J: int, n_lo: int, n_hi: int, seed: int = 3) -> pd.DataFrame:
+    """Invented baker's trial: crumb weight (g) by flour lot x oven, n_lo..n_hi loaves per cell."""
+    rng = np.random.default_rng(seed)
+    n = rng.integers(n_lo, n_hi + 1, size=(J, J))
+    a = np.repeat(np.repeat(np.arange(J), J), n.ravel())
+    b = np.repeat(np.tile(np.arange(J), J), n.ravel())
+    y = 410 + 0.2 * a - 0.1 * b + 2.0 * ((a * b) % 13 == 0) + rng.normal(0, 6, a.size)
+    return pd.DataFrame({"crumb_g": np.round(y, 2), "lot": [f"lot{i:03d}" for i in a],
+                         "oven": [f"oven{i:03d}" for i in b]})
+
+
+def square(J: int = 150) -> None:
+    """Whole-audit wall time and peak RSS of a J x J design, API and command line, fresh processes."""
+    env = dict(os.environ, PYTHONPATH=os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+    with tempfile.TemporaryDirectory() as tmp:
+        for n_lo, n_hi in ((2, 2), (1, 2)):
+            frame = square_frame(J, n_lo, n_hi)
+            path = os.path.join(tmp, f"square_{J}_{n_lo}_{n_hi}.csv")
+            frame.to_csv(path, index=False)
+            for mode in ("api", "cli"):
+                out = subprocess.run([sys.executable, "-c", _CHILD, str(J), str(n_lo), str(n_hi), mode, path],
+                                     capture_output=True, text=True, env=env)
+                if out.returncode:
+                    print(f"{J} x {J}, n = {n_lo}-{n_hi}, {mode}: FAILED {out.stderr.strip()[-300:]}", flush=True)
+                    continue
+                wall, rss, rest = out.stdout.split(maxsplit=2)
+                label = "audit.check (defaults)" if mode == "api" else "twoway-audit check (CSV, --json)"
+                print(f"{J} x {J}, n = {n_lo}-{n_hi} ({len(frame):,} rows): {label}: {wall} s, peak RSS {rss} MB "
+                      f"[{rest.strip()}]", flush=True)
+
+
 if __name__ == "__main__":
-    main(quick="--quick" in sys.argv)
+    if "--square" in sys.argv:
+        i = sys.argv.index("--square")
+        square(int(sys.argv[i + 1]) if len(sys.argv) > i + 1 and sys.argv[i + 1].isdigit() else 150)
+    else:
+        main(quick="--quick" in sys.argv)

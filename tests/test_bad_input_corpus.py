@@ -240,7 +240,7 @@ def _(t):
         prev = reader.line_num
     line = starts[10]          # data row 9 is record 10 (after the header)
     assert line == 10 + 1 + 2  # two extra physical lines from the quoted remark
-    return Case(check_args(p), "error", ("'twelve'", f"row {line}"), inputs=[str(p)])
+    return Case(check_args(p), "error", ("'twelve'", f"line {line}"), inputs=[str(p)])
 
 
 @case("quoted newline then a blank response: dropped row is the file line")
@@ -679,7 +679,7 @@ def _(t):
     f.loc[0, Y] = "thin"
     p = t / "d.csv"
     f.to_csv(p, index=False)
-    return Case(check_args(p), "error", ("'thin'", "row 2"), inputs=[str(p)])
+    return Case(check_args(p), "error", ("'thin'", "line 2"), inputs=[str(p)])
 
 
 # --- intake guesses --------------------------------------------------------------------------------

@@ -39,7 +39,7 @@ CASES = {
     "missing column": (lambda t: ["check", write(t, "d.csv", GOOD), "--response", "yield", "--factors", "grp", "trt"],
                        "the columns are: grp, trt, y"),
     "non-numeric response": (lambda t: ["check", write(t, "d.csv", GOOD.replace("2.5", "two")), "--response", "y",
-                                        "--factors", "grp", "trt"], "'two' at row"),
+                                        "--factors", "grp", "trt"], "'two' on line"),
     "infinite response": (lambda t: ["check", write(t, "d.csv", GOOD.replace("2.5", "inf")), "--response", "y",
                                      "--factors", "grp", "trt"], "infinite"),
     "one level": (lambda t: ["check", write(t, "d.csv", GOOD.replace(",y,", ",x,").replace("a,", "b,")),

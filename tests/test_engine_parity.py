@@ -330,6 +330,29 @@ def _(t):
     return Case(str(t / "data.csv"))
 
 
+@case("a repeated header line inside the data (refused)")
+def _(t):
+    f = frame()
+    body = text(f).splitlines(keepends=True)
+    p = t / "d.csv"
+    p.write_text("".join(body[:9] + body[:1] + body[9:]))   # two files joined with their headers
+    return Case(str(p))
+
+
+@case("a unit after some response values (refused)")
+def _(t):
+    f = frame()
+    f.loc[[3, 8], Y] = f.loc[[3, 8], Y] + " mm"
+    return csv_case(t, f)
+
+
+@case("a response column of text labels (refused)")
+def _(t):
+    f = frame()
+    f[Y] = ["low" if i % 3 else "high" for i in range(len(f))]
+    return csv_case(t, f)
+
+
 # --- test_intake_odd.py -------------------------------------------------------------------------
 
 for _nm in ("None", "NA", "nan", "null", "N/A"):
@@ -527,8 +550,8 @@ def _(t):
 ENGINE_NOTE = "Read through the duckdb engine:"
 
 
-def run(c: Case, engine):
-    kw = dict(response=Y, factors=(A, B), resamples=0, calibration=0, seed=1, timestamp=False)
+def run(c: Case, engine, **opts):
+    kw = dict(response=Y, factors=(A, B), resamples=0, calibration=0, seed=1, timestamp=False, **opts)
     kw.update(c.kw)
     try:
         return audit.check(c.data, engine=engine, **kw)
@@ -554,27 +577,25 @@ def parser_sentence(msg: str) -> str:
 OUTCOMES: dict = {}
 
 
-@pytest.mark.parametrize("name", list(CASES))
-def test_engines_agree(name, tmp_path):
-    c = CASES[name](tmp_path)
-    fm = run(c, "memory")
-    fe = run(c, "duckdb")
+def assert_agree(name, c: Case, fm, fe, engine="duckdb"):
+    """The engine's outcome ``fe`` equals the in-memory path's ``fm`` (see the module docstring)."""
     if isinstance(fm, Exception):
         OUTCOMES[name] = f"refused by both: {type(fm).__name__}"
-        assert isinstance(fe, Exception), f"memory refused ({fm}) but duckdb accepted"
+        assert isinstance(fe, Exception), f"memory refused ({fm}) but {engine} accepted"
         assert type(fe) is type(fm), (type(fe).__name__, str(fe), type(fm).__name__, str(fm))
         if c.note == "parser wording":
             assert parser_sentence(str(fe)) == parser_sentence(str(fm)), (str(fe), str(fm))
         else:
             assert str(fe) == str(fm)
         return
-    assert not isinstance(fe, Exception), f"memory accepted but duckdb refused: {type(fe).__name__}: {fe}"
+    assert not isinstance(fe, Exception), f"memory accepted but {engine} refused: {type(fe).__name__}: {fe}"
     OUTCOMES[name] = "accepted by both"
     assert fe.mode == "moments" and fm.mode == "data"
     dm, de = fm.design.to_dict(), fe.design.to_dict()
     assert de["levels"] == dm["levels"]
     assert de["level_order"] == dm["level_order"]
-    notes_e = [n for n in de["notes"] if not n.startswith(ENGINE_NOTE)]
+    note = ENGINE_NOTE.replace("duckdb", engine)
+    notes_e = [n for n in de["notes"] if not n.startswith(note)]
     assert notes_e == dm["notes"]
     assert len(notes_e) == len(de["notes"]) - 1
     assert de["dropped_rows"] == dm["dropped_rows"]
@@ -586,6 +607,12 @@ def test_engines_agree(name, tmp_path):
             assert rel(a.F, b.F) < 1e-9, (T, eff, a.F, b.F)
             assert rel(a.p, b.p) < 1e-9 or abs(a.p - b.p) < 1e-300, (T, eff, a.p, b.p)
     assert fe.exit_status() == fm.exit_status(), (fe.verdict, fm.verdict)
+
+
+@pytest.mark.parametrize("name", list(CASES))
+def test_engines_agree(name, tmp_path):
+    c = CASES[name](tmp_path)
+    assert_agree(name, c, run(c, "memory"), run(c, "duckdb"))
 
 
 def test_enough_cases():

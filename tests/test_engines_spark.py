@@ -1,7 +1,10 @@
 """The Spark engine in local mode (local[2]) gives the DuckDB engine's numbers
 on the same Parquet file to 1e-9 (reference: the DuckDB path, itself tied to
-the in-memory path and NIST StRD in test_engines_duckdb.py).  Skipped only when
-pyspark is missing or a Spark session cannot start, saying why."""
+the in-memory path and NIST StRD in test_engines_duckdb.py), and on a handful
+of test_engine_parity.py's intake cases the in-memory path's levels, notes,
+dropped rows, refusals and messages (reference: the in-memory path, tied to
+statsmodels / published examples there).  Skipped only when pyspark is missing
+or a Spark session cannot start, saying why."""
 
 from __future__ import annotations
 
@@ -18,7 +21,9 @@ import audit  # noqa: E402
 from audit.errors import AuditInputError  # noqa: E402
 
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), "..", "benchmarks"))
+sys.path.insert(0, os.path.dirname(__file__))
 from make_big_parquet import write  # noqa: E402
+from test_engine_parity import CASES, assert_agree, run  # noqa: E402
 
 
 @pytest.fixture(scope="module")
@@ -58,3 +63,19 @@ def test_spark_equals_duckdb(spark, tmp_path):
     assert math.isclose(next(d for d in fs.diagnostics if d.id == "normality").values["excess_kurtosis"],
                         next(d for d in fd.diagnostics if d.id == "normality").values["excess_kurtosis"],
                         rel_tol=1e-9)
+
+
+#: intake cases of test_engine_parity.py run on Spark too (a few, each a Spark job of ~2 s)
+SPARK_CASES = (
+    "levels 15 and 15.0 merged",                              # merged spellings, with the note
+    "non-numeric response names value and row (refused)",     # same message, same line number
+    "missing values dropped and counted per cell",            # counts per cell and rows listed
+    "decimal commas detected in a ';' file, factor with decimal commas",   # sniffed ';', decimal commas
+    "infinite response in Parquet doubles (refused)",         # a native double column
+)
+
+
+@pytest.mark.parametrize("name", SPARK_CASES)
+def test_spark_intake_parity(spark, name, tmp_path):
+    c = CASES[name](tmp_path)
+    assert_agree(name, c, run(c, "memory"), run(c, "spark", spark_master="local[2]"), engine="spark")

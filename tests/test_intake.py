@@ -265,7 +265,7 @@ def test_non_numeric_response_shows_value_and_row(tmp_path):
     path = write_text(tmp_path / "bad.csv", ",", rows=rows)
     with pytest.raises(ResponseError) as exc:
         load(path, response="honey_kg", factors=("hive", "site"))
-    assert "'n/a?'" in str(exc.value) and "row 6" in str(exc.value)
+    assert "'n/a?'" in str(exc.value) and "line 6" in str(exc.value)
 
 
 def test_infinite_response():

@@ -454,46 +454,59 @@ def sd_ratio_null_quantile(n: np.ndarray, q: float = 0.95, draws: int = 4000, se
     same variance and normal data, for cells of sizes ``n`` (Monte Carlo with
     a fixed seed; s^2 ~ sigma^2 chi2(n-1)/(n-1)).  Hartley's (1950) F-max,
     generalised by simulation to unequal cells.  Monte Carlo SE of the
-    quantile is small at 4000 draws (about 1-2% of its value)."""
+    quantile is small at 4000 draws (about 1-2% of its value).  Designs with more
+    than 5,000 cells use 2e7 / m draws, at least 1,000 (about 2-4%): the cost stays
+    linear in the cells."""
     df = np.asarray(n, dtype=float) - 1.0
+    if df.size > 5000:
+        draws = min(draws, max(1000, 20_000_000 // df.size))
     rng = np.random.default_rng(seed)
-    s2 = rng.chisquare(np.broadcast_to(df, (draws, df.size))) / df
-    r = np.sqrt(s2.max(axis=1) / s2.min(axis=1))
+    # drawn in blocks of rows (the generator fills row after row, so the values are those
+    # of one (draws, m) draw): memory O(cells), not O(draws x cells)
+    step = max(1, _NULL_BLOCK // max(df.size, 1))
+    r = np.empty(draws)
+    for i in range(0, draws, step):
+        b = min(step, draws - i)
+        s2 = rng.chisquare(np.broadcast_to(df, (b, df.size))) / df
+        r[i:i + b] = np.sqrt(s2.max(axis=1) / s2.min(axis=1))
     return float(np.quantile(r, q))
 
 
+#: values per block of simulated cell variances (null ranges of the homogeneity check)
+_NULL_BLOCK = 1 << 20
+
+
 def _f_bias_ratio(fit: Fit) -> tuple[float | None, str | None]:
-    """E[MS_AB] / E[MS_E] under H0 with the cell variances plugged in."""
-    from ..core import type3_contrasts
+    """E[MS_AB] / E[MS_E] under H0 with the cell variances plugged in:
+    E[SS_AB] = tr(P S), P = C' (C D C')^-1 C, S = diag(s2 / n), by the core's
+    structured form (:func:`audit.core.interaction_traces`, no JK x JK matrix)."""
+    from ..core import interaction_traces
 
     c = fit.cells
-    n = c.counts.ravel().astype(float)
+    n = c.counts.astype(float)
     if np.any(n < 2):
         return None, "needs every cell to have n >= 2"
-    s2 = c.variances.ravel()
-    C = type3_contrasts(c.J, c.K)["AB"]
-    M = (C / n) @ C.T
-    Vc = (C * (s2 / n)) @ C.T
-    e_ss = float(np.trace(np.linalg.solve(M, Vc)))
-    e_msab = e_ss / C.shape[0]
+    s2 = c.variances.astype(float)
+    e_ss = float(interaction_traces(n, s2 / n)[0])
+    e_msab = e_ss / ((c.J - 1) * (c.K - 1))
     e_mse = float(np.sum((n - 1.0) * s2)) / (n.sum() - n.size)
     if e_mse <= 0:
         return None, "pooled variance is zero"
     return e_msab / e_mse, None
 
 
-def _box_level_many(n: np.ndarray, s2: np.ndarray, P: np.ndarray, r: int, alpha: float) -> np.ndarray:
-    """Vectorised core of :func:`_box_level`: rows of s2 (draws x m)."""
-    s2 = np.atleast_2d(s2)
-    t = s2 / n
-    d = np.diag(P)
-    tr = t @ d                                   # sum lambda = tr((C D C')^-1 C S C')
-    tr2 = np.sum((t @ (P * P)) * t, axis=1)     # sum lambda^2
-    dfe = float(n.sum() - n.size)
-    w = (n - 1.0) * s2
+def _box_level_many(n: np.ndarray, s2: np.ndarray, r: int, alpha: float):
+    """Vectorised core of :func:`_box_level`: n (J, K), rows of s2 (draws, J, K)."""
+    from ..core import interaction_traces
+
+    s2 = s2.reshape((-1,) + n.shape)
+    tr, tr2 = interaction_traces(n, s2 / n)     # sum lambda, sum lambda^2
+    nf, s2f = n.ravel(), s2.reshape(s2.shape[0], -1)
+    dfe = float(nf.sum() - nf.size)
+    w = (nf - 1.0) * s2f
     b = (tr / r) / (w.sum(axis=1) / dfe)
     h1 = tr * tr / tr2
-    h2 = w.sum(axis=1) ** 2 / np.sum((n - 1.0) * s2 * s2, axis=1)
+    h2 = w.sum(axis=1) ** 2 / np.sum((nf - 1.0) * s2f * s2f, axis=1)
     crit = float(stats.f.isf(alpha, r, dfe))
     return stats.f.sf(crit / b, h1, h2), b, h1, h2
 
@@ -509,36 +522,41 @@ def _box_level(fit: Fit, draws: int = 2000, seed: int = 20240611) -> dict:
     each (Satterthwaite), F ~= b F(h1, h2) with b = E[MS_AB] / E[MS_E] (the
     ``f_bias_ratio``), h1 = (sum lambda)^2 / sum lambda^2 and h2 = (sum (n-1)
     s2)^2 / sum (n-1) s2^2; the level is P(b F(h1, h2) > F_crit(alpha; r, N - m)).
-    With P = C' (C D C')^-1 C, sum lambda = sum_c P_cc s2_c / n_c and sum
-    lambda^2 = t' (P o P) t with t = s2 / n, so no eigenvalues are needed.
+    With P = C' (C D C')^-1 C, sum lambda = tr(P S) and sum lambda^2 =
+    tr((P S)^2), so no eigenvalues are needed; both come from the additive
+    model's normal equations (J + K - 1 unknowns) by
+    :func:`audit.core.interaction_traces`, never from a JK x JK matrix.
     Equal variances give h1 = r, h2 = N - m, b = 1 and the level alpha exactly.
 
     The null range: the 2.5% and 97.5% points of the same estimate over
     sample variances s2 ~ chi2(n - 1) / (n - 1) (equal true variances, normal
     data, these cell sizes; Monte Carlo with a fixed seed), the analogue of
-    Hartley's F-max quantile for this estimate.
+    Hartley's F-max quantile for this estimate.  Large designs get fewer draws
+    (at most 2e7 / m^2, at least 50: a rougher range).
 
     Returns {level, bias_ratio, df1_eff, df2_eff, null_lo, null_hi} or
     {level: None, reason}.
     """
-    from ..core import type3_contrasts
-
     c = fit.cells
-    n = c.counts.ravel().astype(float)
+    n = c.counts.astype(float)
     if np.any(n < 2):
         return {"level": None, "reason": "needs every cell to have n >= 2"}
-    s2 = c.variances.ravel().astype(float)
+    s2 = c.variances.astype(float)
     if np.any(~np.isfinite(s2)) or np.any(s2 <= 0):
         return {"level": None, "reason": "a cell has zero spread"}
-    C = type3_contrasts(c.J, c.K)["AB"]
-    r = C.shape[0]
-    P = C.T @ np.linalg.solve((C / n) @ C.T, C)
-    lv, b, h1, h2 = _box_level_many(n, s2, P, r, fit.alpha)
+    r = (c.J - 1) * (c.K - 1)
+    lv, b, h1, h2 = _box_level_many(n, s2, r, fit.alpha)
     m = n.size
     draws = int(max(50, min(draws, 20_000_000 // (m * m))))  # large designs: fewer draws, rougher range
     rng = np.random.default_rng(seed)
-    null = rng.chisquare(np.broadcast_to(n - 1.0, (draws, m))) / (n - 1.0)
-    nl = _box_level_many(n, null, P, r, fit.alpha)[0]
+    df = (n - 1.0).ravel()
+    # blocks of draws (the generator fills row after row: the values of one (draws, m) draw)
+    step = max(1, min(draws, _NULL_BLOCK // (8 * m)))
+    nl = np.empty(draws)
+    for i in range(0, draws, step):
+        bk = min(step, draws - i)
+        null = rng.chisquare(np.broadcast_to(df, (bk, m))) / df
+        nl[i:i + bk] = _box_level_many(n, null, r, fit.alpha)[0]
     lo, hi = np.quantile(nl, [0.025, 0.975])
     return {"level": float(lv[0]), "bias_ratio": float(b[0]), "df1_eff": float(h1[0]), "df2_eff": float(h2[0]),
             "null_lo": float(lo), "null_hi": float(hi)}

@@ -31,6 +31,7 @@ of items); "clear" otherwise; "not-run" without a scale.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from decimal import ROUND_HALF_EVEN, Decimal
 from fractions import Fraction
 
 import numpy as np
@@ -49,7 +50,10 @@ def _floor(fr: Fraction) -> int:
 
 
 def _digits(value: float, decimals: int) -> int:
-    return int(round(float(value) * 10 ** decimals))
+    """The reported number in units of its last digit, from its shortest repr (the digits as
+    read), in exact decimal arithmetic: no float overflow at any magnitude or number of decimals."""
+    d = Decimal(repr(float(value))).scaleb(int(decimals))
+    return int(d.to_integral_value(rounding=ROUND_HALF_EVEN))
 
 
 def _sum_range(mean: float, decimals: int, n: int, items: int) -> tuple[int, int]:

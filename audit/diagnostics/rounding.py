@@ -177,6 +177,7 @@ def effect_F_ranges(fit, *, mean_half: float | None, sd_low: np.ndarray, sd_high
     h = np.full(mu.shape, 0.0 if mean_half is None else float(mean_half) / st.unit)
     sse_min, sse_max = _sse_range(cells, st, sd_low, sd_high)
     d2 = an.df_error
+    sse_now = float(st.css[filled].sum())     # standardised, as the ANOVA forms it
     out = {}
     done: dict = {}
     bases: dict = {}
@@ -190,8 +191,12 @@ def effect_F_ranges(fit, *, mean_half: float | None, sd_low: np.ndarray, sd_high
         L = bases[key]
         if L.shape[0] != int(row.df):
             continue
-        ss_now = float((L @ mu) @ (L @ mu)) * st.unit ** 2
-        if not math.isclose(ss_now, row.ss, rel_tol=1e-8, abs_tol=1e-12 * max(1.0, abs(row.ss))):
+        # the form must reproduce the ANOVA's F (scale-free: compared in standardised units,
+        # where neither the SS nor the unit's square leave the float64 range)
+        if not sse_now > 0:
+            continue
+        f_now = (float((L @ mu) @ (L @ mu)) / int(row.df)) / (sse_now / d2)
+        if not math.isclose(f_now, row.F, rel_tol=1e-8, abs_tol=1e-12 * max(1.0, abs(row.F))):
             continue
         if (small, big) not in done:
             done[(small, big)] = ss_interaction_range(L, mu, h)
@@ -355,7 +360,18 @@ def rounding(fit, *, mean_half: float | None, sd_low: np.ndarray, sd_high: np.nd
     la, lb = cells.levels_a, cells.levels_b
     jj, kk = np.nonzero(filled)
     ext = [[la[j], lb[k], float(v * u + cells.offset)] for j, k, v in zip(jj, kk, rng["argmax"])]
-    s2 = u * u
+    range_notes: list = []
+
+    def ss_value(x):
+        """A standardised SS on the response scale (x u^2), None outside the float64 range."""
+        with np.errstate(all="ignore"):
+            v = float(x) * u * u
+        if x == 0.0 or (math.isfinite(v) and abs(v) >= np.finfo(float).tiny):
+            return v
+        if not range_notes:
+            range_notes.append("a sum of squares is outside the float64 range on the response's scale and is "
+                               "left blank; F and p are computed on the standardised values and are unaffected")
+        return None
 
     def fmt(x):
         return "unbounded" if x is None or not math.isfinite(x) else f"{x:.4g}"
@@ -365,13 +381,15 @@ def rounding(fit, *, mean_half: float | None, sd_low: np.ndarray, sd_high: np.nd
         "F_min": json_float(F_min), "F_max": json_float(F_max), "p_min": json_float(p_min),
         "p_max": json_float(p_max), "df1": d1, "df2": d2, "decision_can_change": bool(change),
         "mean_half_unit": json_float(mean_half) if mean_half is not None else None,
-        "ss_ab_min": json_float(rng["min"] * s2), "ss_ab_max": json_float(rng["max"] * s2),
-        "sse_min": json_float(sse_min * s2), "sse_max": json_float(sse_max * s2),
+        "ss_ab_min": ss_value(rng["min"]), "ss_ab_max": ss_value(rng["max"]),
+        "sse_min": ss_value(sse_min), "sse_max": ss_value(sse_max),
         "min_method": rng["min_method"], "max_method": rng["max_method"], "vertices": int(rng["vertices"]),
         "decimals": decimals or {}, "decimals_source": decimals_source, "extreme_means": ext,
     }
     if math.isinf(F_max):
-        values["note"] = "an SD interval reaches 0 in every cell, so F is unbounded above"
+        range_notes.insert(0, "an SD interval reaches 0 in every cell, so F is unbounded above")
+    if range_notes:
+        values["note"] = "; ".join(range_notes)
     span = (f"the interaction F ranges from {fmt(F_min)} to {fmt(F_max)} (p from {p_min:.3g} to {p_max:.3g}) "
             f"over every table that rounds to the reported means and SDs")
     if change:

@@ -53,6 +53,7 @@ import numpy as np
 from scipy import optimize, stats
 
 from ..decision import decision
+from ..errors import shorten
 from ..facts import ScaleFacts, ShapeFacts
 from ..results import NOT_RUN, Diagnostic
 from .influence import _fmt_p, _num, cell_sums, interaction_test
@@ -167,6 +168,7 @@ def shape(fit) -> Diagnostic:
     p = ab.p
     sig = decision(p, fit.alpha) is True
     where = []
+    fa, fb = shorten(fa, 48), shorten(fb, 48)   # user names in a sentence: never their whole length
     if o_ab["crosses"]:
         where.append(f"the {fa} lines cross across {fb}" + ("" if o_ab["beyond_noise"] else " (within noise)"))
     if o_ba["crosses"]:

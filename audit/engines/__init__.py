@@ -81,8 +81,8 @@ def open_backend(engine: str, data, *, spark_master: str | None = None, encoding
     if engine == "spark":
         from .spark_engine import SparkBackend
 
-        if encoding is not None or sheet is not None:
-            raise OptionError("encoding / sheet: not available with engine spark (it reads UTF-8 text and "
-                              "Parquet); leave them out or use --engine duckdb")
-        return SparkBackend(data, master=spark_master)
+        if sheet is not None:
+            raise OptionError("sheet: not available with engine spark (it reads text and Parquet); leave it out "
+                              "or use --engine memory")
+        return SparkBackend(data, master=spark_master, encoding=encoding)
     raise OptionError(f"engine: expected duckdb or spark here, found {engine!r}")

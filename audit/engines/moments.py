@@ -43,12 +43,16 @@ SAMPLE_MARGIN = 1.25
 
 @dataclass(frozen=True)
 class Dialect:
-    """What differs between engines' SQL: quoting, type names, the exact median."""
+    """What differs between engines' SQL: quoting, type names, the exact median, string
+    literals and the few functions the intake rules (:mod:`audit.engines.rules`) use whose
+    names or semantics differ.  ``backslash_literals``: string literals take backslash escapes
+    (Spark SQL), else a quote is doubled (DuckDB, standard SQL)."""
 
     name: str
     quote_char: str
     string_type: str
     median_fn: str        # format string with {x}
+    backslash_literals: bool = False
 
     def q(self, ident: str) -> str:
         c = self.quote_char
@@ -62,9 +66,78 @@ class Dialect:
         """A double literal that round-trips exactly (never a DECIMAL literal)."""
         return f"CAST('{float(value)!r}' AS DOUBLE)"
 
+    # -- the intake rules' SQL -----------------------------------------------------------------
+
+    def lit(self, s) -> str:
+        """A string literal holding exactly ``s``."""
+        s = str(s)
+        if not self.backslash_literals:
+            return "'" + s.replace("'", "''") + "'"
+        # Spark SQL: backslash escapes; adjacent literals concatenate (so '' is no quote); every
+        # character that is not printable ASCII as a \uXXXX escape (the lexer unescapes them)
+        out = []
+        for ch in s:
+            if ch in "\\'":
+                out.append("\\" + ch)
+            elif " " <= ch <= "~":
+                out.append(ch)
+            elif ord(ch) <= 0xFFFF:
+                out.append(f"\\u{ord(ch):04x}")
+            else:
+                out.append(f"\\U{ord(ch):08x}")
+        return "'" + "".join(out) + "'"
+
+    def char_set(self, chars: str) -> str:
+        """A string expression holding the characters ``chars`` (DuckDB: chr() concatenations,
+        kept as tuned; Spark's chr(n) is n mod 256, so a literal)."""
+        if not self.backslash_literals:
+            return " || ".join(f"chr({ord(c)})" for c in chars)
+        return self.lit(chars)
+
+    def trim_chars(self, x: str, chars: str) -> str:
+        """``x`` with the characters of the expression ``chars`` removed from both ends."""
+        if self.name == "spark":
+            return f"trim(BOTH {chars} FROM {x})"
+        return f"trim({x}, {chars})"
+
+    def strpos(self, hay: str, needle: str) -> str:
+        """1-based position of ``needle`` in ``hay``, 0 when absent."""
+        return f"instr({hay}, {needle})" if self.name == "spark" else f"strpos({hay}, {needle})"
+
+    def full_match(self, x: str, pattern: str) -> str:
+        """TRUE when the whole of ``x`` matches the regular expression ``pattern`` (Python text)."""
+        if self.name == "spark":
+            # Java regex: \z is the very end (a $ would also match before a final line break)
+            anchored = "^(?:" + pattern + r")\z"
+            return f"({x} RLIKE {self.lit(anchored)})"
+        return f"regexp_full_match({x}, {self.lit(pattern)})"
+
+    def contains(self, x: str, needle: str) -> str:
+        return f"(instr({x}, {needle}) > 0)" if self.name == "spark" else f"contains({x}, {needle})"
+
+    def isinf(self, x: str) -> str:
+        return f"(abs({x}) = CAST('Infinity' AS DOUBLE))" if self.name == "spark" else f"isinf({x})"
+
+    def arg_min(self, x: str, by: str) -> str:
+        """``x`` of the row with the smallest ``by`` among rows where both are non-NULL (DuckDB's
+        arg_min; Spark's min_by would return a NULL ``x``)."""
+        if self.name == "spark":
+            return f"min_by({x}, CASE WHEN {x} IS NOT NULL THEN {by} END)"
+        return f"arg_min({x}, {by})"
+
+    def arg_max(self, x: str, by: str) -> str:
+        if self.name == "spark":
+            return f"max_by({x}, CASE WHEN {x} IS NOT NULL THEN {by} END)"
+        return f"arg_max({x}, {by})"
+
+    def any_value(self, x: str) -> str:
+        """Any non-NULL value of ``x`` in the group (NULL when there is none)."""
+        return f"any_value({x}, true)" if self.name == "spark" else f"any_value({x})"
+
 
 DUCKDB = Dialect(name="duckdb", quote_char='"', string_type="VARCHAR", median_fn="quantile_cont({x}, 0.5)")
-SPARK = Dialect(name="spark", quote_char="`", string_type="STRING", median_fn="percentile({x}, 0.5)")
+SPARK = Dialect(name="spark", quote_char="`", string_type="STRING", median_fn="percentile({x}, 0.5)",
+                backslash_literals=True)
 
 
 @dataclass(frozen=True)

@@ -54,12 +54,8 @@ class EngineIntake:
     extra: dict = field(default_factory=dict)
 
 
-def _s(x: str) -> str:
-    return "'" + str(x).replace("'", "''") + "'"
-
-
-def _ws() -> str:
-    return " || ".join(f"chr({ord(c)})" for c in WHITESPACE)
+def _ws(d) -> str:
+    return d.char_set(WHITESPACE)
 
 
 def _type_kind(t: str) -> str:
@@ -74,16 +70,17 @@ def _type_kind(t: str) -> str:
 
 
 def _blank_clause(backend, q) -> str:
-    ws = _ws()
+    d = backend.dialect
+    ws = _ws(d)
     cheap, costly = [], []
     for c in backend.columns():
         k = _type_kind(backend.column_type(c))
         if k == "text":
             # only a value that starts with white space can be blank: the trim (about 30 characters to
             # strip) runs on those alone
-            lit = _s(WHITESPACE)
-            costly.append(f"({q(c)} IS NULL OR CASE WHEN {q(c)} = '' THEN TRUE WHEN strpos({lit}, left({q(c)}, 1)) = 0 "
-                          f"THEN FALSE ELSE trim({q(c)}, {ws}) = '' END)")
+            lit = d.lit(WHITESPACE)
+            costly.append(f"({q(c)} IS NULL OR CASE WHEN {q(c)} = '' THEN TRUE WHEN {d.strpos(lit, f'left({q(c)}, 1)')} "
+                          f"= 0 THEN FALSE ELSE {d.trim_chars(q(c), ws)} = '' END)")
         elif backend.column_type(c) in ("FLOAT", "DOUBLE", "REAL"):
             cheap.append(f"({q(c)} IS NULL OR isnan({q(c)}))")
         else:
@@ -114,7 +111,9 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
     intake.check_columns(cols, response=response, factors=factors, levels=levels)
     d = backend.dialect
     q = d.q
-    ws = _ws()
+    _s = d.lit
+    vc = d.string_type
+    ws = _ws(d)
     fa, fb = factors
     ykind = _type_kind(backend.column_type(response))
     y = q(response)
@@ -124,17 +123,17 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
         # na/num/dec would be trimmed again at each use); only a value that starts or ends with
         # white space is trimmed at all
         lit = _s(WHITESPACE)
-        trimmed = (f"CASE WHEN strpos({lit}, left({y}, 1)) = 0 AND strpos({lit}, right({y}, 1)) = 0 THEN {y} "
-                   f"ELSE trim({y}, {ws}) END")
+        trimmed = (f"CASE WHEN {d.strpos(lit, f'left({y}, 1)')} = 0 AND {d.strpos(lit, f'right({y}, 1)')} = 0 "
+                   f"THEN {y} ELSE {d.trim_chars(y, ws)} END")
         raw_rn = f"(SELECT *, {trimmed} AS twa_t FROM {backend.raw_rn})"
         raw = f"(SELECT *, {trimmed} AS twa_t FROM {backend.raw})"
         t = "twa_t"
         na = f"({t} IS NULL OR {t} = '' OR lower({t}) IN ({tokens}))"
-        num = f"regexp_full_match({t}, {_s(NUM_SQL)})"
-        dec = f"regexp_full_match({t}, {_s(DEC_SQL)})"
-        comma = f"contains({t}, ',')"
+        num = d.full_match(t, NUM_SQL)
+        dec = d.full_match(t, DEC_SQL)
+        comma = d.contains(t, "','")
     else:
-        t = f"CAST({y} AS VARCHAR)"
+        t = f"CAST({y} AS {vc})"
         raw_rn, raw = backend.raw_rn, backend.raw
         na = f"({y} IS NULL)" if ykind != "double" else f"({y} IS NULL OR isnan(CAST({y} AS DOUBLE)))"
         num = "TRUE" if ykind != "other" else "FALSE"
@@ -145,25 +144,26 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
     # non-finite value are taken per group in this one scan (no second scan, no casts to text)
     fast = ykind == "double"
     ydbl = f"CAST({y} AS DOUBLE)"
-    src = (f"SELECT CAST({q(fa)} AS VARCHAR) AS ka, CAST({q(fb)} AS VARCHAR) AS kb, {q(fa)} AS va, {q(fb)} AS vb, "
+    src = (f"SELECT CAST({q(fa)} AS {vc}) AS ka, CAST({q(fb)} AS {vc}) AS kb, {q(fa)} AS va, {q(fb)} AS vb, "
            f"{t} AS t, {na} AS na, {num} AS num, {dec} AS dec, {comma} AS comma, {exo} AS exo, {blank} AS blank, "
            f"twa_rn AS rn FROM {raw_rn}")
     if fast:
         # yn: the response, NULL when missing (NULL or NaN); aggregates ignore NULLs, so no FILTER
         # is needed but for the non-finite values (about six times faster than the general query)
-        fsrc = (f"SELECT CAST({q(fa)} AS VARCHAR) AS ka, CAST({q(fb)} AS VARCHAR) AS kb, {q(fa)} AS va, "
+        fsrc = (f"SELECT CAST({q(fa)} AS {vc}) AS ka, CAST({q(fb)} AS {vc}) AS kb, {q(fa)} AS va, "
                 f"{q(fb)} AS vb, CASE WHEN isnan({ydbl}) THEN NULL ELSE {ydbl} END AS yn, {blank} AS blank, "
                 f"twa_rn AS rn FROM {raw_rn}")
         groups = backend.query(
-            f"WITH s AS ({fsrc}) SELECT ka, kb, any_value(va), any_value(vb), COUNT(*), COUNT(*) - COUNT(yn), "
-            f"MIN(rn), NULL, NULL, 0, blank, MIN(rn) FILTER (WHERE yn IS NOT NULL), arg_min(yn, rn), MIN(yn), "
-            f"MAX(yn), MIN(rn) FILTER (WHERE isinf(yn)), arg_min(yn, rn) FILTER (WHERE isinf(yn)) "
+            f"WITH s AS ({fsrc}) SELECT ka, kb, {d.any_value('va')}, {d.any_value('vb')}, COUNT(*), "
+            f"COUNT(*) - COUNT(yn), MIN(rn), NULL, NULL, 0, blank, MIN(rn) FILTER (WHERE yn IS NOT NULL), "
+            f"{d.arg_min('yn', 'rn')}, MIN(yn), MAX(yn), MIN(rn) FILTER (WHERE {d.isinf('yn')}), "
+            f"{d.arg_min('yn', 'rn')} FILTER (WHERE {d.isinf('yn')}) "
             f"FROM s GROUP BY ka, kb, blank LIMIT {MAX_PAIRS + 1}", label="intake (levels)")
     else:
         groups = backend.query(
-            f"WITH s AS ({src}) SELECT ka, kb, any_value(va), any_value(vb), COUNT(*), "
+            f"WITH s AS ({src}) SELECT ka, kb, {d.any_value('va')}, {d.any_value('vb')}, COUNT(*), "
             f"COUNT(*) FILTER (WHERE na), MIN(rn), MIN(rn) FILTER (WHERE comma AND NOT na), "
-            f"arg_min(t, rn) FILTER (WHERE comma AND NOT na), COUNT(*) FILTER (WHERE exo), blank "
+            f"{d.arg_min('t', 'rn')} FILTER (WHERE comma AND NOT na), COUNT(*) FILTER (WHERE exo), blank "
             f"FROM s GROUP BY ka, kb, blank LIMIT {MAX_PAIRS + 1}", label="intake (levels)")
     if len(groups) > MAX_PAIRS:
         raise FactorError(f"factors {fa!r} and {fb!r}: more than {MAX_PAIRS:,} distinct pairs of values; expected a "
@@ -175,6 +175,7 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
         raise intake.DataFileError(f"{backend.files[0]}: no data rows below the header; expected one row per "
                                    "observation")
     notes: list[str] = []
+    _refuse_repeated_header(backend, groups, response, factors, ykind, raw_rn, y)
 
     def row_of(rn):
         return backend.row_numbers([rn])[int(rn)]
@@ -276,7 +277,7 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
         bad1 = f"(({exo} AND NOT {in_inf} AND NOT {in_fin}) OR ({dec} AND NOT {'TRUE' if comma_ok else 'FALSE'}))"
         okv = f"({num} OR {in_fin}{' OR ' + dec if comma_ok else ''})"
         yd = f"try_cast({tt} AS DOUBLE)"
-        bad2 = f"({in_inf} OR ({okv} AND isinf({yd})))"
+        bad2 = f"({in_inf} OR ({okv} AND {d.isinf(yd)}))"
         shown = tt
     elif ykind == "other":
         bad1, okv, yd, bad2, shown = "TRUE", "FALSE", "CAST(NULL AS DOUBLE)", "FALSE", y
@@ -284,18 +285,18 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
         bad1, okv, yd, bad2, shown = "FALSE", "TRUE", f"CAST({y} AS DOUBLE)", "FALSE", t
     else:
         yd = f"CAST({y} AS DOUBLE)"
-        bad1, okv, bad2, shown = "FALSE", "TRUE", f"isinf({yd})", yd
+        bad1, okv, bad2, shown = "FALSE", "TRUE", d.isinf(yd), yd
     kept_src = (f"SELECT r.twa_rn AS rn, {na} AS na, {bad1} AS bad1, {bad2} AS bad2, {okv} AS okv, {yd} AS yd, "
                 f"{shown} AS shown, {tt} AS tt FROM {raw_rn} r "
-                f"JOIN twa_map_a ma ON CAST(r.{q(fa)} AS VARCHAR) = ma.key "
-                f"JOIN twa_map_b mb ON CAST(r.{q(fb)} AS VARCHAR) = mb.key")
+                f"JOIN twa_map_a ma ON CAST(r.{q(fa)} AS {vc}) = ma.key "
+                f"JOIN twa_map_b mb ON CAST(r.{q(fb)} AS {vc}) = mb.key")
     if fast:
         k = _fast_response(groups, map_a, map_b)
     else:
         k = backend.query(
-        f"WITH s AS ({kept_src}) SELECT MIN(rn) FILTER (WHERE bad1), arg_min(shown, rn) FILTER (WHERE bad1), "
-        f"MIN(rn) FILTER (WHERE bad2), arg_min(shown, rn) FILTER (WHERE bad2), "
-        f"arg_min(shown, rn), MIN(yd), MAX(yd), arg_min(tt, yd), arg_max(tt, yd), "
+        f"WITH s AS ({kept_src}) SELECT MIN(rn) FILTER (WHERE bad1), {d.arg_min('shown', 'rn')} FILTER (WHERE bad1), "
+        f"MIN(rn) FILTER (WHERE bad2), {d.arg_min('shown', 'rn')} FILTER (WHERE bad2), "
+        f"{d.arg_min('shown', 'rn')}, MIN(yd), MAX(yd), {d.arg_min('tt', 'yd')}, {d.arg_max('tt', 'yd')}, "
         f"MAX(length(regexp_extract(tt, '[.]([0-9]+)', 1))), MAX(length(regexp_extract(tt, '^[+-]?0*([0-9]*)', 1))), "
         f"COUNT(*) FILTER (WHERE lower(tt) LIKE '%e%') FROM s WHERE NOT na", label="intake (response)")[0]
     is_text = ykind in ("text", "decimal", "other")
@@ -306,9 +307,8 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
         return intake.parse_response(ser, is_text, response, np.asarray(rows, np.int64), keep)
 
     if k[0] is not None:
-        found = intake.fmt_scalar(k[1]) if ykind == "other" else k[1]
         try:
-            parse([found], [row_of(k[0])])
+            raise _text_error(backend, kept_src, response, ykind, n_kept=int(kept.sum()))
         except ResponseError as exc:
             if "must be numeric" not in str(exc):
                 raise
@@ -346,10 +346,12 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
     else:
         rk = ResponseKind("text", offset=offset)
         yv = f"CASE WHEN {na} THEN NULL ELSE {tt} END"
-    extra_cols = ", r.filename AS filename, r.file_row_number AS file_row_number" if backend.format == "parquet" else ""
+    # the source's own row numbers, where it has them (DuckDB's Parquet reader); the sample key reads them
+    extra_cols = (", r.filename AS filename, r.file_row_number AS file_row_number"
+                  if backend.row_number_expr() is not None else "")
     source = (f"(SELECT ma.lv AS fa, mb.lv AS fb, {yv} AS y{extra_cols} FROM {raw} r "
-              f"JOIN twa_map_a ma ON CAST(r.{q(fa)} AS VARCHAR) = ma.key "
-              f"JOIN twa_map_b mb ON CAST(r.{q(fb)} AS VARCHAR) = mb.key)")
+              f"JOIN twa_map_a ma ON CAST(r.{q(fa)} AS {vc}) = ma.key "
+              f"JOIN twa_map_b mb ON CAST(r.{q(fb)} AS {vc}) = mb.key)")
 
     # -- rows left out, counted as the in-memory intake counts them -----------------------------
     miss = np.zeros((len(la), len(lb)), np.int64)
@@ -373,6 +375,47 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
                         centring=centring, dropped=dropped, source=source, lo=lo, hi=hi, decimal=decimal)
 
 
+def _refuse_repeated_header(backend, groups, response, factors, ykind, raw_rn, y) -> None:
+    """The in-memory intake's refusal of data rows that repeat the header (each named column
+    holds its own name), as when files with a header each are concatenated."""
+    if ykind != "text":
+        return   # a numeric response cannot hold its own name
+    fa, fb = factors
+    keys = [(g[0], g[1]) for g in groups if intake.fmt_scalar(g[2]) == fa and intake.fmt_scalar(g[3]) == fb]
+    if not keys:
+        return
+    d = backend.dialect
+    q, _s, vc = d.q, d.lit, d.string_type
+    (ka, kb), = keys[:1]
+    cond = (f"CAST({q(fa)} AS {vc}) = {_s(ka)} AND CAST({q(fb)} AS {vc}) = {_s(kb)} "
+            f"AND twa_t = {_s(response)}")
+    count = int(backend.query(f"SELECT COUNT(*) FROM {raw_rn} WHERE {cond}", label="intake (header)")[0][0])
+    if not count:
+        return
+    rns = [int(r[0]) for r in backend.query(f"SELECT twa_rn FROM {raw_rn} WHERE {cond} ORDER BY twa_rn LIMIT 5",
+                                            label="intake (header)")]
+    got = backend.row_numbers(rns)
+    _, where_all = intake.where_text([got[r] for r in rns], count)
+    raise intake.repeated_header_error(backend.files[0], where_all, count, backend.columns())
+
+
+def _text_error(backend, kept_src: str, response: str, ykind: str, *, n_kept: int) -> ResponseError:
+    """The in-memory intake's error for text in the response, from the facts it words (how many
+    kept values are not numbers, the first of them and where, the distinct ones in order)."""
+    fmt = intake.fmt_scalar if ykind == "other" else str
+    n_bad = int(backend.query(f"WITH s AS ({kept_src}) SELECT COUNT(*) FROM s WHERE NOT na AND bad1",
+                              label="intake (response text)")[0][0])
+    first = backend.query(f"WITH s AS ({kept_src}) SELECT rn, shown FROM s WHERE NOT na AND bad1 ORDER BY rn LIMIT 5",
+                          label="intake (response text)")
+    labels = [fmt(r[0]) for r in backend.query(
+        f"WITH s AS (SELECT * FROM ({kept_src}) WHERE NOT na AND bad1 ORDER BY rn LIMIT 10000) "
+        f"SELECT shown, MIN(rn) FROM s GROUP BY shown ORDER BY 2 LIMIT 21", label="intake (response text)")]
+    got = backend.row_numbers([r[0] for r in first])
+    where_first, where_all = intake.where_text([got[int(r[0])] for r in first], n_bad)
+    return intake.text_response_error(response, found=fmt(first[0][1]), n_bad=n_bad, n_keep=n_kept, labels=labels,
+                                      where_first=where_first, where_all=where_all)
+
+
 def _fast_response(groups, map_a, map_b) -> tuple:
     """The response query's row for a native numeric response, from the per-group columns of the
     levels query (kept groups only): (bad1 row, value, first non-finite row, value, first value,
@@ -388,7 +431,8 @@ def _fast_response(groups, map_a, map_b) -> tuple:
 
 def _swapped_hint(backend, exc, factors, response, merged, groups, ta, tb, n):
     """Raise intake's swapped-columns hint when a factor or another column looks like the measurement."""
-    q = backend.dialect.q
+    d = backend.dialect
+    q = d.q
     for c in (*factors, *(c for c in backend.columns() if c not in (response, *factors))):
         counts: dict[str, int] = {}
         if c in factors:
@@ -398,8 +442,8 @@ def _swapped_hint(backend, exc, factors, response, merged, groups, ta, tb, n):
                     m = merged[c].get(v, v)
                     counts[m] = counts.get(m, 0) + int(k)
         else:
-            rows = backend.query(f"SELECT any_value({q(c)}), COUNT(*) FROM {backend.raw} GROUP BY CAST({q(c)} AS VARCHAR) "
-                                 f"LIMIT 2000001")
+            rows = backend.query(f"SELECT {d.any_value(q(c))}, COUNT(*) FROM {backend.raw} "
+                                 f"GROUP BY CAST({q(c)} AS {d.string_type}) LIMIT 2000001")
             if len(rows) > 2_000_000:
                 continue
             for v, k in rows:

@@ -80,7 +80,7 @@ def hc_wald_cells(means, css, counts, C, *, kind: str = "hc3"):
 
     Batch-capable over a leading axis of ``means`` and ``css``.  F = W / r.
     """
-    return wald_quadratic(means, hc_cell_variances(css, counts, kind=kind), np.asarray(C, dtype=float))
+    return wald_quadratic(means, hc_cell_variances(css, counts, kind=kind), C)
 
 
 def hc_wald(fit: Fit, *, effect: str = "AB", kind: str = "hc3") -> MethodResult:

@@ -67,7 +67,16 @@ from typing import Callable
 import numpy as np
 from scipy import special
 
-from ..core import additive_design, type3_contrasts
+from ..core import (
+    Type3Contrast,
+    additive_design,
+    additive_residual,
+    check_dense_budget,
+    dense_contrast,
+    structured_restricted_fit,
+    structured_restricted_leverage,
+    type3_main_wald,
+)
 from ..decision import settled
 from ..errors import OptionError
 from ..fit import Fit
@@ -191,10 +200,13 @@ def effect_hypothesis(cells, effect: str) -> tuple[np.ndarray | None, str | None
     J, K = cells.J, cells.K
     filled = cells.counts.ravel() > 0
     if filled.all():
-        return type3_contrasts(J, K)[effect], None
+        return Type3Contrast(J, K, effect), None
     if effect != "AB":
         return None, (f"not computed: the Type III hypothesis of main effect {effect} compares unweighted "
                       f"marginal means, which need every cell filled (found {int((~filled).sum())} empty cell(s))")
+    m = int(filled.sum())
+    check_dense_budget(8.0 * m * (m + J + K), what="the interaction contrasts of a design with empty cells",
+                       J=J, K=K, skip=_SKIP_EMPTY)
     X = additive_design(J, K)[filled]
     U, s, _ = np.linalg.svd(X, full_matrices=True)
     rank = int((s > s[0] * 1e-10).sum())
@@ -218,6 +230,9 @@ def restricted_cell_fit(means: np.ndarray, counts: np.ndarray, C: np.ndarray) ->
     interaction this is the additive model's fitted cell means; for a main
     effect it is the full model with that effect removed (sum-to-zero coding).
     """
+    if _structured(C):
+        return structured_restricted_fit(C, means, counts)
+    C = dense_contrast(C)
     d = 1.0 / counts
     Cy = C @ means
     M = (C * d) @ C.T
@@ -231,7 +246,9 @@ def restricted_leverage(counts: np.ndarray, C: np.ndarray) -> np.ndarray:
     has rows b_c, so h_c = b_c' (B' W B)^-1 b_c, W = diag(n).  For the
     interaction this is the additive model's leverage.
     """
-    Bn = null_space_basis(C)                            # (m, p_r)
+    if _structured(C):
+        return structured_restricted_leverage(C, counts)
+    Bn = null_space_basis(dense_contrast(C))                            # (m, p_r)
     G = Bn.T @ (Bn * counts[:, None])
     return np.einsum("ij,jk,ik->i", Bn, np.linalg.inv(G), Bn)
 
@@ -249,11 +266,18 @@ def f_statistic_maker(layout: Layout, Cs: list[np.ndarray], ss_total: float) -> 
     """
     n = layout.counts
     rs = np.sqrt(n)
-    Gs = [_row_basis(C / rs) for C in Cs]
-    G = np.vstack(Gs)
-    sizes = [g.shape[0] for g in Gs]
-    splits = np.cumsum(sizes)[:-1]
+    # a large Type III contrast of a full grid: its SS by the structured forms (weights n),
+    # O(cells) per resample; the others by an orthonormal row basis (small designs keep
+    # their numbers bit for bit)
+    big = [_structured(C) for C in Cs]
+    Gs = [None if b else _row_basis(dense_contrast(C) / rs) for C, b in zip(Cs, big)]
+    G = np.vstack([g for g in Gs if g is not None]) if any(g is not None for g in Gs) else np.zeros((0, layout.m))
+    sizes = [C.shape[0] for C in Cs]
     df_e = layout.N - layout.m
+    additive = None
+    if any(b and C.effect == "AB" for C, b in zip(Cs, big)):
+        C0 = next(C for C in Cs if isinstance(C, Type3Contrast))
+        additive = n.reshape(C0.J, C0.K)
 
     def fn(S, SQ=None):
         z = S / rs
@@ -261,12 +285,35 @@ def f_statistic_maker(layout: Layout, Cs: list[np.ndarray], ss_total: float) -> 
         sse = np.maximum(sse, ss_total * 1e-15)
         proj = z @ G.T
         out = np.empty((S.shape[0], len(Gs)))
-        for e, part in enumerate(np.split(proj, splits, axis=1)):
-            out[:, e] = np.einsum("ij,ij->i", part, part) / sizes[e]
+        col = 0
+        for e, (C, g) in enumerate(zip(Cs, Gs)):
+            if g is not None:
+                part = proj[:, col:col + g.shape[0]]
+                col += g.shape[0]
+                out[:, e] = np.einsum("ij,ij->i", part, part) / sizes[e]
+            elif C.effect == "AB":
+                R, _ = additive_residual(additive, (S / n).reshape((-1,) + additive.shape))
+                R = R.reshape(S.shape)
+                out[:, e] = np.einsum("ij,ij->i", R * n, R) / sizes[e]
+            else:
+                out[:, e] = type3_main_wald(S / n, 1.0 / n, C.J, C.K, C.effect) / sizes[e]
         return out / (sse / df_e)[:, None]
 
-    fn.bytes_per_resample = 8 * (4 * layout.m + 2 * G.shape[0] + 2 * len(Gs))
+    fn.bytes_per_resample = 8 * (4 * layout.m + 2 * G.shape[0] + 2 * len(Gs)) + (8 * 8 * layout.m if any(big) else 0)
     return fn
+
+
+#: how to avoid the dense interaction contrasts of a large design with empty cells
+_SKIP_EMPTY = ("the resampling and robust methods need them; skip the alternative methods (check(methods=False), "
+               "--no-methods)")
+
+
+def _structured(C) -> bool:
+    """A Type III contrast of a full grid large enough for the structured forms (the
+    threshold of :mod:`audit.methods.wald`, so small designs keep their dense numbers)."""
+    from .wald import _DENSE_WORK
+
+    return isinstance(C, Type3Contrast) and C.shape[0] ** 2 * C.shape[1] >= _DENSE_WORK
 
 
 def wald_statistic_maker(layout: Layout, Cs: list[np.ndarray], *, kind: str, scale: float) -> StatFn:
@@ -296,19 +343,23 @@ def wald_statistic_maker(layout: Layout, Cs: list[np.ndarray], *, kind: str, sca
 
     from scipy import special
 
-    from .wald import wald_quadratic, welch_james_a
+    from .wald import wald_and_a, wald_quadratic
 
     m = layout.m
     # per hypothesis: the direct r x r form, or the null-space form when the
     # hypothesis has more rows than its complement (e.g. the interaction, r = (J-1)(K-1))
-    bases = [null_space_basis(C) if C.shape[0] > m - C.shape[0] else None for C in Cs]
+    bases = [null_space_basis(dense_contrast(C)) if C.shape[0] > m - C.shape[0] and not _structured(C) else None
+             for C in Cs]
     # row-wise outer products of each basis, kept when small beside the budget
     outer = [None if Z is None or 8 * m * Z.shape[1] ** 2 > MEMORY_BUDGET // 8
              else (Z[:, :, None] * Z[:, None, :]).reshape(m, -1) for Z in bases]
     need = 0
     for C, Z in zip(Cs, bases):
         r = C.shape[0]
-        if Z is None:
+        if _structured(C):          # the structured forms: O(cells) arrays and k x k systems
+            k = min(C.J, C.K) - 1
+            need = max(need, 8 * (16 * m + 4 * k * k))
+        elif Z is None:
             need = max(need, 8 * (2 * r * r + (4 if kind == "wj" else 1) * r * m + 4 * r))
         else:
             q = Z.shape[1]
@@ -321,8 +372,10 @@ def wald_statistic_maker(layout: Layout, Cs: list[np.ndarray], *, kind: str, sca
         out = np.empty((S.shape[0], len(Cs)))
         for e, (C, Z, ZZ) in enumerate(zip(Cs, bases, outer)):
             if Z is None:
-                T = wald_quadratic(means, v, C)
-                A = welch_james_a(v, n - 1.0, C) if kind == "wj" else None
+                if kind == "wj":
+                    T, A = wald_and_a(means, v, n - 1.0, C)
+                else:
+                    T, A = wald_quadratic(means, v, C), None
             else:
                 T, A = wald_null_form(means, v, Z, n - 1.0 if kind == "wj" else None, ZZ=ZZ)
             if kind == "wj":
@@ -340,7 +393,9 @@ def wald_statistic_maker(layout: Layout, Cs: list[np.ndarray], *, kind: str, sca
 
 def null_space_basis(C: np.ndarray) -> np.ndarray:
     """Orthonormal basis (m x (m - r)) of the null space of C (r x m, full row rank)."""
-    r = C.shape[0]
+    r, m = C.shape
+    check_dense_budget(8.0 * m * m, what="a null-space basis of a hypothesis", J=m, K=None,
+                       skip=_SKIP_EMPTY)
     q, _ = np.linalg.qr(C.T, mode="complete")
     return np.ascontiguousarray(q[:, r:])
 

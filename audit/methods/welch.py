@@ -35,11 +35,11 @@ from __future__ import annotations
 import numpy as np
 from scipy import stats
 
-from ..core import type3_contrasts
+from ..core import Type3Contrast
 from ..errors import OptionError
 from ..fit import Fit
 from ..results import MethodResult
-from .wald import wald_quadratic, welch_james_a
+from .wald import wald_and_a
 
 __all__ = [
     "EFFECTS",
@@ -65,8 +65,9 @@ def check_effect(effect: str) -> str:
 
 def effect_contrast(cells, effect: str) -> np.ndarray:
     """C_A, C_B or C_AB on the J*K cells (j-major), sum-to-zero hypotheses on
-    unweighted marginal means (METHODS.md section 1)."""
-    return type3_contrasts(cells.J, cells.K)[check_effect(effect)]
+    unweighted marginal means (METHODS.md section 1), kept by structure
+    (:class:`audit.core.Type3Contrast`; ``numpy.asarray`` gives the matrix)."""
+    return Type3Contrast(cells.J, cells.K, check_effect(effect))
 
 
 def empty_cell_labels(cells) -> list[str]:
@@ -99,7 +100,7 @@ def estimable_contrast(cells, effect: str) -> tuple[np.ndarray | None, np.ndarra
     filled = cells.counts.ravel() > 0
     C, reason = effect_hypothesis(cells, effect)
     if C is not None:
-        return np.asarray(C, dtype=float), filled, None
+        return (C if isinstance(C, Type3Contrast) else np.asarray(C, dtype=float)), filled, None
     empty = empty_cell_labels(cells)
     where = f"{len(empty)} empty cell(s): {', '.join(empty[:8])}" + (" ..." if len(empty) > 8 else "")
     if effect == "AB":
@@ -143,13 +144,13 @@ def welch_james_cells(means, variances, counts, C, *, dfs=None):
     No validation is done here (the function sits inside resampling loops):
     the callers make sure every cell has f_jk >= 1 and S C' is of full rank.
     """
-    C = np.asarray(C, dtype=float)
+    if not isinstance(C, Type3Contrast):
+        C = np.asarray(C, dtype=float)
     counts = np.asarray(counts, dtype=float)
     v = np.asarray(variances, dtype=float) / counts
     f = counts - 1.0 if dfs is None else np.asarray(dfs, dtype=float)
     r = C.shape[0]
-    T = wald_quadratic(means, v, C)
-    A = welch_james_a(v, f, C)
+    T, A = wald_and_a(means, v, f, C)
     c = r + 2.0 * A - 6.0 * A / (r + 2.0)
     with np.errstate(divide="ignore"):
         df2 = r * (r + 2.0) / (3.0 * A)

@@ -56,11 +56,23 @@ def _method_table(report) -> list[str]:
     return [line(head)] + [line(r) for r in rows]
 
 
+def _at_most(lines: list[str], k: int) -> list[str]:
+    """The first ``k`` wrapped lines, the last clipped with an ellipsis when more were cut (long
+    user names: the full report and the JSON keep them)."""
+    if len(lines) <= k:
+        return lines
+    out = lines[:k]
+    out[-1] = _clip(out[-1] + " \u2026", WIDTH - 1) if len(out[-1]) < WIDTH - 2 else _clip(out[-1], WIDTH - 1)
+    if not out[-1].endswith("\u2026"):
+        out[-1] = out[-1][:WIDTH - 2] + "\u2026"
+    return out
+
+
 def render_terminal(report) -> str:
     """The summary printed by ``check`` (see the module docstring)."""
-    def lay_out(note_lines: int, reason_lines: int) -> list[str]:
+    def lay_out(note_lines: int, reason_lines: int, name_lines: int = 2) -> list[str]:
         source = report.source if len(report.source) < WIDTH or not report.source_short else report.source_short
-        top = [*_wrap(report.title, "", _IND), *_wrap(source, "", _IND), ""]
+        top = [*_at_most(_wrap(report.title, "", _IND), name_lines), *_at_most(_wrap(source, "", _IND), name_lines), ""]
         v = report.verdict
         verdict: list[str] = []
         if v is not None:
@@ -93,7 +105,7 @@ def render_terminal(report) -> str:
                                 + " (they need the raw observations or an order/unit column)", _IND, _IND + "  ")
         tail = [""]
         if report.design_line:
-            tail += _wrap(report.design_line, "Level order: ", _IND)
+            tail += _at_most(_wrap(report.design_line, "Level order: ", _IND), name_lines)
         tail += [*_wrap(report.where, "", _IND), *_wrap(report.caution_short, "", _IND)]
         effects = [ln for e in (v.effects if v is not None else ()) for ln in _wrap(e, _IND, _IND + "  ")][:2]
 
@@ -121,9 +133,10 @@ def render_terminal(report) -> str:
         return top + verdict + reasons + effects + methods + checks + tail
 
     # the must-show reasons and wrapped notes can overrun the budget: squeeze the reasons to one
-    # line each (the verdict line above says the same in short), then the method notes
-    for note_lines, reason_lines in ((3, 2), (3, 1), (1, 1)):
-        lines = lay_out(note_lines, reason_lines)
+    # line each (the verdict line above says the same in short), then the method notes, then the
+    # title, data and level-order lines (very long user names)
+    for note_lines, reason_lines, name_lines in ((3, 2, 2), (3, 1, 2), (1, 1, 2), (1, 1, 1)):
+        lines = lay_out(note_lines, reason_lines, name_lines)
         if len(lines) <= MAX_LINES:
             break
     return sanitize("\n".join(lines), keep_newlines=True) + "\n"

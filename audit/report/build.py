@@ -14,6 +14,7 @@ import os
 import re
 from typing import TYPE_CHECKING
 
+from ..errors import shorten
 from . import format as fmt
 from .model import (Bullets, Check, Checks, Column, Figure, Lines, MethodRow, Paragraph, ReasonItem, Reasons, Report,
                     Section, Table, VerdictHead)
@@ -107,8 +108,25 @@ def figures_from_files(names) -> dict:
     return out
 
 
+#: user names (factors, response, levels, files) are shown at most this long in reports; the JSON
+#: keeps them whole (a 3,000-character column name must not turn a 40-line summary into 180)
+NAME_SHOWN = 48
+
+
+def _nm(x) -> str:
+    return shorten(str(x), NAME_SHOWN)
+
+
+def _levels_shown(levels, most: int = 12) -> str:
+    """'a, b, c' (each name shortened; more than ``most`` levels: the first ones and a count)."""
+    names = [_nm(x) for x in levels]
+    if len(names) <= most:
+        return ", ".join(names)
+    return ", ".join(names[:most - 2]) + f", ... ({len(names)} levels)"
+
+
 def _effect_names(f: Findings) -> dict:
-    a, b = f.factors
+    a, b = map(_nm, f.factors)
     return {"A": a, "B": b, "AB": f"{a} × {b}"}
 
 
@@ -377,15 +395,15 @@ def _design_section(f: Findings) -> Section:
     d = f.design
     a, b = f.factors
     la, lb = d.levels[a], d.levels[b]
-    lines = [f"Response: {f.response}; N used: {fmt.count(d.n)}.",
-             f"{a}: {len(la)} levels, in this order ({_why_order(d, a)}): {', '.join(map(str, la))}.",
-             f"{b}: {len(lb)} levels, in this order ({_why_order(d, b)}): {', '.join(map(str, lb))}."]
+    lines = [f"Response: {_nm(f.response)}; N used: {fmt.count(d.n)}.",
+             f"{_nm(a)}: {len(la)} levels, in this order ({_why_order(d, a)}): {', '.join(map(_nm, la))}.",
+             f"{_nm(b)}: {len(lb)} levels, in this order ({_why_order(d, b)}): {', '.join(map(_nm, lb))}."]
     ratio = f", largest/smallest cell {fmt.num(d.size_ratio, 3)}" if d.size_ratio else ""
     lines.append(f"Balance: {d.balance}{ratio}; empty cells: {len(d.empty_cells) or 'none'}; "
                  f"cells with one observation: {len(d.single_cells) or 'none'}.")
     dr = d.dropped_rows
     if dr.get("total"):
-        parts = [f"{c['a']} × {c['b']}: {c['n']}" for c in dr.get("missing_response_by_cell", [])]
+        parts = [f"{_nm(c['a'])} × {_nm(c['b'])}: {c['n']}" for c in dr.get("missing_response_by_cell", [])]
         extra = []
         if dr.get("missing_factor"):
             extra.append(f"{dr['missing_factor']} with a missing factor value")
@@ -401,7 +419,7 @@ def _design_section(f: Findings) -> Section:
     cells = {(c["a"], c["b"]): c for c in f.cell_table()}
     rows = []
     for x in la:
-        row = [str(x)]
+        row = [_nm(x)]
         for y in lb:
             c = cells[(x, y)]
             if c["n"] == 0:
@@ -410,7 +428,7 @@ def _design_section(f: Findings) -> Section:
                 sd = f" ({fmt.num(c['sd'], 3)})" if c["sd"] is not None else ""
                 row.append(f"n = {c['n']}: {fmt.num(c['mean'])}{sd}")
         rows.append(tuple(row))
-    blocks.append(Table(columns=(Column(title=f"{a} \\ {b}"), *(Column(title=str(y), align="r") for y in lb)),
+    blocks.append(Table(columns=(Column(title=f"{_nm(a)} \\ {_nm(b)}"), *(Column(title=_nm(y), align="r") for y in lb)),
                         rows=tuple(rows), caption="Cells: n, mean (SD)"))
     if d.notes:
         blocks.append(Bullets(items=tuple(str(n) for n in d.notes)))
@@ -482,9 +500,9 @@ def _anova_section(f: Findings) -> Section:
     a, b = f.factors
     lb = f.design.levels[b]
     terms = {(x["a"], x["b"]): x["term"] for x in f.interaction_table()}
-    rows = tuple((str(x), *[fmt.num(terms[(x, y)]) if (x, y) in terms else "empty" for y in lb])
+    rows = tuple((_nm(x), *[fmt.num(terms[(x, y)]) if (x, y) in terms else "empty" for y in lb])
                  for x in f.design.levels[a])
-    blocks.append(Table(columns=(Column(title=f"{a} \\ {b}"), *(Column(title=str(y), align="r") for y in lb)),
+    blocks.append(Table(columns=(Column(title=f"{_nm(a)} \\ {_nm(b)}"), *(Column(title=_nm(y), align="r") for y in lb)),
                         rows=rows, caption="Interaction terms: each cell mean minus the additive model's "
                                            "prediction (in response units)"))
     return Section(id="anova", title="Classical ANOVA, all three SS types", blocks=tuple(blocks))
@@ -575,7 +593,7 @@ def _provenance(f: Findings) -> Section:
     if p.get("calibration_replications"):
         lines.append(f"Size check: {fmt.count(p['calibration_replications'])} simulated datasets")
     if p.get("command"):
-        lines.append(f"Command: {p['command']}")
+        lines.append(f"Command: {shorten(str(p['command']), 400)}")
     return Section(id="provenance", title="Provenance", blocks=(Lines(lines=tuple(lines)),))
 
 
@@ -644,9 +662,9 @@ def build_report(f: Findings, *, figures: dict | None = None, report_dir: str | 
     src = f.provenance.get("input") or ("summary table" if f.mode == "summary" else "data frame")
     a, b = f.factors
     title = f"twoway-audit {f.provenance.get('version', '')}".strip() + \
-        f": {f.response} by {a} × {b} (alpha {_alpha(f)})"
-    source = f"Data: {src} ({fmt.count(f.design.n)} observations used)"
-    source_short = f"Data: {os.path.basename(str(src))} ({fmt.count(f.design.n)} observations used)"
+        f": {_nm(f.response)} by {_nm(a)} × {_nm(b)} (alpha {_alpha(f)})"
+    source = f"Data: {shorten(str(src), 200)} ({fmt.count(f.design.n)} observations used)"
+    source_short = f"Data: {_nm(os.path.basename(str(src)))} ({fmt.count(f.design.n)} observations used)"
     head, reasons = _verdict(f)
     rows = _method_rows(f) if f.methods else ()
     notes = _method_notes(f) if f.methods else ()
@@ -685,7 +703,7 @@ def build_report(f: Findings, *, figures: dict | None = None, report_dir: str | 
                 for c in blk.items:
                     all_figs.extend(c.figures)
     d = f.design
-    design_line = (f"{a}: {', '.join(map(str, d.levels[a]))}; {b}: {', '.join(map(str, d.levels[b]))} "
+    design_line = (f"{_nm(a)}: {_levels_shown(d.levels[a])}; {_nm(b)}: {_levels_shown(d.levels[b])} "
                    f"({d.balance}" + (f", {len(d.empty_cells)} empty cell(s)" if d.empty_cells else "") + ")")
     short = []
     ms = [m for m in f.methods if m.effect == "AB"]

@@ -184,7 +184,16 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special, stats
 
-from ..core import additive_design, contrast_matrix
+from ..core import (
+    Type3Contrast,
+    additive_design,
+    additive_residual,
+    check_dense_budget,
+    contrast_matrix,
+    structured_ss,
+    structured_ss_rdiag,
+    type3_main_wald,
+)
 from ..errors import OptionError
 
 __all__ = [
@@ -232,6 +241,10 @@ STATUSES = ("liberal", "conservative", "ok", "not-run")
 #: the Welch-James and HC rows are simulated only for hypotheses with at most this many contrasts
 #: (the batch holds R r x r matrices: 2,000 x 120 x 120 doubles is 230 MB)
 MAX_WALD_ROWS = 120
+#: bytes of simulated cell statistics (means, SS, variances of a block of replications)
+#: held at once; above it the replications are simulated and tested block by block, so
+#: memory stays O(cells) instead of O(R x cells)
+_SIM_BYTES = 96 * 2**20
 
 
 # ----------------------------------------------------------------------------- results
@@ -417,8 +430,18 @@ def _type3(J: int, K: int) -> dict[str, np.ndarray]:
     return {"A": np.kron(CJ, np.ones((1, K)) / K), "B": np.kron(np.ones((1, J)) / J, CK), "AB": np.kron(CJ, CK)}
 
 
+def _big(r: int, m: int) -> bool:
+    """Large enough for the structured forms (the threshold of :mod:`audit.methods.wald`,
+    so small designs keep their dense numbers bit for bit)."""
+    from ..methods.wald import _DENSE_WORK
+
+    return r * r * m >= _DENSE_WORK
+
+
 def _residual_maker(X: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, int]:
     """P with r = P @ y the n-weighted LS residual of y on X (rows with w > 0)."""
+    check_dense_budget(8.0 * len(w) * (len(w) + X.shape[1]), what="the size check's classical F with empty cells",
+                       J=len(w), K=None, skip="turn the size check off (check(calibration=0), --calibration 0)")
     sw = np.sqrt(w)
     Xw = X * sw[:, None]
     Q, s, _ = np.linalg.svd(Xw, full_matrices=False)
@@ -459,9 +482,23 @@ def classical_f_batch(means, css, counts, J: int, K: int, *, filled=None):
     df2 = float(n.sum() - m)
     with np.errstate(divide="ignore", invalid="ignore"):
         mse = css.sum(axis=1) / df2 if df2 > 0 else np.full(means.shape[0], np.nan)
+    out = {}
+    if m == J * K and _big((J - 1) * (K - 1), m):
+        # structured (full grid): the additive fit by the core's solver, Type III main
+        # effects by the weighted mean of the unweighted marginal means; O(cells) per dataset
+        r, rank_add = additive_residual(n.reshape(J, K), means.reshape(-1, J, K))
+        r = r.reshape(means.shape)
+        ss = {e: type3_main_wald(means, 1.0 / n, J, K, e) for e in ("A", "B")}
+        ss["AB"] = np.sum(n * r * r, axis=1)
+        dfs = {"A": J - 1, "B": K - 1, "AB": m - rank_add}
+        for e in EFFECTS:
+            d1 = dfs[e]
+            with np.errstate(divide="ignore", invalid="ignore"):
+                F = (np.maximum(ss[e], 0.0) / d1) / mse if d1 > 0 else np.full(means.shape[0], np.nan)
+            out[e] = (np.where(mse > 0, F, np.nan), float(d1), df2)
+        return out
     X = additive_design(J, K)[filled]
     P_add, rank_add = _residual_maker(X, n)
-    out = {}
     r = means @ P_add.T
     ss_ab = np.sum(n * r * r, axis=1)
     df_ab = m - rank_add
@@ -494,8 +531,36 @@ def _batched_wald(means, v, C, *, need_r=True):
 
     Returns T (R,), Rdiag (R, m) or None, and a boolean (R,) marking rows whose
     r x r matrix is positive definite (the others hold NaN).
+
+    A large :class:`audit.core.Type3Contrast` takes the structured forms
+    (:func:`audit.core.structured_ss`, :func:`audit.core.structured_rdiag`): O(cells)
+    per row for a main effect; rows whose form needs a zero variance (a main effect's
+    marginal variance, any cell for the interaction) are marked not good.
     """
-    r = C.shape[0]
+    if isinstance(C, Type3Contrast) and _big(*C.shape):
+        if C.effect == "AB":
+            good = np.all(np.isfinite(v) & (v > 0), axis=1)
+        else:
+            w = v.reshape(-1, C.J, C.K).sum(axis=2 if C.effect == "A" else 1)
+            good = np.all(np.isfinite(v), axis=1) & np.all(w > 0, axis=1)
+        vs = np.where(good[:, None], v, 1.0)
+        with np.errstate(all="ignore"):
+            if need_r:
+                T, Rdiag = structured_ss_rdiag(C, means, vs)
+            else:
+                T, Rdiag = structured_ss(C, means, vs), None
+            T = np.where(good, T, np.nan)
+        return T, Rdiag, good
+    if isinstance(C, Type3Contrast):
+        C = C.dense()
+    r, m = C.shape
+    rows = max(1, _SIM_BYTES // (16 * r * m))               # (rows, r, m) products held twice
+    if means.shape[0] > rows:                               # rows are independent: same numbers by blocks
+        parts = [_batched_wald(means[i:i + rows], v[i:i + rows], C, need_r=need_r)
+                 for i in range(0, means.shape[0], rows)]
+        return (np.concatenate([p[0] for p in parts]),
+                np.concatenate([p[1] for p in parts]) if need_r else None,
+                np.concatenate([p[2] for p in parts]))
     Cy = means @ C.T                                        # (R, r)
     M = (C[None, :, :] * v[:, None, :]) @ C.T               # (R, r, r)
     good = np.all(np.isfinite(v), axis=1)
@@ -543,7 +608,7 @@ def welch_james_batch(means, variances, counts, C):
     means = np.atleast_2d(np.asarray(means, dtype=float))
     n = np.asarray(counts, dtype=float)
     v = np.atleast_2d(np.asarray(variances, dtype=float)) / n
-    C = np.asarray(C, dtype=float)
+    C = C if isinstance(C, Type3Contrast) else np.asarray(C, dtype=float)
     r = C.shape[0]
     T, Rdiag, good = _batched_wald(means, v, C)
     A = np.sum(Rdiag * Rdiag / (n - 1.0), axis=1)
@@ -579,7 +644,7 @@ def hc_wald_batch(means, css, counts, C, *, kind: str = "hc3"):
     else:
         raise OptionError(f"kind: expected 'hc3' or 'hc4', found {kind!r}")
     v = css / (n * n * (1.0 - h) ** delta)
-    C = np.asarray(C, dtype=float)
+    C = C if isinstance(C, Type3Contrast) else np.asarray(C, dtype=float)
     r = C.shape[0]
     W, _, good = _batched_wald(means, v, C, need_r=False)
     F = np.where(good, W / r, np.nan)
@@ -840,9 +905,12 @@ def _pilot_log_variance(rng, counts, pool, reps: int = PILOT_REPLICATIONS):
     d = np.maximum(nn - 1.0, 1.0)
     centre = special.digamma(d / 2.0) - np.log(d / 2.0)
     svar = special.polygamma(1, d / 2.0)
-    _, css = _simulate_cells(rng, nn[live], pool, reps)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        ls = np.log(css / (nn[live] - 1.0))
+    block = _block_size(rng, nn[live], pool, reps, arrays=2)
+    ls = np.empty((reps, int(live.sum())))
+    for lo in range(0, reps, block):
+        _, css = _simulate_cells(rng, nn[live], pool, min(block, reps - lo))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ls[lo:lo + css.shape[0]] = np.log(css / (nn[live] - 1.0))
     fin = np.isfinite(ls)
     cnt = fin.sum(axis=0)
     ok = cnt >= reps // 2
@@ -853,6 +921,18 @@ def _pilot_log_variance(rng, counts, pool, reps: int = PILOT_REPLICATIONS):
     centre[idx[ok]] = mu[ok]
     svar[idx[ok]] = var[ok]
     return centre.reshape(shape), svar.reshape(shape)
+
+
+def _block_size(rng, counts, pool, R: int, *, arrays: int = 4) -> int:
+    """Replications simulated at once: all R when ``arrays`` (R, m) float arrays fit
+    :data:`_SIM_BYTES` (the numbers of one draw), else blocks of a multiple of the
+    resampler's own chunk (so resampled errors are the same draws as in one call)."""
+    m = max(int(np.asarray(counts).size), 1)
+    if R * m * 8 * arrays <= _SIM_BYTES:
+        return max(R, 1)
+    N = int(np.asarray(counts).sum())
+    inner = max(1, min(R, _CHUNK_ELEMENTS // max(N, 1))) if pool is not None else 1
+    return max(inner, (_SIM_BYTES // (m * 8 * arrays)) // inner * inner)
 
 
 def _check_replications(R) -> int:
@@ -1014,6 +1094,12 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
             raise OptionError(f"effects: expected effects among {EFFECTS}, found {e!r}")
     effects = tuple(e for e in EFFECTS if e in effects)
     cells = fit.cells
+    # the size check is scale-free: variances are simulated in units of an exact power of two
+    # (CellStats.standardised), so that SDs near 1e-300 or 1e300 neither underflow nor overflow
+    # when squared; the reported SDs and target variance are restored to the response scale
+    st = cells.standardised()
+    unit = st.unit
+    var_std = st.variances
     J, K = cells.J, cells.K
     counts = cells.counts
     filled = counts.ravel() > 0
@@ -1039,11 +1125,11 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
         # the sampling spread of log s2 under this residual shape, from a pilot on residuals
         # standardised by the normal-theory moderated SDs (standardising by each cell's own
         # SD would clip the tails of small cells and understate that spread)
-        post1, _, _ = moderated_variances(cells.variances, counts, prior_df=math.inf)
-        pilot_pool = _standardised_pool(fit, np.sqrt(post1))
+        post1, _, _ = moderated_variances(var_std, counts, prior_df=math.inf)
+        pilot_pool = _standardised_pool(fit, np.sqrt(post1) * unit)
         if pilot_pool.size >= 2:
             sampling = _pilot_log_variance(rng, counts, pilot_pool)
-    post, d0, pooled = moderated_variances(cells.variances, counts, prior_df=prior_df, sampling=sampling)
+    post, d0, pooled = moderated_variances(var_std, counts, prior_df=prior_df, sampling=sampling)
     if isinstance(prior_df, str):
         smethod = "equal" if math.isinf(d0) else "moderated"
     else:
@@ -1057,14 +1143,18 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
         "none": "each cell simulated with its own variance (no moderation)",
         "fixed-prior": f"cell variances moderated toward the pooled variance with a given prior df d0 = {d0:.3g}",
     }[smethod]
-    zero_sd = (counts > 1) & (np.nan_to_num(cells.variances) == 0)
+    zero_sd = (counts > 1) & (np.nan_to_num(var_std) == 0)
     if zero_sd.any():
         snote += (f"; {int(zero_sd.sum())} cell(s) with zero SD (ties or rounding?) "
                   + ("keep zero variance" if smethod == "none" else "take the moderated variance"))
-    cell_sd_json = [[(float(x) if np.isfinite(x) else None) for x in row] for row in sd_cells]
+    with np.errstate(all="ignore"):
+        sd_shown = sd_cells * unit
+        pooled_shown = float(pooled) * unit * unit
+    cell_sd_json = [[(float(x) if np.isfinite(x) else None) for x in row] for row in sd_shown]
     shrink = Shrinkage(method=smethod, prior_df=None if math.isinf(d0) else float(d0),
                        complete=bool(math.isinf(d0)),
-                       target_variance=float(pooled) if np.isfinite(pooled) else None,
+                       target_variance=pooled_shown if math.isfinite(pooled_shown) and
+                       (pooled_shown != 0 or pooled == 0) else None,
                        cell_sd=cell_sd_json, note=snote)
 
     def result(rows, source, enote, extra_notes=(), lam=None):
@@ -1113,38 +1203,53 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
                      if fit.obs is None else "normal errors (no usable residuals)")
     sims = {}
     if runnable:
-        zm, zc = _simulate_cells(rng, n, pool, R)
-        sd = sd_cells.ravel()[filled]
-        means = zm * sd
-        css = zc * sd * sd
-        with np.errstate(divide="ignore", invalid="ignore"):
-            var = np.where(n > 1, css / np.maximum(n - 1, 1), np.nan)
-        C3 = _type3(J, K) if all_filled else None
+        C3 = {e: Type3Contrast(J, K, e) for e in EFFECTS} if all_filled else None
         for mth in runnable:
             if mth == "classical-f":
-                fb = classical_f_batch(means, css, n, J, K, filled=filled)
-                for e in effects:
-                    F, d1, d2 = fb[e]
-                    if d1 <= 0:
-                        sims[(mth, e)] = f"not run: the {e} effect has no degrees of freedom in the filled cells"
-                        continue
-                    p = np.full(F.shape, np.nan)
-                    ok = np.isfinite(F)
-                    p[ok] = stats.f.sf(F[ok], d1, d2)
-                    sims[(mth, e)] = p
-            else:
-                for e in effects:
-                    if C3[e].shape[0] > MAX_WALD_ROWS:
-                        sims[(mth, e)] = (f"not run: the {e} hypothesis has {C3[e].shape[0]} contrasts (more than "
-                                          f"{MAX_WALD_ROWS}); its batched covariance would take too much time and "
-                                          "memory, so this method's trust rests on the rule table")
-                        continue
-                    with np.errstate(all="ignore"):
-                        if mth == "welch-james":
-                            p = welch_james_batch(means, var, n, C3[e])[2]
-                        else:
-                            p = hc_wald_batch(means, css, n, C3[e], kind=mth.split("-")[0])[1]
-                    sims[(mth, e)] = p
+                continue
+            for e in effects:
+                r = C3[e].shape[0]
+                # a main effect of a full grid has an O(cells) form; the interaction's batched
+                # covariance (or any dense one) is kept to at most MAX_WALD_ROWS contrasts
+                if r > MAX_WALD_ROWS and (e == "AB" or not _big(r, C3[e].shape[1])):
+                    sims[(mth, e)] = (f"not run: the {e} hypothesis has {r} contrasts (more than "
+                                      f"{MAX_WALD_ROWS}); its batched covariance would take too much time and "
+                                      "memory, so this method's trust rests on the rule table")
+        sd = sd_cells.ravel()[filled]
+        block = _block_size(rng, n, pool, R)
+        parts: dict = {}
+        for lo in range(0, R, block):
+            zm, zc = _simulate_cells(rng, n, pool, min(block, R - lo))
+            means = zm * sd
+            css = zc * sd * sd
+            del zm, zc
+            with np.errstate(divide="ignore", invalid="ignore"):
+                var = np.where(n > 1, css / np.maximum(n - 1, 1), np.nan)
+            for mth in runnable:
+                if mth == "classical-f":
+                    fb = classical_f_batch(means, css, n, J, K, filled=filled)
+                    for e in effects:
+                        F, d1, d2 = fb[e]
+                        if d1 <= 0:
+                            sims[(mth, e)] = f"not run: the {e} effect has no degrees of freedom in the filled cells"
+                            continue
+                        p = np.full(F.shape, np.nan)
+                        ok = np.isfinite(F)
+                        p[ok] = stats.f.sf(F[ok], d1, d2)
+                        parts.setdefault((mth, e), []).append(p)
+                else:
+                    for e in effects:
+                        if (mth, e) in sims:
+                            continue
+                        with np.errstate(all="ignore"):
+                            if mth == "welch-james":
+                                p = welch_james_batch(means, var, n, C3[e])[2]
+                            else:
+                                p = hc_wald_batch(means, css, n, C3[e], kind=mth.split("-")[0])[1]
+                        parts.setdefault((mth, e), []).append(p)
+        for key, ps in parts.items():
+            if key not in sims:
+                sims[key] = np.concatenate(ps)
 
     def ab_p(mth, mm, cc, vv):
         with np.errstate(all="ignore"):

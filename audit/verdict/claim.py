@@ -18,17 +18,31 @@ Accepted forms (spaces optional, case-insensitive):
 - a trailing effect size or MSE (``, partial eta^2 = .13``, ``, MSE = 13.2``) is ignored
 - unicode minus and dashes, ``≤``/``≥``, non-breaking spaces, ``*`` / ``_`` emphasis
   marks and a final full stop are normalised away
+
+Untrusted text is bounded before and after parsing: a claim longer than
+:data:`MAX_CLAIM_CHARS` is refused before any regular expression sees it; every
+number must have at most :data:`MAX_SIGNIFICANT_DIGITS` significant digits and lie
+in the float range (no overflow to infinity, no nonzero value that underflows to 0
+or below the smallest normal float); F and the df must be finite.  Errors echo the
+claim through :func:`audit.errors.shorten`.  All of these raise
+:class:`audit.errors.ClaimError`.
 """
 
 from __future__ import annotations
 
 import re
+import sys
 from dataclasses import dataclass
 from typing import Mapping
 
-from ..errors import OptionError
+from ..errors import ClaimError, OptionError, shorten
 
-__all__ = ["Claim", "parse_claim", "EXAMPLES"]
+__all__ = ["Claim", "parse_claim", "EXAMPLES", "MAX_CLAIM_CHARS", "MAX_SIGNIFICANT_DIGITS"]
+
+#: longest claim accepted, in characters (a reported test line is well under 100)
+MAX_CLAIM_CHARS = 300
+#: most significant digits accepted in a number of a claim (float64 carries 17)
+MAX_SIGNIFICANT_DIGITS = 20
 
 EXAMPLES = ("AB: F(2, 54) = 4.11, p = .022", "A: p < .001")
 
@@ -170,12 +184,30 @@ def _decimals(token: str) -> int:
     return max(d, 0)
 
 
-def _fail(text: str, found: str, fix: str = "") -> OptionError:
-    return OptionError(
-        f"claim {text!r}: expected a reported test such as {EXAMPLES[0]!r} or {EXAMPLES[1]!r} "
+def _fail(text: str, found: str, fix: str = "") -> ClaimError:
+    return ClaimError(
+        f"claim {repr(shorten(text))}: expected a reported test such as {EXAMPLES[0]!r} or {EXAMPLES[1]!r} "
         f"(or the words present / absent / ns, optionally after a label AB:, A: or B:); "
-        f"found {found}; fix: {fix or 'rewrite the claim in one of these forms'}."
+        f"found {shorten(found)}; fix: {fix or 'rewrite the claim in one of these forms'}."
     )
+
+
+def _number(text: str, token: str, name: str) -> float:
+    """A number of the claim, bounded: at most MAX_SIGNIFICANT_DIGITS significant digits,
+    finite, and not a nonzero value outside the normal float range."""
+    mant = token.lstrip("-").lower().partition("e")[0]
+    digits = mant.replace(".", "").lstrip("0")
+    if len(digits) > MAX_SIGNIFICANT_DIGITS:
+        raise _fail(text, f"{name} = {token} ({len(digits):,} significant digits)",
+                    f"give {name} with at most {MAX_SIGNIFICANT_DIGITS} significant digits, as reported")
+    v = float(token)
+    if v != v or v in (float("inf"), float("-inf")):
+        raise _fail(text, f"{name} = {token}, beyond the float range (about 1.8e308)",
+                    f"give the reported value of {name}, a finite number")
+    if digits.rstrip("0") and abs(v) < sys.float_info.min:
+        raise _fail(text, f"{name} = {token}, below the smallest normal float (about 2.2e-308)",
+                    f"report a value this small as a bound, e.g. {name} < 1e-300")
+    return v
 
 
 def _normalise(text: str) -> str:
@@ -196,7 +228,7 @@ def _effect_of_label(label: str, text: str, names: Mapping[str, str] | None) -> 
             if _label_key(_normalise(str(name))) == key:
                 if eff not in ("A", "B", "AB"):
                     raise OptionError(
-                        f"claim labels: the label {name!r} maps to {eff!r}; expected 'A', 'B' or 'AB'; "
+                        f"claim labels: the label {repr(shorten(str(name)))} maps to {repr(shorten(str(eff)))}; expected 'A', 'B' or 'AB'; "
                         f"fix: map each factor or interaction name to one of them."
                     )
                 return eff
@@ -230,15 +262,22 @@ def parse_claim(text: str, *, effect: str | None = None, names: Mapping[str, str
 
     Raises
     ------
-    audit.errors.OptionError
-        When the text is not one of the accepted forms, a label is unknown, or a
-        value is impossible (negative F, p outside [0, 1], df not positive).
+    audit.errors.ClaimError
+        (an :class:`audit.errors.OptionError`) when the text is longer than
+        :data:`MAX_CLAIM_CHARS`, not one of the accepted forms, a label is unknown,
+        or a value is impossible (negative F, p outside [0, 1], df not positive) or
+        unbounded (more than :data:`MAX_SIGNIFICANT_DIGITS` significant digits,
+        outside the float range, not finite).
     """
     if not isinstance(text, str):
         raise _fail(repr(text), f"a {type(text).__name__}, not text", "pass the claim as a string")
+    if len(text) > MAX_CLAIM_CHARS:
+        raise ClaimError(
+            f"claim {repr(shorten(text))}: expected at most {MAX_CLAIM_CHARS} characters (a reported test such "
+            f"as {EXAMPLES[0]!r}); found {len(text):,}; fix: give only the test line of the claim.")
     if effect is not None and effect not in ("A", "B", "AB"):
         raise OptionError(
-            f"claim effect: expected 'A', 'B' or 'AB'; found {effect!r}; fix: name the effect the claim is about."
+            f"claim effect: expected 'A', 'B' or 'AB'; found {repr(shorten(str(effect)))}; fix: name the effect the claim is about."
         )
     s = _normalise(text)
     if not s:
@@ -262,21 +301,21 @@ def parse_claim(text: str, *, effect: str | None = None, names: Mapping[str, str
     g = t.groupdict()
     if g.get("p2") is not None:
         g["p"], g["prel"] = g["p2"], g["prel2"]
-    df1 = float(g["df1"]) if g.get("df1") else None
-    df2 = float(g["df2"]) if g.get("df2") else None
+    df1 = _number(text, g["df1"], "df1") if g.get("df1") else None
+    df2 = _number(text, g["df2"], "df2") if g.get("df2") else None
     for name, v in (("df1", df1), ("df2", df2)):
         if v is not None and not v > 0:
             raise _fail(text, f"{name} = {v:g}", "degrees of freedom are positive numbers")
     F = F_rel = F_dec = None
     if g.get("F") is not None:
-        F = float(g["F"])
+        F = _number(text, g["F"], "F")
         if F < 0:
             raise _fail(text, f"F = {g['F']}", "an F statistic is never negative; check the sign")
         F_rel = _RELATIONS[g["frel"]]
         F_dec = _decimals(g["F"])
     p = p_rel = p_dec = None
     if g.get("p") is not None:
-        p = float(g["p"])
+        p = _number(text, g["p"], "p")
         if not 0.0 <= p <= 1.0:
             raise _fail(text, f"p = {g['p']}", "a p value lies between 0 and 1")
         p_rel = _RELATIONS[g["prel"]]

@@ -25,10 +25,12 @@ effect? Equivalence tests for ANOVA" (British Journal of Mathematical and Statis
 Psychology; from memory): with the bound expressed as a noncentrality lambda_b,
 p = P(F'(df1, df2, lambda_b) <= F_observed), the noncentral F's CDF at the observed F.
 
-Numerics: scipy's noncentral F can return NaN for extreme arguments (infinite df2, huge
-lambda); the functions then fall back to the df2 -> infinity limit, the noncentral
-chi-square on df1 F with df1 df, and say so.  They never raise on numbers: a value that
-cannot be computed is None with a note.  Options (bound, alpha, power) are checked and
+Numerics: every noncentral F probability goes through :func:`audit.core.ncf_tail`, which
+calls scipy's noncentral F only inside the box of arguments where it is safe (outside it
+scipy returns NaN, values above 1, runs for seconds, or aborts the process from C++) and
+uses large-argument normal approximations beyond it (``method`` says so); infinite df2 is
+the noncentral chi-square limit.  Root searches are bounded (200 iterations).  The
+functions never raise on numbers: a value that cannot be computed is None with a note.  Options (bound, alpha, power) are checked and
 raise :class:`audit.errors.OptionError`.
 """
 
@@ -63,6 +65,7 @@ EQUIVALENCE_SOURCE = (
 )
 _NCF = "noncentral F"
 _NCX2 = "noncentral chi-square limit (df2 -> infinity)"
+_APPROX = "noncentral F (large-argument normal approximations)"
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -91,7 +94,8 @@ class DetectableEffect:
     observed_rms_term : float or None
         sqrt(SS_effect / N): the observed counterpart of ``rms_term`` (interaction only).
     method : str or None
-        'noncentral F' or 'noncentral chi-square limit (df2 -> infinity)'.
+        'noncentral F', 'noncentral F (large-argument normal approximations)' or
+        'noncentral chi-square limit (df2 -> infinity)'.
     convention : str
         The noncentrality convention used.
     note : str or None
@@ -139,7 +143,7 @@ class EquivalenceResult:
     equivalent : bool or None
         p < alpha: the effect is smaller than the bound at level alpha.
     method : str or None
-        'noncentral F' or the chi-square limit.
+        'noncentral F', its large-argument approximation or the chi-square limit.
     source : str
     note : str or None
     """
@@ -178,21 +182,19 @@ def _prob(v) -> float | None:
 
 
 def _noncentral_f_tail(x: float, df1: float, df2: float, nc: float, *, upper: bool):
-    """One tail of the noncentral F: scipy's noncentral F, else its noncentral chi-square limit
-    (df2 -> infinity) when scipy gives NaN or df2 is infinite; (None, None) when neither works."""
-    tail = "sf" if upper else "cdf"
-    with np.errstate(all="ignore"):
-        try:
-            if math.isfinite(df2):
-                v = _prob(getattr(stats.ncf, tail)(x, df1, df2, nc) if nc > 0
-                          else getattr(stats.f, tail)(x, df1, df2))
-                if v is not None:
-                    return v, _NCF
-            v = _prob(getattr(stats.ncx2, tail)(x * df1, df1, nc) if nc > 0
-                      else getattr(stats.chi2, tail)(x * df1, df1))
-            return (v, _NCX2) if v is not None else (None, None)
-        except (ValueError, OverflowError, ArithmeticError):
-            return None, None
+    """One tail of the noncentral F through the guarded evaluator :func:`audit.core.ncf_tail`
+    (scipy's noncentral F only inside the box of arguments where it is safe, large-argument
+    approximations outside it; df2 = infinity gives the noncentral chi-square limit);
+    (None, None) when it cannot be computed."""
+    from ..core import NCF_ROUTE_APPROX, ncf_tail
+
+    v, route = ncf_tail(x, df1, df2, nc, upper=upper)
+    v = _prob(v)
+    if v is None:
+        return None, None
+    if not math.isfinite(float(df2)):
+        return v, _NCX2
+    return v, (_APPROX if route == NCF_ROUTE_APPROX else _NCF)
 
 
 def noncentral_f_sf(x: float, df1: float, df2: float, nc: float) -> tuple[float | None, str | None]:
@@ -234,11 +236,33 @@ def noncentral_f_cdf(x: float, df1: float, df2: float, nc: float) -> tuple[float
 
 
 def _critical(alpha: float, df1: float, df2: float) -> float | None:
+    """The central F's upper alpha point: scipy's within the box where its noncentral F is
+    trusted (:data:`audit.core.NCF_SCIPY_MAX_DF`), else the root of the guarded tail, started
+    from the chi-square limit (df2 infinite: that limit)."""
+    from ..core import NCF_SCIPY_MAX_DF
+
     with np.errstate(all="ignore"):
-        c = float(stats.f.isf(alpha, df1, df2)) if math.isfinite(df2) else math.nan
-        if not math.isfinite(c):
-            c = float(stats.chi2.isf(alpha, df1)) / df1
-    return c if math.isfinite(c) else None
+        lim = float(stats.chi2.isf(alpha, df1)) / df1
+        if not math.isfinite(df2):
+            return lim if math.isfinite(lim) else None
+        if df1 <= NCF_SCIPY_MAX_DF and df2 <= NCF_SCIPY_MAX_DF:
+            c = float(stats.f.isf(alpha, df1, df2))
+            if math.isfinite(c):
+                return c
+        if not (math.isfinite(lim) and lim > 0):
+            return None
+
+        def gap(x):
+            v, _ = noncentral_f_sf(x, df1, df2, 0.0)
+            return (v if v is not None else math.nan) - alpha
+
+        try:
+            lo, hi = lim / 2.0, lim * 2.0
+            if not (gap(lo) > 0 > gap(hi)):
+                return None
+            return float(optimize.brentq(gap, lo, hi, xtol=1e-14, rtol=1e-12, maxiter=200))
+        except (ValueError, RuntimeError, ArithmeticError):
+            return None
 
 
 def _solve_noncentrality(alpha: float, power: float, df1: float, df2: float) -> tuple[float | None, str | None]:
@@ -365,11 +389,15 @@ def detectable_interaction(anova, *, alpha: float = 0.05, power: float = 0.8, ef
     if effect != "AB":
         note = "rms_term is given for the interaction only."
     elif anova.ms_error is None or not n_obs:
-        note = "No error variance: the size in response units cannot be given."
+        note = ("No error variance on the response's scale (none, or outside the float64 range): the size in "
+                "response units cannot be given.")
     else:
-        rms = math.sqrt(lam * float(anova.ms_error) / n_obs)
+        rms = math.sqrt(lam / n_obs) * math.sqrt(float(anova.ms_error))   # no overflow of lam * MS_error
     if method == _NCX2:
         note = ((note + " ") if note else "") + "Computed with the noncentral chi-square limit (large df2)."
+    elif method == _APPROX:
+        note = (((note + " ") if note else "")
+                + "Computed with large-argument normal approximations of the noncentral F.")
     return DetectableEffect(noncentrality=lam, partial_eta_sq=eta, cohens_f=f, rms_term=rms, method=method,
                             note=note, **base)
 
@@ -445,18 +473,24 @@ def equivalence_test(
             return out(bound_partial_eta_sq=eta,
                        note="With infinite df2 a partial eta squared bound has no finite noncentrality; "
                             "give the bound in response units.")
-        rms = math.sqrt(lam * float(ms_error) / n_obs) if can_convert else None
+        rms = math.sqrt(lam / n_obs) * math.sqrt(float(ms_error)) if can_convert else None
     else:
         if not can_convert:
             return out(note="A bound in response units needs N and a positive MS_error; the test cannot be formed.")
         rms = float(bound_rms)
-        lam = n_obs * rms**2 / float(ms_error)
+        r = rms / math.sqrt(float(ms_error))        # scale-free before squaring (no overflow)
+        lam = n_obs * r * r
         eta = lam / (lam + total) if math.isfinite(total) else None
+    if not math.isfinite(lam):
+        return out(bound_partial_eta_sq=None, bound_rms=rms,
+                   note="The bound's noncentrality is beyond the float64 range; the test cannot be formed.")
     p, method = noncentral_f_cdf(F, df1, df2, lam)
     note = None
     if p is None:
         note = "The noncentral F probability could not be computed for these values."
     elif method == _NCX2:
         note = "Computed with the noncentral chi-square limit (large df2)."
+    elif method == _APPROX:
+        note = "Computed with large-argument normal approximations of the noncentral F."
     return out(bound_partial_eta_sq=eta, bound_rms=rms, noncentrality=lam, p=p,
                equivalent=None if p is None else bool(p < alpha), method=method, note=note)
