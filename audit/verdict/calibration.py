@@ -76,7 +76,7 @@ test has power ``POWER_TARGET`` = 0.5.  ``power`` is the share with p < alpha;
 ``adjusted_power`` rejects at the method's ``critical_p`` (the smaller of alpha and
 the alpha-quantile of its simulated null p-values), so warm methods gain nothing.
 The verdict's primary test is chosen on these (``audit.verdict.trust``).  The
-variance-noise bias of each interaction size (``_variance_noise_bias``: the
+variance-noise bias of each interaction size (``_noise_sets``: the
 simulated variances re-estimated as the data would, a bootstrap bias) is
 subtracted before the status is judged.  Cells of 2 do not enter the resampled
 residual pool (their standardised residuals are exactly -1 and +1).
@@ -286,7 +286,7 @@ class CalibrationRow:
         power at a simulated size of at most alpha, comparable across methods.
     bias : float or None
         Interaction rows: the bootstrap bias of ``size`` from the noise of the
-        simulated cell variances (``_variance_noise_bias``); the status is
+        simulated cell variances (``_noise_sets``); the status is
         judged on size - bias.  None when not estimated (equal variances
         simulated, or R < 400).
     critical_p : float or None
@@ -975,43 +975,24 @@ def _status(k: int, R: int, alpha: float, bias: float = 0.0) -> tuple[str, tuple
 NOISE_SETS = 8
 
 
-def _variance_noise_bias(rng, ab_p, runnable, zm, zc, n, post, d0: float, alpha: float, sims) -> dict:
-    """Bootstrap bias of each method's simulated interaction size from the noise of the cell
-    variances it simulates with (Efron & Tibshirani 1993, ch. 10): the simulated variances are
-    themselves estimates, more dispersed than the true ones, and the size of a method at
-    dispersed variances is further from alpha than at the truth.  Re-estimate them as the data
-    would, NOISE_SETS times: s2* = post chi2(d) / d per cell (normal theory, d = n - 1), moderated
-    again with the same prior df toward their own pooled value; each set's size uses
-    R / NOISE_SETS of the same null errors.  bias = mean size at the re-estimated variances minus
-    the size at ``post``; the status is judged on the size minus this bias."""
-    R = zm.shape[0]
-    Rb = R // NOISE_SETS
-    d = np.maximum(n - 1.0, 0.0)
+def _noise_sets(rng, n, post, d0: float) -> list:
+    """The cell SDs of the bias pass (the noise of the simulation's own variance estimates): the
+    simulated variances are themselves estimates, more dispersed than the true ones, and a
+    method's size at dispersed variances is further from alpha than at the truth.  Re-estimate
+    them as the data would, NOISE_SETS times: s2* = post chi2(d) / d per cell (normal theory,
+    d = n - 1), moderated again with the same prior df toward their own pooled value.  Each set's
+    size uses R / NOISE_SETS of the same null errors; bias = mean size over the sets minus the
+    size at ``post`` (a bootstrap bias, Efron & Tibshirani 1993 ch. 10), and the interaction
+    status is judged on size - bias."""
+    d = np.maximum(np.asarray(n, dtype=float) - 1.0, 0.0)
     live = d > 0
-    rates = {m: [] for m in runnable}
-    for k in range(NOISE_SETS):
-        s2 = post.copy()
+    out = []
+    for _ in range(NOISE_SETS):
+        s2 = np.array(post, dtype=float)
         s2[live] = post[live] * rng.chisquare(d[live]) / d[live]
         pooled = float(np.sum(d * s2) / np.sum(d))
-        if d0 == 0:
-            v = s2
-        else:
-            v = np.where(live, (d0 * pooled + d * s2) / (d0 + d), pooled)
-        sd = np.sqrt(v)
-        sl = slice(k * Rb, (k + 1) * Rb)
-        mm, cc = zm[sl] * sd, zc[sl] * sd * sd
-        with np.errstate(divide="ignore", invalid="ignore"):
-            vv = np.where(n > 1, cc / np.maximum(n - 1, 1), np.nan)
-        for mth in runnable:
-            pp = ab_p(mth, mm, cc, vv)
-            ok = np.isfinite(pp)
-            if ok.any():
-                rates[mth].append(float(np.mean(pp[ok] < alpha)))
-    out = {}
-    for mth, rs in rates.items():
-        p0 = sims.get((mth, "AB"))
-        if rs and isinstance(p0, np.ndarray) and np.isfinite(p0).any():
-            out[mth] = float(np.mean(rs)) - float(np.mean(p0[np.isfinite(p0)] < alpha))
+        v = s2 if d0 == 0 else np.where(live, (d0 * pooled + d * s2) / (d0 + d), pooled)
+        out.append(np.sqrt(v))
     return out
 
 
@@ -1040,6 +1021,7 @@ def _alternatives(rng, C, v, df_e: float, alpha: float, R: int):
     n) equals lambda, the noncentrality at which the F(r, N - m) test has power POWER_TARGET.
     The shift is the minimum-norm d with that C d; every interaction statistic is invariant to
     the additive part, so only C d matters.  Returns (lambda, shifts)."""
+    C = np.asarray(C, dtype=float)      # a Type3Contrast's dense form (at most MAX_WALD_ROWS rows)
     r = C.shape[0]
     lam = alternative_noncentrality(r, df_e, alpha)
     L = np.linalg.cholesky((C * v[None, :]) @ C.T)
@@ -1202,8 +1184,21 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
             enote = ("normal errors (only cell summaries are known, so the residual shape cannot be kept)"
                      if fit.obs is None else "normal errors (no usable residuals)")
     sims = {}
+    ab_ok, lam = False, None
     if runnable:
         C3 = {e: Type3Contrast(J, K, e) for e in EFFECTS} if all_filled else None
+
+        def ab_p(mth, mm, cc, vv):
+            with np.errstate(all="ignore"):
+                if mth == "classical-f":
+                    F, d1, d2 = classical_f_batch(mm, cc, n, J, K, filled=filled)["AB"]
+                    pp = np.full(F.shape, np.nan)
+                    good = np.isfinite(F)
+                    pp[good] = stats.f.sf(F[good], d1, d2)
+                    return pp
+                if mth == "welch-james":
+                    return welch_james_batch(mm, vv, n, C3["AB"])[2]
+                return hc_wald_batch(mm, cc, n, C3["AB"], kind=mth.split("-")[0])[1]
         for mth in runnable:
             if mth == "classical-f":
                 continue
@@ -1216,15 +1211,45 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
                                       f"{MAX_WALD_ROWS}); its batched covariance would take too much time and "
                                       "memory, so this method's trust rests on the rule table")
         sd = sd_cells.ravel()[filled]
+        # the power pass and the variance-noise bias draw from their own stream (seeded from the
+        # same seed), so the null datasets are exactly those drawn without them
+        ab_ok = (all_filled and "AB" in effects and C3["AB"].shape[0] <= MAX_WALD_ROWS
+                 and bool(np.all(np.isfinite(sd) & (sd > 0))))   # no alternatives scaled to a zero variance
+        if ab_ok:
+            rng_alt = np.random.default_rng(None if seed is None else [seed, 0x5EED])
+            lam, delta = _alternatives(rng_alt, C3["AB"], sd * sd / n, df_e, alpha, R)
+            noise_sd = (_noise_sets(rng_alt, n, sd * sd, d0)
+                        if smethod != "equal" and R // NOISE_SETS >= 50 else None)
         block = _block_size(rng, n, pool, R)
         parts: dict = {}
+        alt_parts: dict = {}
+        noise_parts: dict = {}
         for lo in range(0, R, block):
             zm, zc = _simulate_cells(rng, n, pool, min(block, R - lo))
             means = zm * sd
             css = zc * sd * sd
-            del zm, zc
             with np.errstate(divide="ignore", invalid="ignore"):
                 var = np.where(n > 1, css / np.maximum(n - 1, 1), np.nan)
+            if ab_ok:
+                hi_ = lo + zm.shape[0]
+                alt = means + delta[lo:hi_]
+                for mth in runnable:
+                    alt_parts.setdefault(mth, []).append(ab_p(mth, alt, css, var))
+                if noise_sd is not None:
+                    Rb = R // NOISE_SETS
+                    idx = np.arange(lo, hi_) // Rb
+                    for kset in np.unique(idx):
+                        if kset >= NOISE_SETS:
+                            continue
+                        sel = idx == kset
+                        sdk = noise_sd[kset]
+                        mm, cc = zm[sel] * sdk, zc[sel] * sdk * sdk
+                        with np.errstate(divide="ignore", invalid="ignore"):
+                            vv = np.where(n > 1, cc / np.maximum(n - 1, 1), np.nan)
+                        for mth in runnable:
+                            pp = ab_p(mth, mm, cc, vv)
+                            noise_parts.setdefault((mth, int(kset)), []).append(pp)
+            del zm, zc
             for mth in runnable:
                 if mth == "classical-f":
                     fb = classical_f_batch(means, css, n, J, K, filled=filled)
@@ -1251,41 +1276,30 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
             if key not in sims:
                 sims[key] = np.concatenate(ps)
 
-    def ab_p(mth, mm, cc, vv):
-        with np.errstate(all="ignore"):
-            if mth == "classical-f":
-                F, d1, d2 = classical_f_batch(mm, cc, n, J, K, filled=filled)["AB"]
-                pp = np.full(F.shape, np.nan)
-                good = np.isfinite(F)
-                pp[good] = stats.f.sf(F[good], d1, d2)
-                return pp
-            if mth == "welch-james":
-                return welch_james_batch(mm, vv, n, C3["AB"])[2]
-            return hc_wald_batch(mm, cc, n, C3["AB"], kind=mth.split("-")[0])[1]
-
-    # ---- the same simulated errors under interaction alternatives: each method's power here
+    # ---- the interaction alternatives (each method's power here) and the variance-noise bias
     power: dict[str, tuple] = {}
-    lam = None
-    ab_ok = (bool(runnable) and "AB" in effects and all_filled and C3["AB"].shape[0] <= MAX_WALD_ROWS
-             and bool(np.all(np.isfinite(sd) & (sd > 0))))   # no alternatives scaled to a zero variance
-    if ab_ok:
-        lam, delta = _alternatives(rng, C3["AB"], sd * sd / n, df_e, alpha, R)
-        alt = means + delta
+    bias: dict[str, float] = {}
+    if runnable and ab_ok:
         for mth in runnable:
-            pa = ab_p(mth, alt, css, var)
+            pa = np.nan_to_num(np.concatenate(alt_parts[mth]), nan=1.0)
             # size-adjusted power: rejections at the method's own simulated critical p (the alpha-quantile
             # of its p over the null datasets), so a method that runs warm gains nothing by it
             p0 = sims.get((mth, "AB"))
             crit = alpha
             if isinstance(p0, np.ndarray) and np.isfinite(p0).any():
                 crit = min(alpha, float(np.quantile(np.nan_to_num(p0, nan=1.0), alpha)))
-            pa = np.nan_to_num(pa, nan=1.0)
             power[mth] = (float(np.sum(pa < alpha)) / R, float(np.sum(pa <= crit)) / R, crit)
-
-    # ---- the noise of the simulation's own variance estimates (bootstrap bias of the interaction sizes)
-    bias: dict[str, float] = {}
-    if ab_ok and smethod != "equal" and R // NOISE_SETS >= 50:
-        bias = _variance_noise_bias(rng, ab_p, runnable, zm, zc, n, sd * sd, d0, alpha, sims)
+            p0 = sims.get((mth, "AB"))
+            rates = []
+            for kset in range(NOISE_SETS):
+                ps = noise_parts.get((mth, kset))
+                if ps:
+                    pp = np.concatenate(ps)
+                    ok = np.isfinite(pp)
+                    if ok.any():
+                        rates.append(float(np.mean(pp[ok] < alpha)))
+            if rates and isinstance(p0, np.ndarray) and np.isfinite(p0).any():
+                bias[mth] = float(np.mean(rates)) - float(np.mean(p0[np.isfinite(p0)] < alpha))
 
     rows = []
     for mth in methods:
