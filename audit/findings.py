@@ -236,6 +236,7 @@ class Findings:
             "claims": [c.to_dict() for c in j.claims] if j is not None else [],
             "sensitivity": j.sensitivity.to_dict() if j is not None and j.sensitivity is not None else None,
             "equivalence": j.equivalence.to_dict() if j is not None and j.equivalence is not None else None,
+            "primary": (j.primary.to_dict() if j is not None and getattr(j, "primary", None) is not None else None),
             "calibration": self.calibration.to_dict() if self.calibration is not None else None,
             "mode": self.mode,
             "alpha": self.alpha,

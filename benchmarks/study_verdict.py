@@ -379,6 +379,8 @@ def run_one(task) -> dict:
                 row[f"verdict_{tag}"] = v.verdict
                 row[f"reason_{tag}"] = v.reasons[0].ref if v.reasons else ""
             row["trusted"] = ";".join(t.method for t in fp.judgement.trust if t.effect == "AB" and t.trusted)
+            prim = getattr(fp.judgement, "primary", None)
+            row["primary"] = (prim.method or "") if prim is not None else ""
     except Exception as exc:  # recorded, counted, shown; the study goes on
         row["error"] = f"{type(exc).__name__}: {exc}"[:300]
     row["cpu_s"] = round(time.process_time() - t0, 4)

@@ -288,3 +288,42 @@ def test_two_per_cell_designs_do_not_crash_the_size_check():
     assert f.verdict is not None
     statuses = {r.method: r.status for r in f.calibration.rows if r.effect == "AB"}
     assert set(statuses) >= {"classical-f", "welch-james"}
+
+
+def _summary_fit(counts, sds, seed=5):
+    fit = _fit(_frame(counts, sds, seed))
+    c = fit.cells
+    J, K = c.counts.shape
+    rows = [{"oven": c.levels_a[j], "proof": c.levels_b[k], "mean": c.means[j, k],
+             "sd": float(np.asarray(sds, dtype=float).reshape(J, K)[j, k]), "n": c.counts[j, k]}
+            for j in range(J) for k in range(K)]
+    return fit_cells(cells_from_summary(pd.DataFrame(rows), factors=("oven", "proof")))
+
+
+def test_power_pass_matches_noncentral_f_for_the_classical_f_under_equal_variances():
+    # summary mode (normal errors), equal SDs in a balanced 3 x 3 of 6: the alternatives have the
+    # noncentrality at which F(4, 45) has power 0.5, so the classical F's simulated power is 0.5
+    # within Monte Carlo error. reference: scipy.stats.ncf (the noncentral F)
+    from audit.verdict.calibration import POWER_TARGET, alternative_noncentrality
+
+    fit = _summary_fit(np.full((3, 3), 6), np.ones((3, 3)))
+    cal = size_check(fit, alpha=0.05, replications=4000, seed=2)
+    lam = cal.power_noncentrality
+    assert lam == pytest.approx(alternative_noncentrality(4, 45, 0.05))
+    assert stats.ncf.sf(stats.f.isf(0.05, 4, 45), 4, 45, lam) == pytest.approx(POWER_TARGET, abs=1e-6)
+    row = cal.row("classical-f", "AB")
+    assert abs(row.power - POWER_TARGET) < 0.03          # 4 SE at R = 4,000
+    # the tests that estimate the variances cell by cell lose power in cells of 6 (common practice)
+    assert cal.row("welch-james", "AB").power < row.power
+    assert cal.row("classical-f", "A").power is None      # alternatives are simulated for the interaction
+    assert cal.to_dict()["rows"][0]["power"] is None or isinstance(cal.to_dict()["rows"][0]["power"], float)
+
+
+def test_power_pass_leaves_the_null_sizes_unchanged_and_is_repeatable():
+    # the alternatives are drawn after the null datasets, so sizes equal those without them
+    fit = _fit(_frame(U3, 4.0 / U3, 3))
+    a = size_check(fit, replications=1000, seed=9)
+    b = size_check(fit, replications=1000, seed=9)
+    assert a == b
+    c = size_check(fit, replications=1000, seed=9, effects=("A",))
+    assert c.row("classical-f", "A").size == a.row("classical-f", "A").size

@@ -148,6 +148,9 @@ __all__ = [
 ]
 
 NEEDS_DATA = "needs the raw data (only cell summaries were given)"
+#: Levene-type tests use only cells with at least this many observations (common practice: with
+#: n = 2 the absolute deviations from the cell centre are equal, so the tests degenerate)
+LEVENE_MIN_N = 3
 SMALL_SKEW, MODERATE_SKEW, LARGE_SKEW = 0.5, 1.0, 2.0
 SMALL_KURT, MODERATE_KURT, LARGE_KURT = 1.0, 3.0, 7.0
 PER_CELL_MIN_N = 8
@@ -777,12 +780,25 @@ def homogeneity(fit: Fit, *, tests: dict | None = None) -> Diagnostic:
     labels = _cell_labels(fit, use)
     v["bartlett"] = bartlett_from_cells(n_u, s2)
     v["bartlett_adjusted"] = _bartlett_kurtosis_adjusted(fit, use, v["bartlett"])
-    if fit.obs is not None:
-        ys, g = _groups_sorted(fit.obs.y, fit.obs.cell, use.ravel())
+    # Levene-type tests compare the spread of |y - cell centre| across cells; in a cell of 2 both
+    # observations lie exactly equally far from the centre (mean or median), so such a cell has no
+    # within-cell variation of that spread and the tests break down (p near 0 on equal variances).
+    # They use the cells of 3 or more only; Bartlett (normal theory, valid at n = 2) uses every cell.
+    lev_use = use & (counts >= LEVENE_MIN_N)
+    v["levene_cells_used"] = int(lev_use.sum())
+    if fit.obs is not None and lev_use.sum() >= 2:
+        ys, g = _groups_sorted(fit.obs.y, fit.obs.cell, lev_use.ravel())
         v["levene_mean"] = levene_test(ys, g, "mean")
         v["brown_forsythe"] = levene_test(ys, g, "median")
         v["fligner_killeen"] = fligner_test(ys, g)
-        v["reason"] = None
+        v["reason"] = None if lev_use.sum() == use.sum() else (
+            f"Levene, Brown-Forsythe and Fligner-Killeen use the {int(lev_use.sum())} cells with n >= "
+            f"{LEVENE_MIN_N}: in a cell of 2 both observations are equally far from the cell's centre")
+    elif fit.obs is not None:
+        v["levene_mean"] = v["brown_forsythe"] = v["fligner_killeen"] = None
+        v["reason"] = (f"Levene, Brown-Forsythe and Fligner-Killeen not run: they need two or more cells with n >= "
+                       f"{LEVENE_MIN_N} (in a cell of 2 both observations are equally far from the cell's centre, so "
+                       "the tests break down); Bartlett is used")
     else:
         v["levene_mean"] = v["brown_forsythe"] = v["fligner_killeen"] = None
         v["reason"] = f"Levene, Brown-Forsythe and Fligner-Killeen {NEEDS_DATA}"

@@ -67,6 +67,20 @@ different prior df (classical F size 0.05 instead of 0.13).  The floor of
 exact resampling (and its numbers), and the exact part never costs more than
 R x 1,000 draws per cell.
 
+Power on data shaped like this one (the interaction)
+---------------------------------------------------
+The same simulated errors with an interaction added to the cell means: for each
+replication a direction drawn uniformly in the contrast space C mu, scaled to the
+Wald noncentrality lambda (with the simulated variances) at which the F(r, N - m)
+test has power ``POWER_TARGET`` = 0.5.  ``power`` is the share with p < alpha;
+``adjusted_power`` rejects at the method's ``critical_p`` (the smaller of alpha and
+the alpha-quantile of its simulated null p-values), so warm methods gain nothing.
+The verdict's primary test is chosen on these (``audit.verdict.trust``).  The
+variance-noise bias of each interaction size (``_noise_sets``: the
+simulated variances re-estimated as the data would, a bootstrap bias) is
+subtracted before the status is judged.  Cells of 2 do not enter the resampled
+residual pool (their standardised residuals are exactly -1 and +1).
+
 Moderated cell variances (after Smyth 2004)
 --------------------------------------------
 Cell SDs from 4-5 observations are noisy: on truly homoscedastic data the
@@ -261,6 +275,24 @@ class CalibrationRow:
         'liberal', 'conservative', 'ok' or 'not-run'.
     reason : str
         One plain sentence saying why.
+    power : float or None
+        Interaction rows only: share of simulated *alternatives* (the same
+        errors with an interaction pattern of noncentrality
+        ``Calibration.power_noncentrality`` in a random direction added to
+        the cell means) with p < alpha; None when not simulated.
+    adjusted_power : float or None
+        The same, rejecting at the method's own simulated critical p (the
+        alpha-quantile of its null p-values when its size exceeds alpha):
+        power at a simulated size of at most alpha, comparable across methods.
+    bias : float or None
+        Interaction rows: the bootstrap bias of ``size`` from the noise of the
+        simulated cell variances (``_noise_sets``); the status is
+        judged on size - bias.  None when not estimated (equal variances
+        simulated, or R < 400).
+    critical_p : float or None
+        Interaction rows: the smaller of alpha and the alpha-quantile of the
+        method's simulated null p-values (the level at which its simulated
+        size is alpha; a parametric-bootstrap calibration of the test).
     """
 
     method: str
@@ -272,6 +304,10 @@ class CalibrationRow:
     undefined: int
     status: str
     reason: str
+    power: float | None = None
+    adjusted_power: float | None = None
+    bias: float | None = None
+    critical_p: float | None = None
 
     def to_dict(self) -> dict:
         return {
@@ -284,6 +320,10 @@ class CalibrationRow:
             "undefined": self.undefined,
             "status": self.status,
             "reason": self.reason,
+            "power": self.power,
+            "adjusted_power": self.adjusted_power,
+            "bias": self.bias,
+            "critical_p": self.critical_p,
         }
 
 
@@ -357,6 +397,7 @@ class Calibration:
     interval_level: float
     rows: tuple[CalibrationRow, ...]
     notes: tuple[str, ...]
+    power_noncentrality: float | None = None
 
     def row(self, method: str, effect: str = "AB") -> CalibrationRow:
         for r in self.rows:
@@ -377,6 +418,7 @@ class Calibration:
                      "interval_level": self.interval_level},
             "rows": [r.to_dict() for r in self.rows],
             "notes": list(self.notes),
+            "power_noncentrality": self.power_noncentrality,
         }
 
 
@@ -717,12 +759,16 @@ def clopper_pearson(k: int, n: int, level: float = INTERVAL_LEVEL) -> tuple[floa
 
 def _standardised_pool(fit, sd=None) -> np.ndarray:
     """Pooled standardised residuals e_i / s_cell * sqrt(n / (n - 1)) from the
-    cells with n >= 2 and a positive SD (``sd``: the cells' own SDs by default)."""
+    cells with a positive SD (``sd``: the cells' own SDs by default, from cells with
+    n >= 3: the two residuals of a cell of 2 standardise to exactly -1 and +1 by its own
+    SD, so they carry no shape, and resampling them would simulate two-point errors;
+    with a given ``sd``, cells with n >= 2)."""
     cells = fit.cells
     n = cells.counts.ravel()
+    own = sd is None
     sd = np.sqrt(cells.variances.ravel()) if sd is None else np.asarray(sd, dtype=float).ravel()
     cell = np.asarray(fit.obs.cell)
-    ok = (n >= 2) & np.isfinite(sd) & (sd > 0)
+    ok = (n >= (3 if own else 2)) & np.isfinite(sd) & (sd > 0)
     keep = ok[cell]
     e = np.asarray(fit.resid_full, dtype=float)[keep]
     c = cell[keep]
@@ -908,17 +954,82 @@ def _pct(x: float) -> str:
     return f"{100 * x:.1f}%"
 
 
-def _status(k: int, R: int, alpha: float) -> tuple[str, tuple[float, float], str]:
+def _status(k: int, R: int, alpha: float, bias: float = 0.0) -> tuple[str, tuple[float, float], str]:
     lo, hi = clopper_pearson(k, R)
     size = k / R
     said = (f"rejects a true null in {_pct(size)} of {R} simulated datasets shaped like these "
             f"(99% interval {_pct(lo)}-{_pct(hi)}) at alpha = {alpha:g}")
+    if bias:
+        said += (f"; the noise of the simulated cell variances moves that estimate by {100 * bias:+.1f} points, "
+                 f"so the status is judged on {_pct(max(size - bias, 0.0))}")
+        lo, hi = max(lo - bias, 0.0), min(max(hi - bias, 0.0), 1.0)
     if lo > LIBERAL_MULTIPLE * alpha:
         return "liberal", (lo, hi), f"liberal here: {said}; the interval lies above {LIBERAL_MULTIPLE:g} x alpha"
     if hi < CONSERVATIVE_FRACTION * alpha:
         return "conservative", (lo, hi), (f"conservative here: {said}; the interval lies below "
                                           f"{CONSERVATIVE_FRACTION:g} x alpha (loss of power)")
     return "ok", (lo, hi), f"size near alpha: {said}"
+
+
+#: sets of re-estimated cell variances in the bias pass (each uses R // NOISE_SETS of the null errors)
+NOISE_SETS = 8
+
+
+def _noise_sets(rng, n, post, d0: float) -> list:
+    """The cell SDs of the bias pass (the noise of the simulation's own variance estimates): the
+    simulated variances are themselves estimates, more dispersed than the true ones, and a
+    method's size at dispersed variances is further from alpha than at the truth.  Re-estimate
+    them as the data would, NOISE_SETS times: s2* = post chi2(d) / d per cell (normal theory,
+    d = n - 1), moderated again with the same prior df toward their own pooled value.  Each set's
+    size uses R / NOISE_SETS of the same null errors; bias = mean size over the sets minus the
+    size at ``post`` (a bootstrap bias, Efron & Tibshirani 1993 ch. 10), and the interaction
+    status is judged on size - bias."""
+    d = np.maximum(np.asarray(n, dtype=float) - 1.0, 0.0)
+    live = d > 0
+    out = []
+    for _ in range(NOISE_SETS):
+        s2 = np.array(post, dtype=float)
+        s2[live] = post[live] * rng.chisquare(d[live]) / d[live]
+        pooled = float(np.sum(d * s2) / np.sum(d))
+        v = s2 if d0 == 0 else np.where(live, (d0 * pooled + d * s2) / (d0 + d), pooled)
+        out.append(np.sqrt(v))
+    return out
+
+
+#: the alternatives of the power pass have the noncentrality at which the F(r, N - m) test of the
+#: interaction has this power (a level where methods' powers differ most)
+POWER_TARGET = 0.5
+
+
+def alternative_noncentrality(df1: int, df2: float, alpha: float, target: float = POWER_TARGET) -> float:
+    """The noncentrality lambda at which the F(df1, df2) test at alpha has power ``target``
+    (noncentral F, scipy.stats.ncf)."""
+    from scipy.optimize import brentq
+
+    crit = stats.f.isf(alpha, df1, df2)
+    fun = lambda lam: float(stats.ncf.sf(crit, df1, df2, lam)) - target  # noqa: E731
+    hi = 4.0 * df1 + 16.0
+    while fun(hi) < 0:
+        hi *= 2.0
+    return float(brentq(fun, 1e-9, hi, xtol=1e-6))
+
+
+def _alternatives(rng, C, v, df_e: float, alpha: float, R: int):
+    """Cell-mean shifts (R, m) of interaction alternatives: for each replication a direction
+    drawn uniformly in the r-dimensional contrast space C mu, scaled so that the Wald
+    noncentrality (C d)' (C V C')^-1 (C d) with V = diag(v) (the simulated cell variances over
+    n) equals lambda, the noncentrality at which the F(r, N - m) test has power POWER_TARGET.
+    The shift is the minimum-norm d with that C d; every interaction statistic is invariant to
+    the additive part, so only C d matters.  Returns (lambda, shifts)."""
+    C = np.asarray(C, dtype=float)      # a Type3Contrast's dense form (at most MAX_WALD_ROWS rows)
+    r = C.shape[0]
+    lam = alternative_noncentrality(r, df_e, alpha)
+    L = np.linalg.cholesky((C * v[None, :]) @ C.T)
+    z = rng.standard_normal((R, r))
+    z /= np.linalg.norm(z, axis=1, keepdims=True)
+    cd = (z @ L.T) * math.sqrt(lam)
+    G = np.linalg.solve(C @ C.T, C)            # (r, m): d = cd @ G gives C d = cd
+    return lam, cd @ G
 
 
 def _not_run(method, effect, reason) -> CalibrationRow:
@@ -989,8 +1100,8 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
         pool = _standardised_pool(fit)
         if pool.size < 2:
             pool = None
-            extra_notes.append("no cell has two or more distinct values: normal errors simulated instead "
-                               "of resampled residuals")
+            extra_notes.append("no cell has three or more observations with distinct values: normal errors "
+                               "simulated instead of resampled residuals")
     sampling = None
     if pool is not None and isinstance(prior_df, str) and (n > 1).any():
         # the sampling spread of log s2 under this residual shape, from a pilot on residuals
@@ -1028,11 +1139,11 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
                        (pooled_shown != 0 or pooled == 0) else None,
                        cell_sd=cell_sd_json, note=snote)
 
-    def result(rows, source, enote, extra_notes=()):
+    def result(rows, source, enote, extra_notes=(), lam=None):
         return Calibration(alpha=alpha, replications=R, seed=seed, error_source=source, error_note=enote,
                            shrinkage=shrink, liberal_multiple=LIBERAL_MULTIPLE,
                            conservative_fraction=CONSERVATIVE_FRACTION, interval_level=INTERVAL_LEVEL,
-                           rows=tuple(rows), notes=tuple(notes) + tuple(extra_notes))
+                           rows=tuple(rows), notes=tuple(notes) + tuple(extra_notes), power_noncentrality=lam)
 
     # ---- reasons a method cannot run at all
     all_filled = bool(filled.all())
@@ -1073,8 +1184,21 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
             enote = ("normal errors (only cell summaries are known, so the residual shape cannot be kept)"
                      if fit.obs is None else "normal errors (no usable residuals)")
     sims = {}
+    ab_ok, lam = False, None
     if runnable:
         C3 = {e: Type3Contrast(J, K, e) for e in EFFECTS} if all_filled else None
+
+        def ab_p(mth, mm, cc, vv):
+            with np.errstate(all="ignore"):
+                if mth == "classical-f":
+                    F, d1, d2 = classical_f_batch(mm, cc, n, J, K, filled=filled)["AB"]
+                    pp = np.full(F.shape, np.nan)
+                    good = np.isfinite(F)
+                    pp[good] = stats.f.sf(F[good], d1, d2)
+                    return pp
+                if mth == "welch-james":
+                    return welch_james_batch(mm, vv, n, C3["AB"])[2]
+                return hc_wald_batch(mm, cc, n, C3["AB"], kind=mth.split("-")[0])[1]
         for mth in runnable:
             if mth == "classical-f":
                 continue
@@ -1087,15 +1211,45 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
                                       f"{MAX_WALD_ROWS}); its batched covariance would take too much time and "
                                       "memory, so this method's trust rests on the rule table")
         sd = sd_cells.ravel()[filled]
+        # the power pass and the variance-noise bias draw from their own stream (seeded from the
+        # same seed), so the null datasets are exactly those drawn without them
+        ab_ok = (all_filled and "AB" in effects and C3["AB"].shape[0] <= MAX_WALD_ROWS
+                 and bool(np.all(np.isfinite(sd) & (sd > 0))))   # no alternatives scaled to a zero variance
+        if ab_ok:
+            rng_alt = np.random.default_rng(None if seed is None else [seed, 0x5EED])
+            lam, delta = _alternatives(rng_alt, C3["AB"], sd * sd / n, df_e, alpha, R)
+            noise_sd = (_noise_sets(rng_alt, n, sd * sd, d0)
+                        if smethod != "equal" and R // NOISE_SETS >= 50 else None)
         block = _block_size(rng, n, pool, R)
         parts: dict = {}
+        alt_parts: dict = {}
+        noise_parts: dict = {}
         for lo in range(0, R, block):
             zm, zc = _simulate_cells(rng, n, pool, min(block, R - lo))
             means = zm * sd
             css = zc * sd * sd
-            del zm, zc
             with np.errstate(divide="ignore", invalid="ignore"):
                 var = np.where(n > 1, css / np.maximum(n - 1, 1), np.nan)
+            if ab_ok:
+                hi_ = lo + zm.shape[0]
+                alt = means + delta[lo:hi_]
+                for mth in runnable:
+                    alt_parts.setdefault(mth, []).append(ab_p(mth, alt, css, var))
+                if noise_sd is not None:
+                    Rb = R // NOISE_SETS
+                    idx = np.arange(lo, hi_) // Rb
+                    for kset in np.unique(idx):
+                        if kset >= NOISE_SETS:
+                            continue
+                        sel = idx == kset
+                        sdk = noise_sd[kset]
+                        mm, cc = zm[sel] * sdk, zc[sel] * sdk * sdk
+                        with np.errstate(divide="ignore", invalid="ignore"):
+                            vv = np.where(n > 1, cc / np.maximum(n - 1, 1), np.nan)
+                        for mth in runnable:
+                            pp = ab_p(mth, mm, cc, vv)
+                            noise_parts.setdefault((mth, int(kset)), []).append(pp)
+            del zm, zc
             for mth in runnable:
                 if mth == "classical-f":
                     fb = classical_f_batch(means, css, n, J, K, filled=filled)
@@ -1122,6 +1276,31 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
             if key not in sims:
                 sims[key] = np.concatenate(ps)
 
+    # ---- the interaction alternatives (each method's power here) and the variance-noise bias
+    power: dict[str, tuple] = {}
+    bias: dict[str, float] = {}
+    if runnable and ab_ok:
+        for mth in runnable:
+            pa = np.nan_to_num(np.concatenate(alt_parts[mth]), nan=1.0)
+            # size-adjusted power: rejections at the method's own simulated critical p (the alpha-quantile
+            # of its p over the null datasets), so a method that runs warm gains nothing by it
+            p0 = sims.get((mth, "AB"))
+            crit = alpha
+            if isinstance(p0, np.ndarray) and np.isfinite(p0).any():
+                crit = min(alpha, float(np.quantile(np.nan_to_num(p0, nan=1.0), alpha)))
+            power[mth] = (float(np.sum(pa < alpha)) / R, float(np.sum(pa <= crit)) / R, crit)
+            p0 = sims.get((mth, "AB"))
+            rates = []
+            for kset in range(NOISE_SETS):
+                ps = noise_parts.get((mth, kset))
+                if ps:
+                    pp = np.concatenate(ps)
+                    ok = np.isfinite(pp)
+                    if ok.any():
+                        rates.append(float(np.mean(pp[ok] < alpha)))
+            if rates and isinstance(p0, np.ndarray) and np.isfinite(p0).any():
+                bias[mth] = float(np.mean(rates)) - float(np.mean(p0[np.isfinite(p0)] < alpha))
+
     rows = []
     for mth in methods:
         for e in effects:
@@ -1141,9 +1320,14 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
                                            reason="not run: the method could not be computed on any simulated dataset"))
                 continue
             k = int(np.sum(p[ok] < alpha))
-            status, ci, reason = _status(k, used, alpha)
+            b = bias.get(mth, 0.0) if e == "AB" else 0.0
+            status, ci, reason = _status(k, used, alpha, b)
             if und:
                 reason += f"; {und} simulated dataset(s) where it could not be computed are left out"
             rows.append(CalibrationRow(method=mth, effect=e, size=k / used, interval=ci, rejections=k,
-                                       replications=used, undefined=und, status=status, reason=reason))
-    return result(rows, source, enote, extra_notes)
+                                       replications=used, undefined=und, status=status, reason=reason,
+                                       bias=b if e == "AB" and mth in bias else None,
+                                       power=power[mth][0] if e == "AB" and mth in power else None,
+                                       adjusted_power=power[mth][1] if e == "AB" and mth in power else None,
+                                       critical_p=power[mth][2] if e == "AB" and mth in power else None))
+    return result(rows, source, enote, extra_notes, lam)

@@ -13,19 +13,40 @@ This module is the only place that decides.  It weighs, for the interaction
   dependence (a removable interaction), graded problems, closeness to alpha,
   and, for an "absent" claim, the design's sensitivity.
 
+Primary test (the interaction)
+------------------------------
+The verdict on the interaction follows one method's decision: the primary test
+(:func:`audit.verdict.trust.choose_primary`), the most powerful size-checked
+method that keeps its size on data shaped like these, chosen from the design and
+the size check only, never from the observed p-values.  Other trusted methods
+support or dissent: a dissent is *material* (the verdict is ``fragile``) when the
+dissenting method is of comparable simulated power (at least the primary's minus
+``COMPARABLE_POWER``); a conservative method's non-rejection never vetoes a
+rejection; other dissents are caveats naming the method.  Deletions count only
+when they move the decision against the claim: an outlier among them, or a
+decision that a quarter or more of the single deletions reverse
+(``UNSTABLE_SHARE``), is ``fragile``; a borderline few is a caveat with the count
+and the rows.  Without a primary (no method qualifies) every trusted method
+votes as below and a single trusted method cannot decide alone.  Main effects
+are judged by the vote below.  Measured on ``benchmarks/study_verdict.py``
+(README "How often is the verdict right?").
+
 Verdicts (exactly one per effect; the overall verdict is the interaction's):
 
 =====================  ====================================================
-holds                  every trusted method agrees with the claim; not
-                       fragile; not scale-dependent; no caveat
+holds                  the primary (for main effects: every trusted method)
+                       agrees with the claim; not fragile; no caveat
 holds-with-caveats     agrees, with stated caveats (near alpha, removable,
                        a warning-level problem, few trusted methods, low
                        sensitivity for an "absent" claim, a resampled
                        decision not settled)
-fragile                one or two deletions flip the decision, the
-                       decision can change within a summary table's
-                       rounding, or the trusted methods split around alpha
-does-not-hold          every trusted method contradicts the claim
+fragile                a material dissent, an outlier that carries the
+                       decision, an unstable decision, the decision can
+                       change within a summary table's rounding (main
+                       effects: the trusted methods split around alpha, or
+                       one or two deletions flip the decision)
+does-not-hold          the primary (main effects: every trusted method)
+                       contradicts the claim
 not-reproducible       the reported test cannot be reproduced from the data
 cannot-judge           no trusted test of the effect (no error df and no
                        Tukey test, too little data, dependent observations)
@@ -62,6 +83,13 @@ LOW_SENSITIVITY_ETA2 = 0.0588
 
 #: fewer trusted methods than this for an effect is itself a caveat (our choice)
 MIN_TRUSTED = 2
+
+#: a decision that this share of the single deletions (or more) moves against the claim is unstable:
+#: fragile even without an anomalous observation (our choice; benchmarks/study_verdict.py)
+UNSTABLE_SHARE = 0.25
+
+#: a trusted method whose simulated power is within this of the primary's is of comparable power
+from .trust import COMPARABLE_POWER  # noqa: E402
 
 _EXIT = {"holds": 0, "holds-with-caveats": 0, "fragile": 1, "does-not-hold": 1, "not-reproducible": 1,
          "cannot-judge": 3}
@@ -180,7 +208,8 @@ def _present_word(present: bool) -> str:
 
 def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, methods, trust, alpha: float,
                  reconciliation=None, fragility=None, influence=None, scale=None, graded=(), rounding=None,
-                 sensitivity=None, cannot_reason: str | None = None) -> EffectVerdict:
+                 sensitivity=None, cannot_reason: str | None = None, primary=None, outliers=None,
+                 n_obs: int | None = None) -> EffectVerdict:
     """Judge one effect (see the module docstring for the rules).
 
     Parameters
@@ -209,6 +238,13 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
         detectable with 80% power) and ``.text``.
     cannot_reason : str, optional
         A reason that no test can be judged at all.
+    primary : Primary, optional
+        The primary test (:func:`audit.verdict.trust.choose_primary`): the verdict follows its
+        decision (see "Primary test" in the module docstring); None: every trusted method votes.
+    outliers : OutlierFacts, optional
+        Rows flagged as outliers (an anomalous observation that carries the decision).
+    n_obs : int, optional
+        Number of observations (the share of single deletions that flip the decision).
     """
     reasons: list[Reason] = []
     word = _EFFECT_WORD[effect]
@@ -269,6 +305,26 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
     claim_txt = f"the claim that the {word} is {_present_word(claim_present)}"
     if claim_source == "classical-f":
         claim_txt += " (the classical F's decision; no claim was stated)"
+
+    if primary is not None:
+        prim = next((m for m, _t in trusted if m.id == primary.method), None)
+        if prim is not None:
+            return _judge_primary(prim, primary, trusted=trusted, pairs=pairs, agree=agree, disagree=disagree,
+                                  unsettled=unsettled, claim_present=claim_present, claim_txt=claim_txt,
+                                  word=word, alpha=alpha, reasons=reasons, out=out, listing=listing,
+                                  fragility=fragility, influence=influence, scale=scale, rounding=rounding,
+                                  graded=graded, sensitivity=sensitivity, outliers=outliers, n_obs=n_obs,
+                                  effect=effect)
+        if len(trusted) < MIN_TRUSTED:
+            m0, t0 = trusted[0]
+            cov = primary.power_of(m0.id) is not None
+            what = ("its simulated size is too far above alpha for it to decide alone" if cov else
+                    "it is not covered by the size check, so it cannot decide alone")
+            reasons.insert(0, Reason(text=f"only {m0.id} is trusted to test the {word} here, and {what} "
+                                          f"({primary.reason})", ref=f"method:{m0.id}", weight="decisive"))
+            return out("cannot-judge")
+        reasons.append(Reason(text=f"no primary test: {primary.reason}; every trusted method votes",
+                              ref="trust", weight="caveat"))
 
     if not agree and not disagree:
         reasons.insert(0, Reason(text=f"every trusted method's resampled p is too close to alpha {alpha:g} to "
@@ -354,6 +410,146 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
     lead = Reason(text=f"every trusted method agrees with {claim_txt}: {listing(agree)}",
                   ref=f"method:{agree[0]}", weight="decisive")
     reasons.insert(0, lead)
+    reasons.extend(caveats)
+    return out("holds-with-caveats" if caveats or reconciliation_caveat(reasons) else "holds",
+               agree, disagree, unsettled)
+
+
+def _judge_primary(prim, primary, *, trusted, pairs, agree, disagree, unsettled, claim_present, claim_txt, word,
+                   alpha, reasons, out, listing, fragility, influence, scale, rounding, graded, sensitivity,
+                   outliers, n_obs, effect) -> EffectVerdict:
+    """The verdict follows the primary test's decision; other trusted methods support or dissent."""
+    level = primary.level if primary.level is not None else alpha
+    d = decision(prim.p, level)
+    agrees = d == claim_present
+    ptxt = p_text(prim.p, prim.resamples) + (f", decided at p < {level:.3g}" if level < alpha else "")
+    why = Reason(text=f"primary test {primary.reason}", ref=f"method:{prim.id}", weight="support")
+    pw = primary.power
+    material, minor = [], []
+    for m, t in trusted:
+        if m.id == prim.id or m.id in unsettled:
+            continue
+        if decision(m.p, alpha) == d:
+            continue
+        other = primary.power_of(m.id)
+        if t.conservative and d:
+            minor.append((m, "conservative here, so its non-rejection cannot veto a rejection"))
+        elif primary.basis == "fixed-order" and m.id in ("classical-f", "welch-james", "hc3-wald", "hc4-wald") \
+                and not t.conservative:
+            material.append((m, "trusted; no size check ran to compare powers"))
+        elif other is not None and pw is not None and other >= pw - COMPARABLE_POWER:
+            material.append((m, f"trusted, simulated power {100 * other:.0f}% against the primary's {100 * pw:.0f}%"))
+        elif other is not None and pw is not None:
+            minor.append((m, f"less powerful here (simulated power {100 * other:.0f}% against the primary's "
+                             f"{100 * pw:.0f}%)"))
+        else:
+            minor.append((m, "not covered by the size check, so it supports or dissents but does not decide"))
+    supporters = [m.id for m, _t in trusted if m.id != prim.id and m.id not in unsettled and decision(m.p, alpha) == d]
+
+    def dtxt(lst):
+        return "; ".join(f"{m.id} ({p_text(m.p, m.resamples)}: {why_})" for m, why_ in lst)
+
+    sidew = "rejects" if d else "does not reject"
+    if material:
+        m0 = material[0][0]
+        side = "agrees" if agrees else "contradicts"
+        reasons.insert(0, Reason(text=f"a trusted method of comparable power decides the other way: the primary "
+                                      f"{prim.id} ({ptxt}) {side} with {claim_txt}, but {dtxt(material)} does not",
+                                 ref=f"method:{m0.id}", weight="decisive"))
+        reasons.append(why)
+        return out("fragile", agree, disagree, unsettled)
+    if not agrees:
+        reasons.insert(0, Reason(text=f"the primary test contradicts {claim_txt}: {prim.id} ({ptxt})"
+                                      + (f"; supported by {listing(supporters)}" if supporters else ""),
+                                 ref=f"method:{prim.id}", weight="decisive"))
+        reasons.append(why)
+        if minor:
+            reasons.append(Reason(text=f"agreeing with the claim, but not decisive: {dtxt(minor)}",
+                                  ref=f"method:{minor[0][0].id}", weight="support"))
+        if scale is not None and scale.removable and not claim_present:
+            reasons.append(Reason(text="the interaction is removable: it is not significant after a transformation "
+                                       "the data support (Box-Cox), so it may reflect the measurement scale",
+                                  ref="diagnostic:scale", weight="caveat"))
+        return out("does-not-hold", agree, disagree, unsettled)
+
+    # the primary agrees with the claim: is the decision carried by an anomalous observation, unstable, or
+    # within the table's rounding?
+    verdict = "holds"
+    caveats: list[Reason] = []
+    on_f = prim.id == "classical-f" and level >= alpha   # the deletion checks test the classical F at alpha
+    f_agrees = any(m.id == "classical-f" and m.id not in unsettled and decision(m.p, alpha) == claim_present
+                   for m, _t in trusted)
+    flagged = set(outliers.rows) if outliers is not None else set()
+    k = fragility.deletions_to_flip if fragility is not None else None
+    if k is not None and fragility.significant_before is not None and fragility.significant_before != claim_present:
+        k = None   # the classical F's deletions would move it toward the claim: not a fragility of the claim
+    limit = FRAGILE_DELETIONS if claim_present else 1
+    rows_k = tuple(fragility.rows[:k]) if k is not None else ()
+    anomalous = sorted(flagged.intersection(rows_k)) if k is not None and k <= limit else []
+    flips = tuple(influence.flipping_rows) if influence is not None and on_f else ()
+    share = len(flips) / n_obs if n_obs else 0.0
+    if anomalous and f_agrees:
+        reasons.append(Reason(text=f"an anomalous observation carries the {word} decision: deleting {k} "
+                                   f"observation(s) (row {', '.join(map(str, rows_k))}) moves the classical F "
+                                   f"against the claim at alpha {alpha:g}, and row {', '.join(map(str, anomalous))} "
+                                   "is flagged as an outlier", ref="diagnostic:fragility", weight="decisive"))
+        verdict = "fragile"
+    elif on_f and k is not None and k <= limit and share >= UNSTABLE_SHARE:
+        reasons.append(Reason(text=f"the {word} decision is unstable: deleting {k} observation(s) (row "
+                                   f"{', '.join(map(str, rows_k))}) moves the primary classical F against the claim "
+                                   f"at alpha {alpha:g}, and so does deleting any one of {len(flips)} of the {n_obs} "
+                                   f"observations", ref="diagnostic:fragility", weight="decisive"))
+        verdict = "fragile"
+    elif rounding is not None and rounding.decision_can_change:
+        hi = "unbounded" if rounding.F_max is None else f"{rounding.F_max:.4g}"
+        reasons.append(Reason(text=f"moving every reported mean and SD within half a unit of its last digit "
+                                   f"gives an interaction F from {rounding.F_min:.4g} to {hi} (p from "
+                                   f"{rounding.p_min:.3g} to {rounding.p_max:.3g}): the {word} decision at alpha "
+                                   f"{alpha:g} can change within the table's rounding", ref="diagnostic:rounding",
+                              weight="decisive"))
+        verdict = "fragile"
+    elif on_f and k is not None and k <= 5:
+        caveats.append(Reason(text=f"borderline: deleting {k} observation(s) (row {', '.join(map(str, rows_k))}) "
+                                   f"moves the primary classical F against the claim at alpha {alpha:g}; none of them "
+                                   "is flagged as an outlier", ref="diagnostic:fragility", weight="caveat"))
+    if verdict == "fragile":
+        reasons.append(Reason(text=f"the primary {prim.id} ({ptxt}) agrees with {claim_txt} on all the data"
+                                   + (f", as do {listing(supporters)}" if supporters else ""),
+                              ref=f"method:{prim.id}", weight="support"))
+        reasons.append(why)
+        return out("fragile", agree, disagree, unsettled)
+
+    if scale is not None and scale.removable and claim_present:
+        caveats.append(Reason(text="the interaction is removable: it is not significant after a transformation "
+                                   "the data support (Box-Cox), so it may reflect the measurement scale rather "
+                                   "than a substantive interaction", ref="diagnostic:scale", weight="caveat"))
+    if near_alpha(prim.p, level):
+        caveats.append(Reason(text=f"close to its level {level:.3g}: the primary {prim.id} ({ptxt})",
+                              ref=f"method:{prim.id}", weight="caveat"))
+    if minor:
+        caveats.append(Reason(text=f"decides the other way, but not decisive: {dtxt(minor)}",
+                              ref=f"method:{minor[0][0].id}", weight="caveat"))
+    if unsettled:
+        caveats.append(Reason(text=f"not settled at this number of resamples: {', '.join(unsettled)}",
+                              ref=f"method:{unsettled[0]}", weight="caveat"))
+    if len(trusted) < MIN_TRUSTED:
+        caveats.append(Reason(text=f"only one method can be trusted here ({prim.id})", ref="trust", weight="caveat"))
+    if not claim_present and sensitivity is not None and getattr(sensitivity, "eta2_80", None) is not None \
+            and sensitivity.eta2_80 > LOW_SENSITIVITY_ETA2:
+        caveats.append(Reason(text=sensitivity.text, ref="sensitivity", weight="caveat"))
+    t_prim = next(t for m, t in trusted if m.id == prim.id)
+    if t_prim.conservative and not claim_present:
+        caveats.append(Reason(text=f"the primary {prim.id} is conservative here, so a non-significant result is weak "
+                                   "evidence of absence", ref=f"calibration:{prim.id}", weight="caveat"))
+    for did, sev, summ in graded:
+        if did in ("fragility", "influence", "scale", "rounding") and effect == "AB":
+            continue  # weighed above
+        caveats.append(Reason(text=f"{did} graded {sev}: {summ}", ref=f"diagnostic:{did}", weight="caveat"))
+    lead = Reason(text=f"the primary test agrees with {claim_txt}: {prim.id} ({ptxt}, {sidew} at alpha {alpha:g})"
+                       + (f"; supported by {listing(supporters)}" if supporters else ""),
+                  ref=f"method:{prim.id}", weight="decisive")
+    reasons.insert(0, lead)
+    reasons.append(why)
     reasons.extend(caveats)
     return out("holds-with-caveats" if caveats or reconciliation_caveat(reasons) else "holds",
                agree, disagree, unsettled)

@@ -13,14 +13,14 @@ from dataclasses import dataclass
 
 from ..decision import decision
 from ..errors import OptionError
-from ..facts import (FragilityFacts, HomogeneityFacts, IndependenceFacts, InfluenceFacts, RoundingFacts,
-                     ScaleFacts)
+from ..facts import (FragilityFacts, HomogeneityFacts, IndependenceFacts, InfluenceFacts, OutlierFacts,
+                     RoundingFacts, ScaleFacts)
 from ..results import SEVERITIES
 from .claim import Claim, parse_claim
 from .conclude import EffectVerdict, Verdict, conclude, judge_effect
 from .reconcile import Reconciliation, decision_of_claim, reconcile
 from .sensitivity import DetectableEffect, EquivalenceResult, detectable_interaction, equivalence_test
-from .trust import MethodTrust, assess_trust
+from .trust import MethodTrust, Primary, adopt_primary, assess_trust, choose_primary
 
 __all__ = ["ClaimRecord", "Judgement", "judge", "parse_claims", "parse_equivalence"]
 
@@ -86,6 +86,7 @@ class Judgement:
     agrees: tuple
     sensitivity: DetectableEffect | None
     equivalence: EquivalenceResult | None
+    primary: Primary | None = None
 
 
 def _names(factors) -> dict:
@@ -181,6 +182,9 @@ def judge(fit, *, diagnostics=(), methods=(), claims=(), calibration=None, equiv
     rounding = _facts(diagnostics, RoundingFacts)
     trust = assess_trust(methods, counts=cells.counts, alpha=alpha, homogeneity=homog, independence=indep,
                          calibration=calibration)
+    outl = _facts(diagnostics, OutlierFacts)
+    primary = choose_primary(methods, trust, alpha=alpha, calibration=calibration, homogeneity=homog)
+    trust = adopt_primary(methods, trust, primary, alpha=alpha)
 
     by_effect = {c.effect: c for c in claims}
     records: list[ClaimRecord] = []
@@ -236,7 +240,9 @@ def judge(fit, *, diagnostics=(), methods=(), claims=(), calibration=None, equiv
                           scale=scale if rec.effect == "AB" else None,
                           rounding=rounding if rec.effect == "AB" else None,
                           graded=graded if rec.effect == "AB" else (),
-                          sensitivity=sensitivity, cannot_reason=cannot if rec.effect == "AB" else None)
+                          sensitivity=sensitivity, cannot_reason=cannot if rec.effect == "AB" else None,
+                          primary=primary if rec.effect == "AB" else None,
+                          outliers=outl if rec.effect == "AB" else None, n_obs=int(cells.N))
         effects.append(ev)
     verdict = conclude(tuple(effects))
 
@@ -244,7 +250,7 @@ def judge(fit, *, diagnostics=(), methods=(), claims=(), calibration=None, equiv
     agrees = tuple(None if (m.p is None or present.get(m.effect) is None)
                    else decision(m.p, alpha) == present[m.effect] for m in methods)
     return Judgement(verdict=verdict, claims=tuple(records), trust=trust, agrees=agrees, sensitivity=sens,
-                     equivalence=eq)
+                     equivalence=eq, primary=primary)
 
 
 @dataclass(frozen=True)
