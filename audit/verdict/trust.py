@@ -293,7 +293,7 @@ def assess_trust(methods, *, counts, alpha: float, homogeneity=None, independenc
 #: of alpha (and the size check does not call it liberal); our choice, set with
 #: benchmarks/study_verdict.py (README "How often is the verdict right?")
 PRIMARY_MAX_SIZE = 1.5
-#: (up to it the decision is taken at alpha: the issue's "acceptable" size, within [.025, .075] at
+#: (up to it the decision is taken at alpha: an acceptable size, within [.025, .075] at
 #: alpha .05); above it and up to the next multiple, a heteroscedasticity-robust method (not the
 #: classical F, whose null distribution leans on the simulated variances: not pivotal) can still
 #: be the primary at its calibrated level (our
