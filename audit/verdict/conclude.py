@@ -206,6 +206,15 @@ def _present_word(present: bool) -> str:
     return "present" if present else "absent"
 
 
+def _rounding_reason(rounding, word: str, alpha: float) -> Reason:
+    """The decisive reason when a summary table's rounding can change the decision."""
+    hi = "unbounded" if rounding.F_max is None else f"{rounding.F_max:.4g}"
+    return Reason(text=f"moving every reported mean and SD within half a unit of its last digit gives an "
+                       f"interaction F from {rounding.F_min:.4g} to {hi} (p from {rounding.p_min:.3g} to "
+                       f"{rounding.p_max:.3g}): the {word} decision at alpha {alpha:g} can change within the "
+                       "table's rounding", ref="diagnostic:rounding", weight="decisive")
+
+
 def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, methods, trust, alpha: float,
                  reconciliation=None, fragility=None, influence=None, scale=None, graded=(), rounding=None,
                  sensitivity=None, cannot_reason: str | None = None, primary=None, outliers=None,
@@ -365,12 +374,7 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
                               ref="diagnostic:influence", weight="decisive"))
         verdict = "fragile"
     elif rounding is not None and rounding.decision_can_change:
-        hi = "unbounded" if rounding.F_max is None else f"{rounding.F_max:.4g}"
-        reasons.append(Reason(text=f"moving every reported mean and SD within half a unit of its last digit "
-                                   f"gives an interaction F from {rounding.F_min:.4g} to {hi} (p from "
-                                   f"{rounding.p_min:.3g} to {rounding.p_max:.3g}): the {word} decision at alpha "
-                                   f"{alpha:g} can change within the table's rounding", ref="diagnostic:rounding",
-                              weight="decisive"))
+        reasons.append(_rounding_reason(rounding, word, alpha))
         verdict = "fragile"
     if verdict == "fragile":
         reasons.append(Reason(text=f"the trusted methods agree with {claim_txt} on all the data: {listing(agree)}",
@@ -501,12 +505,7 @@ def _judge_primary(prim, primary, *, trusted, pairs, agree, disagree, unsettled,
                                    f"observations", ref="diagnostic:fragility", weight="decisive"))
         verdict = "fragile"
     elif rounding is not None and rounding.decision_can_change:
-        hi = "unbounded" if rounding.F_max is None else f"{rounding.F_max:.4g}"
-        reasons.append(Reason(text=f"moving every reported mean and SD within half a unit of its last digit "
-                                   f"gives an interaction F from {rounding.F_min:.4g} to {hi} (p from "
-                                   f"{rounding.p_min:.3g} to {rounding.p_max:.3g}): the {word} decision at alpha "
-                                   f"{alpha:g} can change within the table's rounding", ref="diagnostic:rounding",
-                              weight="decisive"))
+        reasons.append(_rounding_reason(rounding, word, alpha))
         verdict = "fragile"
     elif on_f and k is not None and k <= 5:
         caveats.append(Reason(text=f"borderline: deleting {k} observation(s) (row {', '.join(map(str, rows_k))}) "
