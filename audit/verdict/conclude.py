@@ -66,6 +66,7 @@ from dataclasses import dataclass, field
 
 from ..decision import decision, near_alpha, settled
 from ..report.format import p_text  # formatting only: no statistic, no decision
+from .trust import COMPARABLE_POWER, PRIMARY_ORDER  # power within COMPARABLE_POWER of the primary's: comparable
 
 __all__ = ["VERDICTS", "Reason", "EffectVerdict", "Verdict", "conclude", "exit_status",
            "FRAGILE_DELETIONS", "LOW_SENSITIVITY_ETA2"]
@@ -88,8 +89,6 @@ MIN_TRUSTED = 2
 #: fragile even without an anomalous observation (our choice; benchmarks/study_verdict.py)
 UNSTABLE_SHARE = 0.25
 
-#: a trusted method whose simulated power is within this of the primary's is of comparable power
-from .trust import COMPARABLE_POWER  # noqa: E402
 
 _EXIT = {"holds": 0, "holds-with-caveats": 0, "fragile": 1, "does-not-hold": 1, "not-reproducible": 1,
          "cannot-judge": 3}
@@ -204,6 +203,11 @@ def _settled(m, alpha: float) -> bool:
 
 def _present_word(present: bool) -> str:
     return "present" if present else "absent"
+
+
+#: the removable-interaction caveat (the scale check found a transformation that removes it)
+_REMOVABLE = ("the interaction is removable: it is not significant after a transformation the data support "
+              "(Box-Cox), so it may reflect the measurement scale")
 
 
 def _rounding_reason(rounding, word: str, alpha: float) -> Reason:
@@ -383,9 +387,8 @@ def judge_effect(effect: str, *, claim_present: bool | None, claim_source: str, 
 
     caveats: list[Reason] = []
     if scale is not None and scale.removable and claim_present:
-        caveats.append(Reason(text="the interaction is removable: it is not significant after a transformation "
-                                   "the data support (Box-Cox), so it may reflect the measurement scale rather "
-                                   "than a substantive interaction", ref="diagnostic:scale", weight="caveat"))
+        caveats.append(Reason(text=_REMOVABLE + " rather than a substantive interaction", ref="diagnostic:scale",
+                                   weight="caveat"))
     near = [i for i in agree if near_alpha(pm[i][0], alpha)]
     if near:
         caveats.append(Reason(text=f"close to alpha {alpha:g}: {listing(near)}", ref=f"method:{near[0]}",
@@ -438,7 +441,7 @@ def _judge_primary(prim, primary, *, trusted, pairs, agree, disagree, unsettled,
         other = primary.power_of(m.id)
         if t.conservative and d:
             minor.append((m, "conservative here, so its non-rejection cannot veto a rejection"))
-        elif primary.basis == "fixed-order" and m.id in ("classical-f", "welch-james", "hc3-wald", "hc4-wald") \
+        elif primary.basis == "fixed-order" and m.id in PRIMARY_ORDER \
                 and not t.conservative:
             material.append((m, "trusted; no size check ran to compare powers"))
         elif other is not None and pw is not None and other >= pw - COMPARABLE_POWER:
@@ -471,9 +474,7 @@ def _judge_primary(prim, primary, *, trusted, pairs, agree, disagree, unsettled,
             reasons.append(Reason(text=f"agreeing with the claim, but not decisive: {dtxt(minor)}",
                                   ref=f"method:{minor[0][0].id}", weight="support"))
         if scale is not None and scale.removable and not claim_present:
-            reasons.append(Reason(text="the interaction is removable: it is not significant after a transformation "
-                                       "the data support (Box-Cox), so it may reflect the measurement scale",
-                                  ref="diagnostic:scale", weight="caveat"))
+            reasons.append(Reason(text=_REMOVABLE, ref="diagnostic:scale", weight="caveat"))
         return out("does-not-hold", agree, disagree, unsettled)
 
     # the primary agrees with the claim: is the decision carried by an anomalous observation, unstable, or
@@ -519,9 +520,8 @@ def _judge_primary(prim, primary, *, trusted, pairs, agree, disagree, unsettled,
         return out("fragile", agree, disagree, unsettled)
 
     if scale is not None and scale.removable and claim_present:
-        caveats.append(Reason(text="the interaction is removable: it is not significant after a transformation "
-                                   "the data support (Box-Cox), so it may reflect the measurement scale rather "
-                                   "than a substantive interaction", ref="diagnostic:scale", weight="caveat"))
+        caveats.append(Reason(text=_REMOVABLE + " rather than a substantive interaction", ref="diagnostic:scale",
+                                   weight="caveat"))
     if near_alpha(prim.p, level):
         caveats.append(Reason(text=f"close to its level {level:.3g}: the primary {prim.id} ({ptxt})",
                               ref=f"method:{prim.id}", weight="caveat"))
