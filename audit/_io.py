@@ -52,6 +52,7 @@ __all__ = [
     "read_manifest",
     "MANIFEST",
     "MANIFEST_FORMAT",
+    "is_inside",
 ]
 
 #: Name of the manifest written inside every report folder (marks it as ours).
@@ -108,7 +109,8 @@ def _unlink_quiet(path: str) -> None:
         os.unlink(path)
 
 
-def _inside(path: str, folder: str) -> bool:
+def is_inside(path: str, folder: str) -> bool:
+    """``path`` is ``folder`` or lies below it (both already resolved)."""
     return path == folder or path.startswith(folder.rstrip(os.sep) + os.sep)
 
 
@@ -143,7 +145,7 @@ def refuse_folder_overlap(folder, inputs: Iterable, *, option: str = "--report")
     for inp in inputs:
         if inp is None:
             continue
-        if _inside(os.path.realpath(inp), f_real):
+        if is_inside(os.path.realpath(inp), f_real):
             raise OutputError(f"{option} folder {_q(folder)} contains the input data file {_q(inp)}; "
                               f"the report would replace it: choose another folder")
         i = _stat_id(inp)
@@ -192,7 +194,7 @@ def check_file_target(path, *, shown=None) -> tuple[str, str]:
             return "through", path
         target = os.path.realpath(path)
         folder = os.path.realpath(os.path.dirname(os.path.abspath(path)))
-        if not _inside(os.path.dirname(target), folder):
+        if not is_inside(os.path.dirname(target), folder):
             raise OutputError(f"{_q(shown)} is a symbolic link to {target!r}, outside the output folder; "
                               "refusing to replace it: give the target path itself or remove the link")
         if st is not None and stat.S_ISDIR(st.st_mode):

@@ -324,8 +324,8 @@ def _demo_loop(args, written: list, known, workers) -> int:
 
 
 def _run_check(args, written: list, compute=None) -> int:
-    from ._io import (MANIFEST, check_file_target, check_folder_target, refuse_folder_overlap, refuse_input_overlap,
-                      write_file)
+    from ._io import (MANIFEST, check_file_target, check_folder_target, is_inside, refuse_folder_overlap,
+                      refuse_input_overlap, write_file)
     inputs = [args.data]
     known = set(REPORT_NAMES)
     json_name = None  # set when --json names a file directly inside the report folder: written with it
@@ -342,7 +342,7 @@ def _run_check(args, written: list, compute=None) -> int:
         refuse_input_overlap(args.json, inputs, option="--json")
         if args.report:  # found before the audit runs, not when the report is already written
             j, r = os.path.realpath(args.json), os.path.realpath(args.report)
-            if j == r or j.startswith(r.rstrip(os.sep) + os.sep):
+            if is_inside(j, r):
                 where = "the --report folder" if j == r else "in a sub-folder of the --report folder"
                 raise OutputError(f"--json {args.json!r} is {where} {args.report!r}; give a file beside the "
                                   f"report or directly in its folder (the folder has its own {REPORT_JSON})")
