@@ -237,15 +237,8 @@ def _check_engine(data, engine, *, spark_master, sample_per_cell, response, fact
     finally:
         backend.close()
     counts = scan.moments.cells.counts
-    if (counts == 1).all():      # a table of cell statistics given to check (as _refuse_cell_table)
-        from .errors import ColumnError
-        from .summary import cell_table_hint
-
-        hint = cell_table_hint(columns, factors=tuple(factors),
-                               path=os.fspath(data) if isinstance(data, (str, os.PathLike)) else None,
-                               response=response)
-        if hint:
-            raise ColumnError(hint)
+    _refuse_cells(counts, lambda: columns, factors=tuple(factors),
+                  path=os.fspath(data) if isinstance(data, (str, os.PathLike)) else None, response=response)
     src = data if isinstance(data, str) else (", ".join(map(str, data)) if isinstance(data, (list, tuple)) else str(data))
     return findings_from_scan(scan, alpha=alpha, resamples=resamples, seed=seed, diagnostics=diagnostics,
                               methods=methods, figures=figures, progress=progress, claim=claim,
@@ -259,20 +252,26 @@ def _refuse_cell_table(data, obs, *, sheet, encoding) -> None:
     means as raw observations would be wrong."""
     import numpy as np
 
-    counts = np.bincount(obs.cell, minlength=obs.J * obs.K)
+    def columns():
+        if isinstance(data, (str, os.PathLike)):
+            from .intake import read_table
+
+            return list(read_table(data, sheet=sheet, encoding=encoding)[0].columns)
+        return list(data.columns)
+
+    _refuse_cells(np.bincount(obs.cell, minlength=obs.J * obs.K), columns, factors=obs.factors,
+                  path=os.fspath(data) if isinstance(data, (str, os.PathLike)) else None, response=obs.response)
+
+
+def _refuse_cells(counts, columns, *, factors, path, response) -> None:
+    """The refusal itself, for both paths: one observation in every cell and column names like
+    those of a cell table (``columns``: a callable, so the names are read only when needed)."""
     if not (counts == 1).all():
         return
-    if isinstance(data, (str, os.PathLike)):
-        from .intake import read_table
-
-        columns = list(read_table(data, sheet=sheet, encoding=encoding)[0].columns)
-        path = os.fspath(data)
-    else:
-        columns, path = list(data.columns), None
     from .errors import ColumnError
     from .summary import cell_table_hint
 
-    hint = cell_table_hint(columns, factors=obs.factors, path=path, response=obs.response)
+    hint = cell_table_hint(columns(), factors=factors, path=path, response=response)
     if hint:
         raise ColumnError(hint)
 
