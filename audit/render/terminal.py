@@ -61,11 +61,7 @@ def _at_most(lines: list[str], k: int) -> list[str]:
     user names: the full report and the JSON keep them)."""
     if len(lines) <= k:
         return lines
-    out = lines[:k]
-    out[-1] = _clip(out[-1] + " \u2026", WIDTH - 1) if len(out[-1]) < WIDTH - 2 else _clip(out[-1], WIDTH - 1)
-    if not out[-1].endswith("\u2026"):
-        out[-1] = out[-1][:WIDTH - 2] + "\u2026"
-    return out
+    return lines[:k - 1] + [_clip(lines[k - 1] + " \u2026", WIDTH - 1)]
 
 
 def render_terminal(report) -> str:
