@@ -278,12 +278,15 @@ def f_statistic_maker(layout: Layout, Cs: list[np.ndarray], ss_total: float) -> 
     if any(b and C.effect == "AB" for C, b in zip(Cs, big)):
         C0 = next(C for C in Cs if isinstance(C, Type3Contrast))
         additive = n.reshape(C0.J, C0.K)
+    inv_n = 1.0 / n
+    structured = any(big)
 
     def fn(S, SQ=None):
         z = S / rs
         sse = ss_total - np.einsum("ij,ij->i", z, z)
         sse = np.maximum(sse, ss_total * 1e-15)
         proj = z @ G.T
+        means = S / n if structured else None     # cell means, once for every structured effect
         out = np.empty((S.shape[0], len(Gs)))
         col = 0
         for e, (C, g) in enumerate(zip(Cs, Gs)):
@@ -292,11 +295,11 @@ def f_statistic_maker(layout: Layout, Cs: list[np.ndarray], ss_total: float) -> 
                 col += g.shape[0]
                 out[:, e] = np.einsum("ij,ij->i", part, part) / sizes[e]
             elif C.effect == "AB":
-                R, _ = additive_residual(additive, (S / n).reshape((-1,) + additive.shape))
+                R, _ = additive_residual(additive, means.reshape((-1,) + additive.shape))
                 R = R.reshape(S.shape)
                 out[:, e] = np.einsum("ij,ij->i", R * n, R) / sizes[e]
             else:
-                out[:, e] = type3_main_wald(S / n, 1.0 / n, C.J, C.K, C.effect) / sizes[e]
+                out[:, e] = type3_main_wald(means, inv_n, C.J, C.K, C.effect) / sizes[e]
         return out / (sse / df_e)[:, None]
 
     fn.bytes_per_resample = 8 * (4 * layout.m + 2 * G.shape[0] + 2 * len(Gs)) + (8 * 8 * layout.m if any(big) else 0)

@@ -1289,7 +1289,6 @@ def size_check(fit, *, alpha: float | None = None, replications: int = DEFAULT_R
             if isinstance(p0, np.ndarray) and np.isfinite(p0).any():
                 crit = min(alpha, float(np.quantile(np.nan_to_num(p0, nan=1.0), alpha)))
             power[mth] = (float(np.sum(pa < alpha)) / R, float(np.sum(pa <= crit)) / R, crit)
-            p0 = sims.get((mth, "AB"))
             rates = []
             for kset in range(NOISE_SETS):
                 ps = noise_parts.get((mth, kset))
