@@ -74,7 +74,8 @@ class Dialect:
         if not self.backslash_literals:
             return "'" + s.replace("'", "''") + "'"
         # Spark SQL: backslash escapes; adjacent literals concatenate (so '' is no quote); every
-        # character that is not printable ASCII as a \uXXXX escape (the lexer unescapes them)
+        # character that is not printable ASCII as a \u escape with four hex digits (the lexer
+        # unescapes them)
         out = []
         for ch in s:
             if ch in "\\'":
