@@ -25,7 +25,7 @@ import numpy as np
 from .. import intake
 from ..errors import DataFileError
 
-__all__ = ["TextFile", "open_text"]
+__all__ = ["TextFile"]
 
 CHUNK = 1 << 20
 SAMPLE_CHARS = 65536
@@ -37,7 +37,7 @@ def _check_utf8(path: str) -> None:
     with open(path, "rb") as fh:
         head = fh.read(4096)
         fh.seek(0)
-        pos = lines = 0
+        pos = 0
         while True:
             chunk = fh.read(CHUNK)
             final = not chunk
@@ -59,7 +59,6 @@ def _check_utf8(path: str) -> None:
                 raise intake.not_utf8_error(path, head, bad, count + 1) from None
             if final:
                 return
-            lines += chunk.count(b"\n")
             pos += len(chunk)
 
 
@@ -242,8 +241,4 @@ class TextFile:
         if self.tmpdir:
             shutil.rmtree(self.tmpdir, ignore_errors=True)
             self.tmpdir = None
-
-
-def open_text(path: str, *, encoding: str | None) -> TextFile:
-    return TextFile(path, encoding=encoding)
 
