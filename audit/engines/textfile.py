@@ -104,13 +104,10 @@ class TextFile:
         self.path = path                      # as the user gave it (for messages)
         self.tmpdir: str | None = None
         with open(path, "rb") as fh:
-            head = fh.read(4)
-        bom = intake.bom_encoding(head)
-        codec = encoding or bom or "utf-8"
-        self.encoding = encoding or {"utf-8-sig": "utf-8-sig"}.get(bom, bom) or "utf-8"
-        norm = codecs.lookup(codec).name
-        with open(path, "rb") as fh:
             raw = fh.read(SAMPLE_CHARS)
+        bom = intake.bom_encoding(raw[:4])
+        codec = self.encoding = encoding or bom or "utf-8"
+        norm = codecs.lookup(codec).name
         lf = raw.replace(b"\r\n", b"").count(b"\n") + raw.replace(b"\r\n", b"").count(b"\r")
         mixed = b"\r\n" in raw and lf > 0   # the engine's parser needs one kind of line end
         if mixed or not (norm in ("utf-8", "utf-8-sig") and (encoding is None or norm == "utf-8")):
