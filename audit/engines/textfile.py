@@ -133,6 +133,7 @@ class TextFile:
         names, skip = self._header(sample)
         self.names = intake.header_names(names, path)
         self.skip = skip                      # physical lines up to and including the header
+        self.quoted = '"' in sample           # a quote in the first 64 KiB (Spark's multi-line reader)
         self.parallel = True                  # False for quoted line breaks (DuckDB's parallel reader)
 
     # -- reading ---------------------------------------------------------------------------------
