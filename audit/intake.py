@@ -340,11 +340,12 @@ def header_names(values, path: str) -> list[str]:
     return names
 
 
-def _read_text(path: str, suffix: str, sha: str, encoding: str | None):
+def _read_text(path: str, suffix: str, encoding: str | None):
     import pandas as pd
 
     with open(path, "rb") as fh:
         raw = fh.read()
+    sha = hashlib.sha256(raw).hexdigest()     # the bytes read, hashed once (no second pass over the file)
     text, enc = _decode(path, raw, encoding)
     del raw
     delim = sniff_delimiter(path, text, suffix)
@@ -479,9 +480,9 @@ def read_table(path: str | os.PathLike, *, sheet=None, encoding: str | None = No
     import pandas as pd
 
     path, suffix, is_text, encoding = check_path(path, sheet=sheet, encoding=encoding)
-    sha = _sha256(path)
     if is_text:
-        return _read_text(path, suffix, sha, encoding)
+        return _read_text(path, suffix, encoding)
+    sha = _sha256(path)
     if suffix == ".xlsx":
         return _read_xlsx(path, sha, sheet)
     if suffix == ".parquet":
