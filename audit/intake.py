@@ -288,7 +288,7 @@ def not_utf8_error(path: str, head: bytes, byte: int, line: int) -> DataFileErro
     )
 
 
-def _sniff_delimiter(path: str, text: str, suffix: str) -> str:
+def sniff_delimiter(path: str, text: str, suffix: str) -> str:
     sample = text[:65536]
     if not sample.strip():
         raise DataFileError(f"{path}: the file is empty; expected a header line and data rows")
@@ -322,7 +322,7 @@ def _record_start_lines(text: str) -> np.ndarray:
     return starts.astype(np.int64)
 
 
-def _header_names(values, path: str) -> list[str]:
+def header_names(values, path: str) -> list[str]:
     names = []
     for i, v in enumerate(values):
         s = "" if v is None or (isinstance(v, float) and math.isnan(v)) else str(v).strip()
@@ -340,14 +340,15 @@ def _header_names(values, path: str) -> list[str]:
     return names
 
 
-def _read_text(path: str, suffix: str, sha: str, encoding: str | None):
+def _read_text(path: str, suffix: str, encoding: str | None):
     import pandas as pd
 
     with open(path, "rb") as fh:
         raw = fh.read()
+    sha = hashlib.sha256(raw).hexdigest()     # the bytes read, hashed once (no second pass over the file)
     text, enc = _decode(path, raw, encoding)
     del raw
-    delim = _sniff_delimiter(path, text, suffix)
+    delim = sniff_delimiter(path, text, suffix)
     m = re.match(r"(?:[ \t]*(?:\r\n|\n|\r))+", text)  # blank lines above the header
     lead = 0
     if m:
@@ -384,7 +385,7 @@ def _read_text(path: str, suffix: str, sha: str, encoding: str | None):
               if any(isinstance(v, str) and v.strip() for v in table.iloc[i].tolist())), None)
     if h is None:
         raise DataFileError(f"{path}: the file is empty; expected a header line and data rows")
-    names = _header_names(table.iloc[h].tolist(), path)
+    names = header_names(table.iloc[h].tolist(), path)
     frame = table.iloc[h + 1:].reset_index(drop=True)
     frame.columns = names
     src = Source(path=path, sha256=sha, format="text", delimiter=delim, encoding=enc)
@@ -435,7 +436,7 @@ def _read_xlsx(path: str, sha: str, sheet):
         book.close()
     if table.empty:
         raise DataFileError(f"{path}: sheet {_q(chosen)} is empty; expected a header row and data rows")
-    names_row = _header_names(table.iloc[0].tolist(), path)
+    names_row = header_names(table.iloc[0].tolist(), path)
     frame = table.iloc[1:].reset_index(drop=True)
     frame.columns = names_row
     frame = frame.infer_objects()
@@ -479,9 +480,9 @@ def read_table(path: str | os.PathLike, *, sheet=None, encoding: str | None = No
     import pandas as pd
 
     path, suffix, is_text, encoding = check_path(path, sheet=sheet, encoding=encoding)
-    sha = _sha256(path)
     if is_text:
-        return _read_text(path, suffix, sha, encoding)
+        return _read_text(path, suffix, encoding)
+    sha = _sha256(path)
     if suffix == ".xlsx":
         return _read_xlsx(path, sha, sheet)
     if suffix == ".parquet":
@@ -496,7 +497,7 @@ def read_table(path: str | os.PathLike, *, sheet=None, encoding: str | None = No
             frame = pd.read_parquet(path)
         except Exception as exc:
             raise DataFileError(f"{path}: cannot be read as a Parquet file ({type(exc).__name__})") from None
-        _header_names(list(frame.columns), path)
+        header_names(list(frame.columns), path)
         rows = np.arange(len(frame), dtype=np.int64) + 1
         return frame, Source(path=path, sha256=sha, format="parquet"), rows
     raise DataFileError(
@@ -504,7 +505,7 @@ def read_table(path: str | os.PathLike, *, sheet=None, encoding: str | None = No
     )
 
 
-def _fmt_scalar(v) -> str | None:
+def fmt_scalar(v) -> str | None:
     if v is None:
         return None
     if isinstance(v, (float, np.floating)):
@@ -523,7 +524,7 @@ def _level_lookup(col) -> tuple[np.ndarray, np.ndarray]:
     import pandas as pd
 
     codes, uniq = pd.factorize(col, sort=False, use_na_sentinel=True)
-    lookup = np.array([_fmt_scalar(v) for v in uniq] + [None], dtype=object)
+    lookup = np.array([fmt_scalar(v) for v in uniq] + [None], dtype=object)
     return lookup, codes
 
 
@@ -535,7 +536,7 @@ def _as_level_text(col) -> "np.ndarray":
     return lookup[codes]  # code -1 (missing) picks the trailing None
 
 
-def _comma_to_point(txt: np.ndarray) -> np.ndarray:
+def comma_to_point(txt: np.ndarray) -> np.ndarray:
     """Respell decimal-comma numbers ('14,54') with a point; other text unchanged."""
     out = txt.copy()
     for i, v in enumerate(out):
@@ -551,11 +552,11 @@ def _respell(txt: np.ndarray, decimal: str | None) -> np.ndarray:
     if decimal != ",":
         return txt
     codes, uniq = pd.factorize(pd.Series(txt, dtype=object), sort=False, use_na_sentinel=True)
-    lookup = np.append(_comma_to_point(np.asarray(uniq, dtype=object)), None)
+    lookup = np.append(comma_to_point(np.asarray(uniq, dtype=object)), None)
     return lookup[codes]
 
 
-def _check_factors_option(factors) -> tuple[str, str]:
+def check_factors_option(factors) -> tuple[str, str]:
     if isinstance(factors, str):
         parts = [p.strip() for p in factors.replace(",", " ").split()]
         hint = f"; give a pair such as factors=({_q(parts[0])}, {_q(parts[1])})" if len(parts) == 2 else ""
@@ -580,7 +581,7 @@ def _check_factors_option(factors) -> tuple[str, str]:
     return names[0], names[1]
 
 
-def _check_levels_option(levels) -> dict:
+def check_levels_option(levels) -> dict:
     """{factor: [level, ...]} from a dict or a sequence of (factor, levels) pairs."""
     if levels is None:
         return {}
@@ -836,7 +837,7 @@ def decimal_offset(text: str, spread: float) -> Decimal:
     return Decimal(text).quantize(Decimal(1).scaleb(math.floor(math.log10(spread))))
 
 
-def _parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.ndarray, row_kind: str = "line"):
+def parse_response(col, is_text: bool, name: str, rows: np.ndarray, keep: np.ndarray, row_kind: str = "line"):
     """Return (y, offset, centring sentence) for the kept rows."""
     import pandas as pd
 
@@ -1107,8 +1108,8 @@ def prepare(
         raise AuditInputError(
             f"data: expected a pandas DataFrame or a file path, found {type(frame).__name__}"
         )
-    factors = _check_factors_option(factors)
-    levels = _check_levels_option(levels)
+    factors = check_factors_option(factors)
+    levels = check_levels_option(levels)
     check_decimal(decimal)
     if source is None:
         source = Source(path="<DataFrame>", sha256=None, format="dataframe")
@@ -1227,7 +1228,7 @@ def prepare(
         ycol_parse = pd.Series(np.where(np.equal(ytxt, None), "", ytxt), dtype=object)
         y_is_text = True
     try:
-        y, offset, centring = _parse_response(ycol_parse, y_is_text, response, rows, keep, row_kind)
+        y, offset, centring = parse_response(ycol_parse, y_is_text, response, rows, keep, row_kind)
     except ResponseError as exc:
         if "must be numeric" not in str(exc):
             raise
@@ -1327,16 +1328,3 @@ def load(data, *, response: str, factors, levels=None, order=None, unit=None, sh
     raise AuditInputError(
         f"data: expected a file path or a pandas DataFrame, found {type(data).__name__}"
     )
-
-
-# public names of intake's rules, shared with the engines (audit/engines/rules.py)
-fmt_scalar = _fmt_scalar
-check_factors_option = _check_factors_option
-check_levels_option = _check_levels_option
-check_encoding = _check_encoding
-sniff_delimiter = _sniff_delimiter
-header_names = _header_names
-comma_to_point = _comma_to_point
-parse_response = _parse_response
-NUMBER_RE = _NUMBER_RE
-DEC_COMMA_RE = _DEC_COMMA_RE

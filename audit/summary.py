@@ -243,9 +243,9 @@ def read_summary(table, *, factors, mean: str = "mean", sd: str | None = None, s
     """
     import pandas as pd
 
-    from .intake import _check_factors_option, merge_numeric_spellings, read_table
+    from .intake import check_factors_option, merge_numeric_spellings, read_table
 
-    factors = _check_factors_option(factors)
+    factors = check_factors_option(factors)
     if sd is not None and se is not None:
         raise OptionError(f"sd/se: give the SD column or the SE column, not both (found sd={sd!r}, se={se!r})")
     spread_kind, spread = ("se", se) if se is not None else ("sd", sd if sd is not None else "sd")

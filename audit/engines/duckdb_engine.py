@@ -76,6 +76,7 @@ class DuckDBBackend:
         self.files = expand(data, sheet=sheet, encoding=encoding)
         exts = {os.path.splitext(f)[1].lower() for f in self.files}
         self.texts: list = []
+        self._file_counts = None
         if exts <= set(PARQUET_EXT):
             self.format = "parquet"
         elif exts <= set(TEXT_EXT):
@@ -200,7 +201,9 @@ class DuckDBBackend:
             return {r: (r % 2 ** 40) + 1 for r in rns}
         if len(self.texts) == 1:
             return self.texts[0].lines(rns)
-        counts = dict(self.query("SELECT twa_file, COUNT(*) FROM twa_raw GROUP BY twa_file"))
+        if self._file_counts is None:     # records per file: one scan, however often rows are named
+            self._file_counts = dict(self.query("SELECT twa_file, COUNT(*) FROM twa_raw GROUP BY twa_file"))
+        counts = self._file_counts
         out, base = {}, 0
         for i, t in enumerate(self.texts):
             n = int(counts.get(i, 0))

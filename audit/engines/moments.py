@@ -74,7 +74,8 @@ class Dialect:
         if not self.backslash_literals:
             return "'" + s.replace("'", "''") + "'"
         # Spark SQL: backslash escapes; adjacent literals concatenate (so '' is no quote); every
-        # character that is not printable ASCII as a \uXXXX escape (the lexer unescapes them)
+        # character that is not printable ASCII as a \u escape with four hex digits (the lexer
+        # unescapes them)
         out = []
         for ch in s:
             if ch in "\\'":
@@ -219,10 +220,11 @@ def pass_counts_sql(d: Dialect, base: str) -> str:
             f"FROM src GROUP BY fa, fb")
 
 
-def pass_centred_sql(d: Dialect, base: str, cell_table: str, inv_s: float) -> str:
-    ys = scaled(d, "src.yr", 1.0 / inv_s) if inv_s != 1.0 else "src.yr"
-    return (f"WITH src AS ({base}), t AS (SELECT src.fa AS fa, src.fb AS fb, {ys} - p.mu AS dd, "
-            f"{ys} - p.md AS ee FROM src JOIN {cell_table} p ON src.fa = p.fa AND src.fb = p.fb "
+def pass_centred_sql(d: Dialect, base: str, cell_table: str) -> str:
+    """The second pass: centred power sums about each cell's provisional mean (``base``'s
+    values and ``cell_table``'s means in the same units, the first pass's)."""
+    return (f"WITH src AS ({base}), t AS (SELECT src.fa AS fa, src.fb AS fb, src.yr - p.mu AS dd, "
+            f"src.yr - p.md AS ee FROM src JOIN {cell_table} p ON src.fa = p.fa AND src.fb = p.fb "
             f"WHERE src.yr IS NOT NULL) "
             f"SELECT fa, fb, SUM(dd) AS s1, SUM(dd * dd) AS s2, SUM(dd * dd * dd) AS s3, "
             f"SUM((dd * dd) * (dd * dd)) AS s4, AVG(abs(dd)) AS zm, VAR_SAMP(abs(dd)) AS zv, "
@@ -256,13 +258,13 @@ def order_levels(found: list[str], factor: str, given=None) -> tuple[str, ...]:
 
 
 def assemble_moments(counts_rows, centred_rows, *, factors, response, offset, levels=None,
-                     unit_scale: float, prescaled: bool = False) -> tuple[CellMoments, dict]:
+                     unit_scale: float) -> tuple[CellMoments, dict]:
     """Turn the rows of the first two passes into CellMoments (and level codes).
 
     ``counts_rows``: (fa, fb, n_rows, n, n_bad, lo, hi, mean0, med) per group,
     NULL factor groups included; ``centred_rows``: (fa, fb, s1, s2, s3, s4, zm,
-    zv, em, ev); ``unit_scale``: the power of two the second pass divided by
-    (``prescaled``: the first pass's values are already in its units).
+    zv, em, ev); ``unit_scale``: the power of two both passes' values were divided by
+    (the rows are already in its units).
     """
     missing_factor = sum(int(r[2]) for r in counts_rows if r[0] is None or r[1] is None)
     rows = [r for r in counts_rows if r[0] is not None and r[1] is not None]
@@ -291,8 +293,7 @@ def assemble_moments(counts_rows, centred_rows, *, factors, response, offset, le
         n[j, k] = int(nn)
         miss[j, k] = int(n_rows) - int(nn)
         if nn:
-            lo[j, k], hi[j, k], med[j, k], mu0[j, k] = (float(x) / (1.0 if prescaled else s)
-                                                        for x in (a_lo, a_hi, md, m0))
+            lo[j, k], hi[j, k], med[j, k], mu0[j, k] = (float(x) for x in (a_lo, a_hi, md, m0))
     if n.sum() == 0:
         raise ResponseError(f"response {response!r}: no usable values; expected numbers in the column")
     S = np.zeros((4, J, K))

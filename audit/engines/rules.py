@@ -369,7 +369,7 @@ def apply_intake(backend, *, response: str, factors: tuple[str, str], levels=Non
         got = backend.row_numbers(rns)
         rows = tuple(got[r] for r in rns if r in got)
     dropped = DroppedRows(total=total, missing_response=miss,
-                          missing_factor=int(n[~np.array([x is not None and z is not None for x, z in zip(ta, tb)])].sum()),
+                          missing_factor=int(n[~known].sum()),
                           missing_other=0, blank_lines=n_blank, rows=rows)
     return EngineIntake(levels_a=la, levels_b=lb, level_order=(how[0], how[1]), notes=tuple(notes), rk=rk,
                         centring=centring, dropped=dropped, source=source, lo=lo, hi=hi, decimal=decimal)

@@ -76,11 +76,10 @@ def run_scan(backend, *, response: str, factors: tuple[str, str], levels=None,
     params = pd.DataFrame({"fa": [r[0] for r in good], "fb": [r[1] for r in good],
                            "mu": [float(r[7]) for r in good], "md": [float(r[8]) for r in good]})
     cell_table = backend.register("twa_cells", params)
-    centred_rows, timings["centred"] = _timed(backend, pass_centred_sql(d, base, cell_table, 1.0),
+    centred_rows, timings["centred"] = _timed(backend, pass_centred_sql(d, base, cell_table),
                                               "pass 2/3 (centred moments)", progress)
     cm, lv = assemble_moments(counts_rows, centred_rows, factors=factors, response=response, offset=rk.offset,
-                              levels={factors[0]: ei.levels_a, factors[1]: ei.levels_b}, unit_scale=s,
-                              prescaled=True)
+                              levels={factors[0]: ei.levels_a, factors[1]: ei.levels_b}, unit_scale=s)
     # pass 3: the seeded sample
     k = int(sample_per_cell)
     n_by = {(r[0], r[1]): int(r[3]) for r in good}

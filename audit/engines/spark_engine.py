@@ -111,7 +111,7 @@ class SparkBackend:
                 schema = StructType([StructField(n, StringType(), True) for n in tf.names])
                 # quoted line breaks need the (unsplit) multi-line reader; a quote in the first
                 # 64 KiB turns it on
-                multi = '"' in tf._sample()
+                multi = tf.quoted
                 df = (self.spark.read.schema(schema).option("header", "true").option("sep", tf.delimiter)
                       .option("quote", '"').option("escape", '"').option("encoding", "UTF-8")
                       .option("multiLine", "true" if multi else "false").option("mode", "PERMISSIVE")

@@ -25,7 +25,7 @@ import numpy as np
 from .. import intake
 from ..errors import DataFileError
 
-__all__ = ["TextFile", "open_text"]
+__all__ = ["TextFile"]
 
 CHUNK = 1 << 20
 SAMPLE_CHARS = 65536
@@ -37,7 +37,7 @@ def _check_utf8(path: str) -> None:
     with open(path, "rb") as fh:
         head = fh.read(4096)
         fh.seek(0)
-        pos = lines = 0
+        pos = 0
         while True:
             chunk = fh.read(CHUNK)
             final = not chunk
@@ -59,7 +59,6 @@ def _check_utf8(path: str) -> None:
                 raise intake.not_utf8_error(path, head, bad, count + 1) from None
             if final:
                 return
-            lines += chunk.count(b"\n")
             pos += len(chunk)
 
 
@@ -105,13 +104,10 @@ class TextFile:
         self.path = path                      # as the user gave it (for messages)
         self.tmpdir: str | None = None
         with open(path, "rb") as fh:
-            head = fh.read(4)
-        bom = intake.bom_encoding(head)
-        codec = encoding or bom or "utf-8"
-        self.encoding = encoding or {"utf-8-sig": "utf-8-sig"}.get(bom, bom) or "utf-8"
-        norm = codecs.lookup(codec).name
-        with open(path, "rb") as fh:
             raw = fh.read(SAMPLE_CHARS)
+        bom = intake.bom_encoding(raw[:4])
+        codec = self.encoding = encoding or bom or "utf-8"
+        norm = codecs.lookup(codec).name
         lf = raw.replace(b"\r\n", b"").count(b"\n") + raw.replace(b"\r\n", b"").count(b"\r")
         mixed = b"\r\n" in raw and lf > 0   # the engine's parser needs one kind of line end
         if mixed or not (norm in ("utf-8", "utf-8-sig") and (encoding is None or norm == "utf-8")):
@@ -137,6 +133,7 @@ class TextFile:
         names, skip = self._header(sample)
         self.names = intake.header_names(names, path)
         self.skip = skip                      # physical lines up to and including the header
+        self.quoted = '"' in sample           # a quote in the first 64 KiB (Spark's multi-line reader)
         self.parallel = True                  # False for quoted line breaks (DuckDB's parallel reader)
 
     # -- reading ---------------------------------------------------------------------------------
@@ -242,8 +239,4 @@ class TextFile:
         if self.tmpdir:
             shutil.rmtree(self.tmpdir, ignore_errors=True)
             self.tmpdir = None
-
-
-def open_text(path: str, *, encoding: str | None) -> TextFile:
-    return TextFile(path, encoding=encoding)
 
